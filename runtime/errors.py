@@ -1,0 +1,35 @@
+"""The exception hierarchy of stridecast, rooted at `StridecastError`.
+
+Errors caused by bad input also subclass `ValueError`, so callers that already catch
+`ValueError` keep working.
+"""
+
+from __future__ import annotations
+
+
+class StridecastError(Exception):
+    """Base class of every error stridecast raises on purpose."""
+
+
+class BundleError(StridecastError, ValueError):
+    """A bundle directory or its manifest is missing, malformed, tampered with or unsafe."""
+
+
+class ModelFormatError(StridecastError, ValueError):
+    """An ONNX file is malformed, exceeds a limit, or uses a feature the reader does not support."""
+
+
+class UnsupportedOperatorError(ModelFormatError):
+    """A graph uses an operator (or operator version) the runtime does not implement."""
+
+
+class StateError(StridecastError, ValueError):
+    """A state array has the wrong shape or dtype, is non-finite, or became non-finite."""
+
+
+class TimeError(StridecastError, ValueError):
+    """A requested time is negative, non-finite, unreachable or beyond the work limits."""
+
+
+class NonFiniteError(StateError):
+    """A network step produced NaN or infinity; the message names the step and the level."""

@@ -1,0 +1,3 @@
+from stridecast.cli import main
+
+raise SystemExit(main())
