@@ -1,7 +1,118 @@
-"""The `stridecast` command line."""
+"""The `stridecast` command line: a parser per command, handlers imported lazily.
+
+Heavy parts (torch for `train`/`export`, FastAPI for `serve`) are imported inside the command
+that needs them, so `stridecast advance` starts as fast as NumPy does.
+"""
 
 from __future__ import annotations
 
+import argparse
+import sys
+from collections.abc import Callable
+
+from . import __version__
+
+CAUTION = (
+    "Caution: a learned stepper is an approximation, valid inside its training envelope and "
+    "validated horizon. It is not a safety function; local codes and licensed practice come "
+    "first."
+)
+
+Handler = Callable[[argparse.Namespace], int]
+
+
+def _formatter(prog: str) -> argparse.HelpFormatter:
+    return argparse.RawDescriptionHelpFormatter(prog, max_help_position=32)
+
+
+def _add(subparsers, name: str, summary: str, example: str, handler: str):
+    parser = subparsers.add_parser(
+        name, help=summary, description=f"{summary}\n\nexample:\n  {example}",
+        formatter_class=_formatter,
+    )
+    parser.set_defaults(handler=handler)
+    return parser
+
+
+def _add_state_options(parser: argparse.ArgumentParser) -> None:
+    group = parser.add_mutually_exclusive_group(required=True)
+    group.add_argument("--state", action="append", metavar="X1,X2,...",
+                       help="initial state, comma-separated; repeat for a batch")
+    group.add_argument("--state-file", metavar="FILE",
+                       help="initial state(s) from a .npy file, shape (d,) or (B, d)")
+    parser.add_argument("--off-grid", choices=("interpolate", "nearest", "error"),
+                        default="interpolate", help="what to do between grid times "
+                        "(default: %(default)s)")
+    parser.add_argument("--dtype", choices=("float32", "float64"), default="float32")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="stridecast", formatter_class=_formatter,
+        description="Deploy learned multi-scale flow-map time-steppers.\n\n" + CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"stridecast {__version__}")
+    subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    inspect = _add(subparsers, "inspect", "Show a bundle's levels, operators and figures; "
+                   "re-verify its checksums.", "stridecast inspect crane-demo.bundle",
+                   "stridecast.commands_runtime:inspect_command")
+    inspect.add_argument("bundle", nargs="?", help="bundle directory")
+    inspect.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
+    inspect.add_argument("--json", action="store_true", help="print JSON")
+
+    advance = _add(subparsers, "advance", "Forecast the state at one time.",
+                   "stridecast advance crane-demo.bundle --state 3,-24,0,0 --t 12.5",
+                   "stridecast.commands_runtime:advance_command")
+    advance.add_argument("bundle", nargs="?", help="bundle directory")
+    advance.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
+    advance.add_argument("--t", type=float, required=True, help="time to reach, ≥ 0")
+    _add_state_options(advance)
+
+    forecast = _add(subparsers, "forecast", "Forecast the state at many times (dense output).",
+                    "stridecast forecast crane-demo.bundle --state 3,-24,0,0 --until 60 "
+                    "--every 0.5 --out forecast.csv",
+                    "stridecast.commands_runtime:forecast_command")
+    forecast.add_argument("bundle", nargs="?", help="bundle directory")
+    forecast.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
+    times = forecast.add_mutually_exclusive_group(required=True)
+    times.add_argument("--times", metavar="T1,T2,...", help="comma-separated times")
+    times.add_argument("--until", type=float, help="last time of an evenly spaced grid")
+    forecast.add_argument("--every", type=float, help="spacing of the grid given by --until")
+    forecast.add_argument("--out", metavar="FILE", help="write .csv or .npy instead of printing")
+    _add_state_options(forecast)
+
+    _register_optional(subparsers)
+    return parser
+
+
+def _register_optional(subparsers) -> None:
+    """Commands of the other parts; each module adds its own parser."""
+    from . import commands_optional
+
+    commands_optional.register(subparsers, _add)
+
+
+def _resolve(handler: str) -> Handler:
+    module_name, function_name = handler.split(":")
+    module = __import__(module_name, fromlist=[function_name])
+    return getattr(module, function_name)
+
 
 def main(argv: list[str] | None = None) -> int:
-    return 0
+    parser = build_parser()
+    arguments = parser.parse_args(argv)
+    if not getattr(arguments, "handler", None):
+        parser.print_help()
+        return 2
+    from stridecast.runtime import StridecastError
+
+    try:
+        return _resolve(arguments.handler)(arguments)
+    except StridecastError as error:
+        print(f"stridecast {arguments.command}: error: {error}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print(f"stridecast {arguments.command}: interrupted", file=sys.stderr)
+        return 130

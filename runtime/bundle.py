@@ -1,0 +1,193 @@
+"""Reading and writing bundle directories safely.
+
+Reading refuses any level path that could leave the bundle (absolute, `..`, backslashes, NUL,
+symlinks, hard links) and checks SHA-256 before a byte is parsed. Writing goes to a temporary
+directory beside the target and is renamed into place, so no half bundle is ever visible.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import shutil
+import stat
+import tempfile
+from collections.abc import Mapping
+from dataclasses import replace
+from pathlib import Path, PurePosixPath
+
+from .errors import BundleError
+from .limits import DEFAULT_LIMITS, Limits
+from .manifest import LevelEntry, Manifest, level_file_name, parse_manifest_text
+
+MANIFEST_NAME = "manifest.json"
+REPORT_NAME = "report.json"
+
+
+def sha256_hex(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def check_relative_path(relative: str, where: str) -> tuple[str, ...]:
+    """Split a manifest file path into safe components or raise `BundleError`."""
+    if not relative or "\x00" in relative or "\\" in relative:
+        raise BundleError(
+            f"`{where}` is {relative!r}; expected a relative POSIX path without NUL or backslash."
+        )
+    path = PurePosixPath(relative)
+    if path.is_absolute() or relative.startswith("/") or (len(relative) > 1 and relative[1] == ":"):
+        raise BundleError(f"`{where}` is {relative!r}; absolute paths are refused.")
+    parts = tuple(part for part in relative.split("/") if part not in ("", "."))
+    if not parts or any(part == ".." for part in parts):
+        raise BundleError(
+            f"`{where}` is {relative!r}; paths must stay inside the bundle (no '..')."
+        )
+    return parts
+
+
+def read_bundle_file(root: Path, relative: str, where: str, *, max_bytes: int) -> bytes:
+    """Read a regular file inside `root` without following any symlink on the way."""
+    parts = check_relative_path(relative, where)
+    current = root
+    for index, part in enumerate(parts):
+        current = current / part
+        try:
+            info = os.lstat(current)
+        except FileNotFoundError as error:
+            raise BundleError(f"`{where}` names {relative!r}, which is missing.") from error
+        except OSError as error:
+            raise BundleError(f"`{where}` names {relative!r}, which cannot be read: {error}.") \
+                from error
+        if stat.S_ISLNK(info.st_mode):
+            raise BundleError(f"`{where}` names {relative!r}, which passes through a symlink.")
+        last = index == len(parts) - 1
+        if not last and not stat.S_ISDIR(info.st_mode):
+            raise BundleError(f"`{where}` names {relative!r}; {part!r} is not a directory.")
+    if not stat.S_ISREG(info.st_mode):
+        raise BundleError(f"`{where}` names {relative!r}, which is not a regular file.")
+    if info.st_nlink > 1:
+        raise BundleError(f"`{where}` names {relative!r}, which is a hard link; refused.")
+    if info.st_size > max_bytes:
+        raise BundleError(
+            f"`{where}` names {relative!r} of {info.st_size} bytes; the limit is {max_bytes}."
+        )
+    flags = os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0)
+    try:
+        descriptor = os.open(current, flags)
+    except OSError as error:
+        raise BundleError(f"`{where}` names {relative!r}, which cannot be opened: {error}.") \
+            from error
+    with os.fdopen(descriptor, "rb") as handle:
+        data = handle.read(max_bytes + 1)
+    if len(data) > max_bytes:
+        raise BundleError(f"`{where}` names {relative!r}, which grew beyond {max_bytes} bytes.")
+    return data
+
+
+def open_bundle_root(path: str | os.PathLike[str]) -> Path:
+    root = Path(path)
+    if not root.exists():
+        raise BundleError(f"the bundle {str(root)!r} does not exist.")
+    if not root.is_dir():
+        raise BundleError(f"the bundle {str(root)!r} is not a directory (expected a folder "
+                          f"holding {MANIFEST_NAME} and levels/).")
+    return root.resolve()
+
+
+def read_manifest(root: Path, *, limits: Limits = DEFAULT_LIMITS) -> Manifest:
+    data = read_bundle_file(root, MANIFEST_NAME, MANIFEST_NAME,
+                            max_bytes=limits.max_manifest_bytes)
+    return parse_manifest_text(data, max_bytes=limits.max_manifest_bytes)
+
+
+def read_levels(root: Path, manifest: Manifest, *, verify: bool = True,
+                limits: Limits = DEFAULT_LIMITS) -> dict[int, bytes]:
+    """Read every level file, checking all paths first and then every checksum."""
+    for index, entry in enumerate(manifest.levels):
+        check_relative_path(entry.file, f"levels[{index}].file")
+    contents = {}
+    for index, entry in enumerate(manifest.levels):
+        data = read_bundle_file(root, entry.file, f"levels[{index}].file",
+                                max_bytes=limits.max_model_bytes)
+        if verify:
+            digest = sha256_hex(data)
+            if digest != entry.sha256:
+                raise BundleError(
+                    f"the checksum of {entry.file!r} (stride {entry.stride}) is {digest}; the "
+                    f"manifest records {entry.sha256}: the file was changed or corrupted."
+                )
+        contents[entry.stride] = data
+    return contents
+
+
+def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: Mapping[int, bytes],
+                 *, report: Mapping | None = None, overwrite: bool = False) -> Path:
+    """Write a bundle atomically and return its path.
+
+    Parameters
+    ----------
+    out : path
+        The bundle directory to create.
+    manifest : Manifest
+        Its `levels` give strides and input/output names; files and checksums are filled in.
+    level_files : mapping of stride to bytes
+        Serialized ONNX model of each level.
+    report : mapping, optional
+        Written as `report.json`.
+    overwrite : bool
+        Replace an existing bundle at `out`; otherwise an existing path is an error.
+    """
+    target = Path(out)
+    if target.exists() and not overwrite:
+        raise BundleError(
+            f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to replace it."
+        )
+    if target.exists() and not target.is_dir():
+        raise BundleError(f"{str(target)!r} exists and is not a directory; refusing to replace it.")
+    if sorted(level_files) != sorted(entry.stride for entry in manifest.levels):
+        raise BundleError(
+            f"level files were given for strides {sorted(level_files)} but the manifest lists "
+            f"{sorted(entry.stride for entry in manifest.levels)}."
+        )
+    entries = tuple(
+        LevelEntry(stride=entry.stride, file=level_file_name(entry.stride),
+                   sha256=sha256_hex(level_files[entry.stride]),
+                   input=entry.input, output=entry.output)
+        for entry in manifest.levels
+    )
+    final_manifest = replace(manifest, levels=entries)
+    text = json.dumps(final_manifest.to_dict(), indent=2, allow_nan=False)
+    parse_manifest_text(text)  # never write a manifest this reader would refuse
+
+    target.parent.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
+    try:
+        (staging / "levels").mkdir()
+        for entry in entries:
+            (staging / entry.file).write_bytes(level_files[entry.stride])
+        if report is not None:
+            (staging / REPORT_NAME).write_text(
+                json.dumps(report, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+        (staging / MANIFEST_NAME).write_text(text + "\n", encoding="utf-8")
+        _move_into_place(staging, target)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    return target
+
+
+def _move_into_place(staging: Path, target: Path) -> None:
+    if not target.exists():
+        os.rename(staging, target)
+        return
+    # Replace: move the old bundle aside first so a failure can put it back.
+    retired = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
+    os.rmdir(retired)
+    os.rename(target, retired)
+    try:
+        os.rename(staging, target)
+    except BaseException:
+        os.rename(retired, target)
+        raise
+    shutil.rmtree(retired, ignore_errors=True)

@@ -1,0 +1,258 @@
+"""Level kernels: one network step in physical units, on a fast path where the graph allows.
+
+A kernel maps states x (B, d) to x after one stride. The fast path recognises chains of affine
+layers and activations, folds the manifest normalisation into the first and last affine layers,
+and reuses per-thread buffers; every other graph runs in the generic interpreter.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections import OrderedDict
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .graph import BoundNode, Program
+
+# Activations that NumPy can apply in place without temporaries.
+_IN_PLACE: dict[str, Callable[[np.ndarray], object]] = {
+    "Tanh": lambda h: np.tanh(h, out=h),
+    "Relu": lambda h: np.maximum(h, 0, out=h),
+    "Identity": lambda h: None,
+}
+_ACTIVATIONS = {
+    "Tanh", "Relu", "Sigmoid", "LeakyRelu", "Elu", "Selu", "Softplus", "Mish", "Gelu",
+    "HardSigmoid", "HardSwish", "Identity",
+}
+_BUFFER_CACHE_SIZE = 4
+
+
+@dataclass(frozen=True)
+class Affine:
+    """h @ weight + bias, with weight (in, out) C-contiguous."""
+
+    weight: np.ndarray
+    bias: np.ndarray | None
+
+
+@dataclass(frozen=True)
+class Activation:
+    op_type: str
+    function: Callable[[np.ndarray], object]  # works in place on its argument
+
+
+Stage = Affine | Activation
+
+
+class GenericKernel:
+    """Runs the interpreter on normalised states and applies the update form."""
+
+    path = "interpreter"
+
+    def __init__(self, program: Program, mean: np.ndarray, scale: np.ndarray, update: str):
+        self.program = program
+        self.mean = mean
+        self.scale = scale
+        self.update = update
+
+    def __call__(self, state: np.ndarray) -> np.ndarray:
+        normalised = (state - self.mean) / self.scale
+        network = np.asarray(self.program.run(normalised))
+        if network.shape != state.shape:
+            return network  # the caller reports the shape mismatch
+        if self.update == "increment":
+            return state + self.scale * network
+        return self.mean + self.scale * network
+
+
+class ChainKernel:
+    """Affine+activation chain with normalisation folded into the end layers."""
+
+    path = "affine-chain"
+
+    def __init__(self, stages: Sequence[Stage], *, residual: bool,
+                 input_shift: np.ndarray | None, input_scale: np.ndarray | None):
+        self.stages = tuple(stages)
+        self.residual = residual
+        # Only set when the first stage is not affine, so the normalisation cannot be folded.
+        self.input_shift = input_shift
+        self.input_scale = input_scale
+        self._local = threading.local()
+
+    def _buffers(self, batch: int) -> list[np.ndarray | None]:
+        cache = getattr(self._local, "cache", None)
+        if cache is None:
+            cache = self._local.cache = OrderedDict()
+        buffers = cache.get(batch)
+        if buffers is None:
+            buffers = [
+                np.empty((batch, stage.weight.shape[1]), dtype=stage.weight.dtype)
+                if isinstance(stage, Affine) else None
+                for stage in self.stages
+            ]
+            cache[batch] = buffers
+            if len(cache) > _BUFFER_CACHE_SIZE:
+                cache.popitem(last=False)
+        else:
+            cache.move_to_end(batch)
+        return buffers
+
+    def __call__(self, state: np.ndarray) -> np.ndarray:
+        hidden = state
+        if self.input_shift is not None:
+            hidden = (state - self.input_shift) / self.input_scale
+        last_affine = max(i for i, s in enumerate(self.stages) if isinstance(s, Affine))
+        buffers = self._buffers(state.shape[0])
+        for index, stage in enumerate(self.stages):
+            if isinstance(stage, Affine):
+                # The last affine writes a fresh array: the result leaves the kernel.
+                out = None if index == last_affine else buffers[index]
+                hidden = np.matmul(hidden, stage.weight, out=out)
+                if stage.bias is not None:
+                    hidden += stage.bias
+            else:
+                if hidden is state:
+                    hidden = hidden.copy()
+                stage.function(hidden)
+        if self.residual:
+            hidden = hidden + state if hidden is state else _add_in_place(hidden, state)
+        return hidden
+
+
+def _add_in_place(hidden: np.ndarray, state: np.ndarray) -> np.ndarray:
+    hidden += state
+    return hidden
+
+
+def make_kernel(program: Program, *, mean: Sequence[float], scale: Sequence[float],
+                update: str, fast_path: bool = True) -> GenericKernel | ChainKernel:
+    """Build the kernel of one level: the fast chain where recognised, else the interpreter."""
+    dtype = program.dtype
+    mean_array = np.asarray(mean, dtype=dtype)
+    scale_array = np.asarray(scale, dtype=dtype)
+    if fast_path:
+        stages = recognise_chain(program)
+        if stages is not None:
+            return _fold_normalisation(stages, mean_array, scale_array, update, dtype)
+    return GenericKernel(program, mean_array, scale_array, update)
+
+
+def recognise_chain(program: Program) -> list[Stage] | None:
+    """Return the stages if the program is a single chain of affine layers and activations."""
+    constants = program.constants
+    current = program.input_name
+    stages: list[Stage] = []
+    consumers: dict[str, int] = {}
+    for bound in program.nodes:
+        for name in bound.node.inputs:
+            consumers[name] = consumers.get(name, 0) + 1
+    for bound in program.nodes:
+        node = bound.node
+        if len(node.outputs) != 1 or current not in node.inputs[:2]:
+            return None
+        if current != program.input_name and consumers.get(current, 0) != 1:
+            return None
+        stage = _stage_of(bound, current, constants, stages)
+        if stage is None:
+            return None
+        if stage != "merged":
+            stages.append(stage)
+        current = node.outputs[0]
+    if current != program.output_name or not any(isinstance(s, Affine) for s in stages):
+        return None
+    return stages
+
+
+def _stage_of(bound: BoundNode, current: str, constants, stages: list[Stage]):
+    node = bound.node
+    attributes = dict(bound.attributes)
+    others = [name for name in node.inputs if name and name != current]
+    if any(name not in constants for name in others):
+        return None
+    if node.op_type == "Gemm":
+        if (attributes.get("transA", 0) or len(node.inputs) < 2 or node.inputs[0] != current
+                or current in node.inputs[1:]):
+            return None
+        weight = constants[node.inputs[1]]
+        if weight.ndim != 2:
+            return None
+        if attributes.get("transB", 0):
+            weight = weight.T
+        weight = weight * weight.dtype.type(attributes.get("alpha", 1.0))
+        bias = None
+        if len(node.inputs) > 2 and node.inputs[2]:
+            bias = _bias_vector(constants[node.inputs[2]], weight.shape[1])
+            if bias is None:
+                return None
+            bias = bias * bias.dtype.type(attributes.get("beta", 1.0))
+        return Affine(np.ascontiguousarray(weight), bias)
+    if node.op_type == "MatMul":
+        weight = constants[node.inputs[1]] if node.inputs[0] == current else None
+        if weight is None or weight.ndim != 2 or node.inputs[1] == current:
+            return None
+        return Affine(np.ascontiguousarray(weight), None)
+    if node.op_type == "Add":
+        last = stages[-1] if stages else None
+        if not isinstance(last, Affine) or last.bias is not None or len(others) != 1:
+            return None
+        bias = _bias_vector(constants[others[0]], last.weight.shape[1])
+        if bias is None:
+            return None
+        stages[-1] = Affine(last.weight, bias)
+        return "merged"
+    if node.op_type in _ACTIVATIONS and node.inputs == (current,):
+        function = _IN_PLACE.get(node.op_type)
+        if function is None:
+            operator, attrs = bound.function, attributes
+
+            def function(h, operator=operator, attrs=attrs):
+                h[...] = operator(h, **attrs)
+        if node.op_type == "Identity":
+            return "merged"
+        return Activation(node.op_type, function)
+    return None
+
+
+def _bias_vector(value: np.ndarray, width: int) -> np.ndarray | None:
+    if value.size == 1:
+        return np.full(width, value.reshape(()), dtype=value.dtype)
+    if value.shape in ((width,), (1, width)):
+        return np.ascontiguousarray(value.reshape(width))
+    return None
+
+
+def _fold_normalisation(stages: list[Stage], mean: np.ndarray, scale: np.ndarray, update: str,
+                        dtype: np.dtype) -> ChainKernel:
+    """Fold z = (x − mean)/scale into the first affine and x' = … into the last."""
+    stages = list(stages)
+    # Fold in float64 so the folded weights are as close as possible to the exact product.
+    mean64, scale64 = mean.astype(np.float64), scale.astype(np.float64)
+    input_shift = input_scale = None
+    if isinstance(stages[0], Affine):
+        first = stages[0]
+        weight = first.weight.astype(np.float64)
+        bias = np.zeros(weight.shape[1]) if first.bias is None else first.bias.astype(np.float64)
+        stages[0] = Affine(weight / scale64[:, None], bias - (mean64 / scale64) @ weight)
+    else:
+        input_shift, input_scale = mean, scale
+    residual = update == "increment"
+    if isinstance(stages[-1], Affine):
+        last = stages[-1]
+        weight = last.weight.astype(np.float64)
+        bias = np.zeros(weight.shape[1]) if last.bias is None else last.bias.astype(np.float64)
+        weight = weight * scale64[None, :]
+        bias = bias * scale64 if residual else bias * scale64 + mean64
+        stages[-1] = Affine(weight, bias)
+    else:
+        # An activation ends the chain: apply the output side explicitly.
+        stages.append(Affine(np.diag(scale64), None if residual else mean64))
+    stages = [
+        Affine(np.ascontiguousarray(s.weight, dtype=dtype),
+               None if s.bias is None else np.ascontiguousarray(s.bias, dtype=dtype))
+        if isinstance(s, Affine) else s
+        for s in stages
+    ]
+    return ChainKernel(stages, residual=residual, input_shift=input_shift,
+                       input_scale=input_scale)

@@ -1,0 +1,70 @@
+"""`load`: from a bundle directory to a ready `Stepper`, checking everything on the way."""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+from .bundle import open_bundle_root, read_levels, read_manifest
+from .compile import make_kernel
+from .errors import BundleError, ModelFormatError
+from .graph import build_program
+from .limits import DEFAULT_LIMITS, Limits
+from .onnx_reader import read_model
+from .stepper import Stepper
+
+DTYPES = ("float32", "float64")
+
+
+def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool = True,
+         limits: Limits = DEFAULT_LIMITS, fast_path: bool = True) -> Stepper:
+    """Load a bundle directory and return a `Stepper`.
+
+    Parameters
+    ----------
+    path : path-like
+        The bundle directory (holding ``manifest.json`` and ``levels/``).
+    dtype : {"float32", "float64"}
+        Compute precision. Networks are usually trained in float32; float64 is for exact
+        reference models and for studying rounding.
+    verify : bool
+        Check each level file's SHA-256 against the manifest (default). Paths are always
+        checked, whatever this says.
+    limits : Limits
+        Size and work limits (file sizes, tensor sizes, steps per query, batch size).
+    fast_path : bool
+        Use the compiled affine-chain kernels where the graph allows (default); False runs
+        every level in the generic interpreter.
+    """
+    if dtype not in DTYPES and np.dtype(dtype).name not in DTYPES:
+        raise BundleError(f"`dtype` is {dtype!r}; expected one of {list(DTYPES)}.")
+    compute = np.dtype(dtype)
+    root = open_bundle_root(path)
+    manifest = read_manifest(root, limits=limits)
+    contents = read_levels(root, manifest, verify=verify, limits=limits)
+    kernels = {}
+    for entry in manifest.levels:
+        where = f"level stride {entry.stride} ({entry.file})"
+        try:
+            model = read_model(contents[entry.stride], limits=limits, source=entry.file)
+            program = build_program(model, input_name=entry.input, output_name=entry.output,
+                                    dtype=compute)
+            kernel = make_kernel(program, mean=manifest.mean, scale=manifest.scale,
+                                 update=manifest.update, fast_path=fast_path)
+            _probe(kernel, manifest.mean, compute, where)
+        except ModelFormatError as error:
+            raise type(error)(f"{where}: {error}") from error
+        kernels[entry.stride] = kernel
+    return Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root))
+
+
+def _probe(kernel, mean, dtype: np.dtype, where: str) -> None:
+    """Run the level once on two copies of the mean state to check its output shape."""
+    states = np.tile(np.asarray(mean, dtype=dtype), (2, 1))
+    result = np.asarray(kernel(states))
+    if result.shape != states.shape:
+        raise ModelFormatError(
+            f"the network maps a batch of shape {states.shape} to shape {result.shape}; "
+            f"a level must map (batch, {states.shape[1]}) to (batch, {states.shape[1]})."
+        )

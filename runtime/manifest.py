@@ -1,0 +1,293 @@
+"""The bundle manifest (format `stridecast.bundle`, version 1): parse, validate, serialise.
+
+All validation of `manifest.json` lives here; messages name the field, the value and what was
+expected. The reader refuses fields it does not know where they could change meaning.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+from .errors import BundleError
+
+FORMAT_NAME = "stridecast.bundle"
+FORMAT_VERSION = 1
+UPDATE_FORMS = ("increment", "replace")
+_SHA256 = re.compile(r"^[0-9a-f]{64}$")
+_TOP_LEVEL = {
+    "format", "format_version", "name", "description", "state", "time", "normalization",
+    "update", "levels", "envelope", "validated_horizon", "producer",
+}
+_REQUIRED = {"format", "format_version", "state", "time", "normalization", "update", "levels"}
+
+
+@dataclass(frozen=True)
+class LevelEntry:
+    """One network level: its stride in base steps and the ONNX file that holds it."""
+
+    stride: int
+    file: str
+    sha256: str
+    input: str = "state"
+    output: str = "next"
+
+
+@dataclass(frozen=True)
+class Manifest:
+    """The validated content of `manifest.json`."""
+
+    state_names: tuple[str, ...]
+    state_units: tuple[str, ...]
+    base_step: float
+    mean: tuple[float, ...]
+    scale: tuple[float, ...]
+    levels: tuple[LevelEntry, ...]
+    update: str = "increment"
+    time_unit: str = "s"
+    name: str = ""
+    description: str = ""
+    envelope_min: tuple[float, ...] | None = None
+    envelope_max: tuple[float, ...] | None = None
+    validated_horizon: float | None = None
+    producer: Mapping[str, Any] = field(default_factory=dict)
+
+    @property
+    def state_dim(self) -> int:
+        return len(self.state_names)
+
+    @property
+    def strides(self) -> tuple[int, ...]:
+        """Strides in base steps, finest first."""
+        return tuple(sorted(level.stride for level in self.levels))
+
+    def level(self, stride: int) -> LevelEntry:
+        for entry in self.levels:
+            if entry.stride == stride:
+                return entry
+        raise KeyError(stride)
+
+    def to_dict(self) -> dict[str, Any]:
+        envelope = None
+        if self.envelope_min is not None and self.envelope_max is not None:
+            envelope = {"min": list(self.envelope_min), "max": list(self.envelope_max)}
+        return {
+            "format": FORMAT_NAME,
+            "format_version": FORMAT_VERSION,
+            "name": self.name,
+            "description": self.description,
+            "state": {
+                "dim": self.state_dim,
+                "names": list(self.state_names),
+                "units": list(self.state_units),
+            },
+            "time": {"base_step": self.base_step, "unit": self.time_unit},
+            "normalization": {"mean": list(self.mean), "scale": list(self.scale)},
+            "update": self.update,
+            "levels": [
+                {"stride": lv.stride, "file": lv.file, "sha256": lv.sha256,
+                 "input": lv.input, "output": lv.output}
+                for lv in sorted(self.levels, key=lambda lv: lv.stride)
+            ],
+            "envelope": envelope,
+            "validated_horizon": self.validated_horizon,
+            "producer": dict(self.producer),
+        }
+
+
+def level_file_name(stride: int) -> str:
+    """The conventional relative path of a level's ONNX file."""
+    return f"levels/stride-{stride:05d}.onnx"
+
+
+def parse_manifest_text(text: bytes | str, *, max_bytes: int = 1024 * 1024) -> Manifest:
+    """Parse and validate the bytes of `manifest.json`."""
+    if len(text) > max_bytes:
+        raise BundleError(
+            f"`manifest.json` is {len(text)} bytes; the limit is {max_bytes} bytes."
+        )
+
+    def refuse_constant(name: str) -> float:
+        raise BundleError(f"`manifest.json` contains {name}; only finite numbers are allowed.")
+
+    try:
+        document = json.loads(text, parse_constant=refuse_constant)
+    except RecursionError as error:
+        raise BundleError("`manifest.json` is nested too deeply to be a manifest.") from error
+    except (ValueError, UnicodeDecodeError) as error:
+        if isinstance(error, BundleError):
+            raise
+        raise BundleError(f"`manifest.json` is not valid JSON: {error}.") from error
+    return parse_manifest(document)
+
+
+def parse_manifest(document: Any) -> Manifest:
+    """Validate a decoded manifest document and return a `Manifest`."""
+    if not isinstance(document, dict):
+        raise BundleError(
+            f"the manifest must be a JSON object; got {type(document).__name__}."
+        )
+    unknown = sorted(k for k in document if k not in _TOP_LEVEL and not str(k).startswith("x-"))
+    if unknown:
+        raise BundleError(
+            f"the manifest has unknown fields {unknown}; known fields are {sorted(_TOP_LEVEL)} "
+            "(extensions must start with 'x-')."
+        )
+    missing = sorted(_REQUIRED - document.keys())
+    if missing:
+        raise BundleError(f"the manifest lacks the required fields {missing}.")
+    if document["format"] != FORMAT_NAME:
+        raise BundleError(
+            f"`format` is {document['format']!r}; expected {FORMAT_NAME!r}."
+        )
+    version = document["format_version"]
+    if version != FORMAT_VERSION or isinstance(version, bool):
+        raise BundleError(
+            f"`format_version` is {version!r}; this reader knows version {FORMAT_VERSION} only."
+        )
+
+    state = _object(document["state"], "state", required={"dim", "names"}, optional={"units"})
+    dim = _positive_int(state["dim"], "state.dim")
+    names = _strings(state["names"], "state.names", dim)
+    if len(set(names)) != dim:
+        raise BundleError(f"`state.names` must be distinct; got {list(names)}.")
+    units = _strings(state.get("units", [""] * dim), "state.units", dim)
+
+    time = _object(document["time"], "time", required={"base_step"}, optional={"unit"})
+    base_step = _finite(time["base_step"], "time.base_step")
+    if base_step <= 0:
+        raise BundleError(f"`time.base_step` must be > 0; got {base_step!r}.")
+    time_unit = _string(time.get("unit", "s"), "time.unit")
+
+    normalization = _object(document["normalization"], "normalization", required={"mean", "scale"})
+    mean = _floats(normalization["mean"], "normalization.mean", dim)
+    scale = _floats(normalization["scale"], "normalization.scale", dim)
+    bad_scale = [s for s in scale if s <= 0]
+    if bad_scale:
+        raise BundleError(f"`normalization.scale` must be > 0 everywhere; got {list(scale)}.")
+
+    update = document["update"]
+    if update not in UPDATE_FORMS:
+        raise BundleError(f"`update` is {update!r}; expected one of {list(UPDATE_FORMS)}.")
+
+    levels = _levels(document["levels"])
+
+    envelope_min = envelope_max = None
+    envelope = document.get("envelope")
+    if envelope is not None:
+        envelope = _object(envelope, "envelope", required={"min", "max"})
+        envelope_min = _floats(envelope["min"], "envelope.min", dim)
+        envelope_max = _floats(envelope["max"], "envelope.max", dim)
+        if any(lo > hi for lo, hi in zip(envelope_min, envelope_max, strict=True)):
+            raise BundleError("`envelope.min` must not exceed `envelope.max` in any component.")
+
+    horizon = document.get("validated_horizon")
+    if horizon is not None:
+        horizon = _finite(horizon, "validated_horizon")
+        if horizon < 0:
+            raise BundleError(f"`validated_horizon` must be ≥ 0 or null; got {horizon!r}.")
+
+    producer = document.get("producer", {})
+    if not isinstance(producer, dict):
+        raise BundleError(f"`producer` must be an object; got {type(producer).__name__}.")
+
+    return Manifest(
+        name=_string(document.get("name", ""), "name"),
+        description=_string(document.get("description", ""), "description"),
+        state_names=names,
+        state_units=units,
+        base_step=base_step,
+        time_unit=time_unit,
+        mean=mean,
+        scale=scale,
+        update=update,
+        levels=levels,
+        envelope_min=envelope_min,
+        envelope_max=envelope_max,
+        validated_horizon=horizon,
+        producer=producer,
+    )
+
+
+def _levels(value: Any) -> tuple[LevelEntry, ...]:
+    if not isinstance(value, list) or not value:
+        raise BundleError("`levels` must be a non-empty list of level objects.")
+    entries = []
+    for index, item in enumerate(value):
+        where = f"levels[{index}]"
+        item = _object(item, where, required={"stride", "file", "sha256"},
+                       optional={"input", "output"})
+        stride = _positive_int(item["stride"], f"{where}.stride")
+        file = _string(item["file"], f"{where}.file")
+        digest = _string(item["sha256"], f"{where}.sha256")
+        if not _SHA256.match(digest):
+            raise BundleError(
+                f"`{where}.sha256` must be 64 lowercase hexadecimal digits; got {digest!r}."
+            )
+        entries.append(LevelEntry(
+            stride=stride, file=file, sha256=digest,
+            input=_string(item.get("input", "state"), f"{where}.input"),
+            output=_string(item.get("output", "next"), f"{where}.output"),
+        ))
+    strides = [entry.stride for entry in entries]
+    if len(set(strides)) != len(strides):
+        raise BundleError(f"`levels` strides must be distinct; got {strides}.")
+    files = [entry.file for entry in entries]
+    if len(set(files)) != len(files):
+        raise BundleError(f"`levels` files must be distinct; got {files}.")
+    return tuple(sorted(entries, key=lambda entry: entry.stride))
+
+
+def _object(value: Any, where: str, *, required: set[str], optional: set[str] = frozenset()
+            ) -> dict[str, Any]:
+    if not isinstance(value, dict):
+        raise BundleError(f"`{where}` must be an object; got {type(value).__name__}.")
+    unknown = sorted(set(value) - required - optional)
+    if unknown:
+        raise BundleError(
+            f"`{where}` has unknown fields {unknown}; expected {sorted(required | optional)}."
+        )
+    missing = sorted(required - set(value))
+    if missing:
+        raise BundleError(f"`{where}` lacks the fields {missing}.")
+    return value
+
+
+def _string(value: Any, where: str) -> str:
+    if not isinstance(value, str):
+        raise BundleError(f"`{where}` must be a string; got {value!r}.")
+    return value
+
+
+def _strings(value: Any, where: str, dim: int) -> tuple[str, ...]:
+    if not isinstance(value, list) or len(value) != dim:
+        raise BundleError(f"`{where}` must be a list of {dim} strings; got {value!r}.")
+    return tuple(_string(item, f"{where}[{i}]") for i, item in enumerate(value))
+
+
+def _finite(value: Any, where: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        raise BundleError(f"`{where}` must be a finite number; got {value!r}.")
+    return float(value)
+
+
+def _floats(value: Any, where: str, dim: int) -> tuple[float, ...]:
+    if not isinstance(value, list) or len(value) != dim:
+        raise BundleError(f"`{where}` must be a list of {dim} finite numbers; got {value!r}.")
+    return tuple(_finite(item, f"{where}[{i}]") for i, item in enumerate(value))
+
+
+def _positive_int(value: Any, where: str) -> int:
+    if isinstance(value, bool) or not isinstance(value, int) or value <= 0:
+        raise BundleError(f"`{where}` must be a positive integer; got {value!r}.")
+    return value
+
+
+def check_dimension(values: Sequence[float] | None, dim: int, where: str) -> None:
+    """Raise `BundleError` unless `values` is None or has `dim` entries."""
+    if values is not None and len(values) != dim:
+        raise BundleError(f"`{where}` has {len(values)} entries; the state has {dim}.")

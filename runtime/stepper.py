@@ -1,0 +1,453 @@
+"""`Stepper`: the loaded bundle, answering `advance`, `forecast` and `plan`.
+
+A stepper is immutable after loading and safe to call from many threads: kernels keep their
+scratch buffers per thread and planners guard their lazily built tables with locks.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import NonFiniteError, StateError, TimeError
+from .integrate import integrate
+from .interpolate import interpolate_states
+from .limits import DEFAULT_LIMITS, Limits
+from .manifest import Manifest
+from .plan import Plan
+from .planner import StridePlanner
+from .waves import build_schedule, run_schedule
+
+OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
+VectorField = Callable[[np.ndarray], np.ndarray]
+Kernel = Callable[[np.ndarray], np.ndarray]
+
+
+@dataclass(frozen=True)
+class _Resolution:
+    """How one requested time is answered: which grid anchors, and what to do with them."""
+
+    t: float
+    method: str
+    anchors: tuple[int, ...]
+    remainder: float = 0.0
+    hybrid_below: int | None = None
+
+
+@dataclass(frozen=True)
+class ForecastInfo:
+    """What a forecast cost: network evaluations (tree nodes), waves and sequential depth."""
+
+    evaluations: int
+    network_calls: int
+    depth: int
+    integrator_evaluations: int
+    methods: tuple[str, ...]
+
+
+class Stepper:
+    """A loaded bundle: one kernel per stride plus the planner over those strides.
+
+    Use `stridecast.runtime.load` to build one.
+    """
+
+    def __init__(self, manifest: Manifest, kernels: Mapping[int, Kernel], *,
+                 dtype: np.dtype | str = "float32", limits: Limits = DEFAULT_LIMITS,
+                 source: str = ""):
+        self._manifest = manifest
+        self._kernels = dict(kernels)
+        self._dtype = np.dtype(dtype)
+        self._limits = limits
+        self._source = source
+        self._planner = StridePlanner(self._kernels, max_steps=limits.max_steps_per_query)
+        self._hybrid_planners: dict[int, StridePlanner] = {}
+        self._lock = threading.Lock()
+        lower = manifest.envelope_min
+        self._envelope = None if lower is None else (
+            np.asarray(lower, dtype=np.float64), np.asarray(manifest.envelope_max, np.float64))
+
+    # ----------------------------------------------------------------- descriptive attributes
+    @property
+    def manifest(self) -> Manifest:
+        return self._manifest
+
+    @property
+    def base_step(self) -> float:
+        return self._manifest.base_step
+
+    @property
+    def strides(self) -> tuple[int, ...]:
+        """Strides in base steps, finest first."""
+        return tuple(sorted(self._kernels))
+
+    @property
+    def state_dim(self) -> int:
+        return self._manifest.state_dim
+
+    @property
+    def state_names(self) -> tuple[str, ...]:
+        return self._manifest.state_names
+
+    @property
+    def state_units(self) -> tuple[str, ...]:
+        return self._manifest.state_units
+
+    @property
+    def dtype(self) -> np.dtype:
+        return self._dtype
+
+    @property
+    def limits(self) -> Limits:
+        return self._limits
+
+    @property
+    def kernel_paths(self) -> dict[int, str]:
+        """Which execution path each level uses ("affine-chain" or "interpreter")."""
+        return {stride: getattr(kernel, "path", "custom")
+                for stride, kernel in sorted(self._kernels.items())}
+
+    def __repr__(self) -> str:
+        return (f"Stepper(name={self._manifest.name!r}, state_dim={self.state_dim}, "
+                f"base_step={self.base_step}, strides={self.strides}, dtype={self._dtype})")
+
+    # ----------------------------------------------------------------------------- public API
+    def plan(self, t: float, *, off_grid: str = "interpolate",
+             vector_field: VectorField | None = None, hybrid_below: int | None = None) -> Plan:
+        """Describe how `advance` reaches time `t`, without running a network."""
+        resolution = self._resolve(t, off_grid, vector_field, hybrid_below)
+        return self._describe(resolution, integrator_evaluations=0)
+
+    def step(self, state: np.ndarray, stride: int) -> np.ndarray:
+        """Apply the network of one level once (one stride) to `state`."""
+        states, single = self._check_state(state)
+        if stride not in self._kernels:
+            raise TimeError(f"`stride` is {stride!r}; this bundle has strides {self.strides}.")
+        result = self._apply(stride, states, depth=0)
+        return result[0] if single else result
+
+    def advance(self, state: np.ndarray, t: float, *, off_grid: str = "interpolate",
+                vector_field: VectorField | None = None, hybrid_below: int | None = None
+                ) -> np.ndarray:
+        """Forecast the state at time `t` (in the bundle's time unit) from time 0.
+
+        Parameters
+        ----------
+        state : array_like, shape (d,) or (B, d)
+            Initial state(s) in physical units.
+        t : float
+            Time to reach, ≥ 0.
+        off_grid : {"interpolate", "nearest", "error"}
+            What to do when `t` is not a reachable grid time and no `vector_field` is given.
+        vector_field : callable, optional
+            ``f(states (B, d)) -> derivatives (B, d)`` of the autonomous system; off-grid
+            remainders are then integrated with Runge–Kutta from the last grid state.
+        hybrid_below : int, optional
+            With `vector_field`, levels with a stride below this are not used; the integrator
+            covers what the coarser levels leave.
+
+        Returns
+        -------
+        ndarray, same shape as `state`
+        """
+        return self.advance_with_plan(state, t, off_grid=off_grid, vector_field=vector_field,
+                                      hybrid_below=hybrid_below)[0]
+
+    def advance_with_plan(self, state: np.ndarray, t: float, *, off_grid: str = "interpolate",
+                          vector_field: VectorField | None = None,
+                          hybrid_below: int | None = None) -> tuple[np.ndarray, Plan]:
+        """`advance`, also returning the `Plan` that says how the answer was produced."""
+        states, single = self._check_state(state)
+        resolution = self._resolve(t, off_grid, vector_field, hybrid_below)
+        planner = self._planner_for(resolution)
+        if len(resolution.anchors) == 1:
+            anchor_states = self._run_sequential(states, planner.steps(resolution.anchors[0]))
+            anchor_states = anchor_states[None]
+            evaluations = planner.step_count(resolution.anchors[0])
+        else:
+            schedule = self._schedule(planner, resolution.anchors)
+            anchor_states = self._run_schedule(schedule, states)
+            evaluations = schedule.evaluations
+        result, rk_evaluations = self._finish(resolution, resolution.anchors, anchor_states,
+                                              vector_field)
+        plan = self._describe(resolution, integrator_evaluations=rk_evaluations,
+                              evaluations=evaluations)
+        return (result[0] if single else result), plan
+
+    def forecast(self, state: np.ndarray, times: Sequence[float], *,
+                 off_grid: str = "interpolate", vector_field: VectorField | None = None,
+                 hybrid_below: int | None = None) -> np.ndarray:
+        """Forecast the state at many times at once, sharing coarse steps between them.
+
+        Times may come in any order and repeat; each distinct time is computed once and the
+        result follows the order given. Returns shape ``(len(times), *state.shape)``.
+        """
+        return self.forecast_with_info(state, times, off_grid=off_grid,
+                                       vector_field=vector_field, hybrid_below=hybrid_below)[0]
+
+    def forecast_with_info(self, state: np.ndarray, times: Sequence[float], *,
+                           off_grid: str = "interpolate", vector_field: VectorField | None = None,
+                           hybrid_below: int | None = None) -> tuple[np.ndarray, ForecastInfo]:
+        """`forecast`, also returning what it cost."""
+        states, single = self._check_state(state)
+        requested = self._check_times(times)
+        distinct, inverse = np.unique(requested, return_inverse=True)
+        resolutions = [self._resolve(float(t), off_grid, vector_field, hybrid_below)
+                       for t in distinct]
+        anchors = sorted({a for r in resolutions for a in r.anchors})
+        planner = self._planner_for(resolutions[0]) if resolutions else self._planner
+        schedule = self._schedule(planner, anchors)
+        anchor_states = self._run_schedule(schedule, states)
+        position = {anchor: index for index, anchor in enumerate(anchors)}
+        results = np.empty((len(distinct), *states.shape), dtype=self._dtype)
+        rk_total = 0
+        for index, resolution in enumerate(resolutions):
+            rows = anchor_states[[position[a] for a in resolution.anchors]]
+            results[index], rk = self._finish(resolution, resolution.anchors, rows, vector_field)
+            rk_total += rk
+        output = results[inverse.reshape(-1)]
+        if single:
+            output = output[:, 0, :]
+        info = ForecastInfo(
+            evaluations=schedule.evaluations,
+            network_calls=sum(len(wave) for wave in schedule.waves),
+            depth=schedule.depth,
+            integrator_evaluations=rk_total,
+            methods=tuple(sorted({r.method for r in resolutions})),
+        )
+        return output, info
+
+    def outside_envelope(self, state: np.ndarray) -> np.ndarray:
+        """Per state, whether any component lies outside the training envelope."""
+        states, single = self._check_state(state)
+        if self._envelope is None:
+            flags = np.zeros(states.shape[0], dtype=bool)
+        else:
+            lower, upper = self._envelope
+            flags = ((states < lower) | (states > upper)).any(axis=1)
+        return flags[0] if single else flags
+
+    # ------------------------------------------------------------------------------ internals
+    def _check_state(self, state: np.ndarray) -> tuple[np.ndarray, bool]:
+        try:
+            array = np.asarray(state)
+        except (ValueError, TypeError) as error:
+            raise StateError(f"`state` is not a numeric array: {error}.") from error
+        if array.dtype.kind not in "fiu" or array.dtype == np.bool_:
+            raise StateError(
+                f"`state` has dtype {array.dtype}; expected real numbers (float or integer)."
+            )
+        dim = self.state_dim
+        if array.ndim == 1:
+            single, array = True, array[None, :]
+        elif array.ndim == 2:
+            single = False
+        else:
+            raise StateError(
+                f"`state` has shape {array.shape}; expected ({dim},) or (batch, {dim})."
+            )
+        if array.shape[1] != dim:
+            raise StateError(
+                f"`state` has shape {np.shape(state)}; this bundle's state has {dim} components "
+                f"{list(self.state_names)}, so expected ({dim},) or (batch, {dim})."
+            )
+        if array.shape[0] == 0:
+            raise StateError("`state` is an empty batch; expected at least one state.")
+        if array.shape[0] > self._limits.max_batch:
+            raise StateError(
+                f"`state` holds {array.shape[0]} states; the limit is {self._limits.max_batch}."
+            )
+        with np.errstate(over="ignore"):
+            array = np.ascontiguousarray(array, dtype=self._dtype)
+        if not np.isfinite(array).all():
+            bad = int(np.argwhere(~np.isfinite(array))[0][0])
+            raise StateError(
+                f"`state` row {bad} holds a non-finite value (or one too large for "
+                f"{self._dtype}); expected finite numbers."
+            )
+        return array, single
+
+    def _check_times(self, times: Sequence[float]) -> np.ndarray:
+        try:
+            array = np.asarray(times, dtype=np.float64)
+        except (ValueError, TypeError) as error:
+            raise TimeError(f"`times` must be a list of numbers: {error}.") from error
+        if array.ndim != 1 or array.size == 0:
+            raise TimeError(
+                f"`times` has shape {array.shape}; expected a non-empty 1-D list of times."
+            )
+        if array.size > self._limits.max_forecast_points:
+            raise TimeError(
+                f"`times` holds {array.size} times; the limit is "
+                f"{self._limits.max_forecast_points} per forecast."
+            )
+        for t in array[~np.isfinite(array) | (array < 0)][:1]:
+            raise TimeError(f"`times` contains {float(t)!r}; expected finite times ≥ 0.")
+        return array
+
+    def _check_time(self, t: float) -> float:
+        if isinstance(t, bool) or not isinstance(t, int | float | np.integer | np.floating):
+            raise TimeError(f"`t` is {t!r}; expected a finite number of "
+                            f"{self._manifest.time_unit or 'time units'} ≥ 0.")
+        value = float(t)
+        if not math.isfinite(value) or value < 0:
+            raise TimeError(f"`t` is {value!r}; expected a finite time ≥ 0.")
+        return value
+
+    def _resolve(self, t: float, off_grid: str, vector_field: VectorField | None,
+                 hybrid_below: int | None) -> _Resolution:
+        t = self._check_time(t)
+        if off_grid not in OFF_GRID_POLICIES:
+            raise TimeError(
+                f"`off_grid` is {off_grid!r}; expected one of {list(OFF_GRID_POLICIES)}."
+            )
+        if vector_field is not None and not callable(vector_field):
+            raise TimeError("`vector_field` must be a callable f(states) -> derivatives.")
+        position = t / self.base_step
+        if position > 2.0**52:
+            raise TimeError(f"`t` is {t!r}, more than 2**52 base steps; refused.")
+        nearest = round(position)
+        on_grid = abs(position - nearest) <= max(1e-9, 1e-12 * position)
+        if hybrid_below is not None:
+            return self._resolve_hybrid(t, position, nearest if on_grid else None,
+                                        vector_field, hybrid_below)
+        planner = self._planner
+        if on_grid and planner.is_reachable(nearest):
+            return _Resolution(t, "grid", (nearest,))
+        floor = nearest if on_grid else math.floor(position)
+        below = planner.floor_reachable(floor)
+        above = planner.nearest_reachable(floor if on_grid else floor + 1)[1]
+        if vector_field is not None:
+            return _Resolution(t, "integrate", (below,), remainder=t - below * self.base_step)
+        if off_grid == "error":
+            raise TimeError(
+                f"`t` = {t!r} is not a reachable grid time (base step {self.base_step} "
+                f"{self._manifest.time_unit}, strides {list(self.strides)}); the nearest reachable "
+                f"times are {below * self.base_step!r} and {above * self.base_step!r}. Use "
+                "off_grid='interpolate' or 'nearest', or pass a vector_field."
+            )
+        if off_grid == "nearest":
+            choice = below if position - below <= above - position else above
+            return _Resolution(t, "nearest", (choice,), remainder=t - choice * self.base_step)
+        return _Resolution(t, "interpolate", self._interpolation_anchors(below, above),
+                           remainder=t - below * self.base_step)
+
+    def _interpolation_anchors(self, below: int, above: int) -> tuple[int, ...]:
+        planner = self._planner
+        lower = [below]
+        if below > 0:
+            second = planner.floor_reachable(below - 1)
+            if second is not None:
+                lower.append(second)
+        upper = [above]
+        while len(lower) + len(upper) < 4:
+            upper.append(planner.nearest_reachable(upper[-1] + 1)[1])
+        return tuple(sorted(lower + upper))
+
+    def _resolve_hybrid(self, t: float, position: float, grid: int | None,
+                        vector_field: VectorField | None, hybrid_below: int) -> _Resolution:
+        if vector_field is None:
+            raise TimeError("`hybrid_below` needs a `vector_field` to replace the finest levels.")
+        planner = self._hybrid_planner(hybrid_below)
+        floor = grid if grid is not None else math.floor(position)
+        anchor = planner.floor_reachable(floor)
+        return _Resolution(t, "hybrid", (anchor,), remainder=t - anchor * self.base_step,
+                           hybrid_below=hybrid_below)
+
+    def _hybrid_planner(self, hybrid_below: int) -> StridePlanner:
+        if isinstance(hybrid_below, bool) or not isinstance(hybrid_below, int | np.integer):
+            raise TimeError(f"`hybrid_below` is {hybrid_below!r}; expected a stride (integer).")
+        kept = tuple(s for s in self.strides if s >= hybrid_below)
+        if not kept:
+            raise TimeError(
+                f"`hybrid_below` = {hybrid_below} leaves no level (strides {list(self.strides)})."
+            )
+        with self._lock:
+            planner = self._hybrid_planners.get(kept[0])
+            if planner is None:
+                planner = StridePlanner(kept, max_steps=self._limits.max_steps_per_query)
+                self._hybrid_planners[kept[0]] = planner
+        return planner
+
+    def _planner_for(self, resolution: _Resolution) -> StridePlanner:
+        if resolution.hybrid_below is not None:
+            return self._hybrid_planner(resolution.hybrid_below)
+        return self._planner
+
+    def _schedule(self, planner: StridePlanner, anchors: Sequence[int]):
+        schedule = build_schedule(list(anchors), planner)
+        if schedule.evaluations > self._limits.max_steps_per_query:
+            raise TimeError(
+                f"the forecast needs {schedule.evaluations} network evaluations; the limit is "
+                f"{self._limits.max_steps_per_query} per query."
+            )
+        return schedule
+
+    def _apply(self, stride: int, states: np.ndarray, *, depth: int) -> np.ndarray:
+        result = self._kernels[stride](states)
+        if result.shape != states.shape:
+            raise StateError(
+                f"the level with stride {stride} returned shape {result.shape} for input "
+                f"{states.shape}; expected the same shape."
+            )
+        if not np.isfinite(result).all():
+            raise NonFiniteError(
+                f"the level with stride {stride} produced non-finite values at step "
+                f"{depth + 1} of the plan; the forecast is stopped (the state may have left the "
+                "region the network was trained on)."
+            )
+        return result
+
+    def _run_sequential(self, states: np.ndarray, steps: tuple[tuple[int, int], ...]
+                        ) -> np.ndarray:
+        depth = 0
+        for stride, count in steps:
+            for _ in range(count):
+                states = self._apply(stride, states, depth=depth)
+                depth += 1
+        return states
+
+    def _run_schedule(self, schedule, states: np.ndarray) -> np.ndarray:
+        return run_schedule(schedule, states,
+                            lambda stride, batch, depth: self._apply(stride, batch, depth=depth))
+
+    def _finish(self, resolution: _Resolution, anchors: Sequence[int], anchor_states: np.ndarray,
+                vector_field: VectorField | None) -> tuple[np.ndarray, int]:
+        """Turn the grid states of the anchors into the answer at `resolution.t`."""
+        if resolution.method == "interpolate":
+            nodes = np.asarray(anchors, dtype=np.float64) * self.base_step
+            value = interpolate_states(nodes, anchor_states.astype(np.float64), resolution.t)
+            return value.astype(self._dtype), 0
+        state = anchor_states[0]
+        if resolution.method in ("integrate", "hybrid") and resolution.remainder > 0:
+            final, evaluations = integrate(vector_field, state.astype(np.float64),
+                                           resolution.remainder)
+            final = np.asarray(final)
+            if not np.isfinite(final).all():
+                raise NonFiniteError("the Runge–Kutta finish produced non-finite values.")
+            return final.astype(self._dtype), int(evaluations)
+        return state.copy(), 0
+
+    def _describe(self, resolution: _Resolution, *, integrator_evaluations: int,
+                  evaluations: int | None = None) -> Plan:
+        planner = self._planner_for(resolution)
+        anchor = resolution.anchors[0] if resolution.method != "interpolate" else max(
+            a for a in resolution.anchors if a * self.base_step <= resolution.t + 1e-12)
+        if evaluations is None:
+            if len(resolution.anchors) == 1:
+                evaluations = planner.step_count(resolution.anchors[0])
+            else:
+                evaluations = build_schedule(list(resolution.anchors), planner).evaluations
+        return Plan(
+            t=resolution.t,
+            base_steps=anchor,
+            steps=planner.steps(anchor),
+            evaluations=evaluations,
+            remainder=resolution.t - anchor * self.base_step,
+            method=resolution.method,
+            integrator_evaluations=integrator_evaluations,
+            anchors=resolution.anchors,
+        )

@@ -1,0 +1,221 @@
+"""Validation of decoded request documents into arrays and frozen query records.
+
+All request checks of the service live here. Every failure is an `ApiError` 422 whose message
+names the field, the value received and what was expected.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from .codec import LITTLE_ENDIAN_DTYPES
+from .errors import ApiError
+
+OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
+
+
+@dataclass(frozen=True)
+class AdvanceQuery:
+    """A validated `advance` request."""
+
+    state: np.ndarray
+    t: float
+    off_grid: str
+
+
+@dataclass(frozen=True)
+class ForecastQuery:
+    """A validated `forecast` request."""
+
+    state: np.ndarray
+    times: tuple[float, ...]
+    off_grid: str
+
+
+@dataclass(frozen=True)
+class StateRules:
+    """What a state array must look like for one model under the current settings."""
+
+    dim: int
+    dtype: np.dtype
+    max_batch: int
+
+
+def invalid(message: str) -> ApiError:
+    return ApiError(422, message)
+
+
+def fields(document: Any, where: str, *, required: set[str], optional: set[str] = frozenset()
+           ) -> Mapping[str, Any]:
+    """Check that `document` is an object with the required fields and no unknown ones."""
+    if not isinstance(document, dict):
+        raise invalid(f"{where} must be an object; got {_kind(document)}.")
+    unknown = sorted(str(key) for key in document if key not in required | optional)
+    if unknown:
+        raise invalid(f"{where} has unknown fields {unknown}; expected "
+                      f"{sorted(required | optional)}.")
+    missing = sorted(required - document.keys())
+    if missing:
+        raise invalid(f"{where} lacks the required fields {missing}.")
+    return document
+
+
+def _kind(value: Any) -> str:
+    if isinstance(value, bool):
+        return f"the boolean {str(value).lower()}"
+    if isinstance(value, str):
+        return f"the string {value[:40]!r}"
+    if value is None:
+        return "null"
+    if isinstance(value, list):
+        return f"a list of {len(value)} items"
+    if isinstance(value, dict):
+        return "an object"
+    if isinstance(value, bytes):
+        return f"{len(value)} raw bytes"
+    return repr(value)
+
+
+def to_array(value: Any, where: str) -> np.ndarray:
+    """Turn nested lists of numbers, or a typed array map, into a finite float array.
+
+    Parameters
+    ----------
+    value : list or dict
+        Nested lists of numbers (any depth, rectangular), or the MessagePack typed form
+        ``{"dtype": "<f4" | "<f8", "shape": [...], "data": <bytes>}``.
+    where : str
+        The field name, for messages.
+    """
+    if isinstance(value, dict):
+        array = _typed_array(value, where)
+    elif isinstance(value, list):
+        array = _nested_array(value, where)
+    else:
+        raise invalid(f"`{where}` must be an array of numbers; got {_kind(value)}.")
+    if not np.isfinite(array).all():
+        index = tuple(int(i) for i in np.argwhere(~np.isfinite(array))[0])
+        raise invalid(f"`{where}` holds {float(array[index])!r} at index {list(index)}; expected "
+                      "finite numbers.")
+    return array
+
+
+def _typed_array(value: dict, where: str) -> np.ndarray:
+    spec = fields(value, f"`{where}`", required={"dtype", "shape", "data"})
+    dtype = LITTLE_ENDIAN_DTYPES.get(spec["dtype"]) if isinstance(spec["dtype"], str) else None
+    if dtype is None:
+        raise invalid(f"`{where}.dtype` is {_kind(spec['dtype'])}; expected '<f4' or '<f8'.")
+    shape = spec["shape"]
+    if (not isinstance(shape, list) or len(shape) > 8
+            or any(isinstance(n, bool) or not isinstance(n, int) or n < 0 for n in shape)):
+        raise invalid(f"`{where}.shape` is {shape!r}; expected a list of at most 8 "
+                      "non-negative integers.")
+    data = spec["data"]
+    if not isinstance(data, bytes):
+        raise invalid(f"`{where}.data` is {_kind(data)}; expected MessagePack bin bytes.")
+    expected = math.prod(shape) * dtype.itemsize
+    if len(data) != expected:
+        raise invalid(f"`{where}.data` holds {len(data)} bytes; shape {shape} of {spec['dtype']} "
+                      f"needs {expected} bytes.")
+    return np.frombuffer(data, dtype=dtype).reshape(shape)
+
+
+def _nested_array(value: list, where: str) -> np.ndarray:
+    shape: list[int] = []
+    level: list[Any] = [value]
+    while level and isinstance(level[0], list):
+        length = len(level[0])
+        for item in level:
+            if not isinstance(item, list) or len(item) != length:
+                raise invalid(f"`{where}` is ragged: at depth {len(shape)} expected lists of "
+                              f"{length} items, got {_kind(item)}.")
+        shape.append(length)
+        level = [item for sub in level for item in sub]
+    for item in level:
+        if isinstance(item, bool) or not isinstance(item, int | float):
+            raise invalid(f"`{where}` contains {_kind(item)}; expected numbers only.")
+    try:
+        return np.array(level, dtype=np.float64).reshape(shape)
+    except OverflowError as error:
+        raise invalid(f"`{where}` contains an integer too large for a float.") from error
+
+
+def state_array(value: Any, rules: StateRules, where: str = "state") -> np.ndarray:
+    """A state `(d,)` or batch `(B, d)`, cast to the model's dtype; B ≤ `rules.max_batch`."""
+    array = to_array(value, where)
+    dim = rules.dim
+    expected = f"({dim},) or (batch, {dim})"
+    if array.size == 0:
+        raise invalid(f"`{where}` is empty (shape {list(array.shape)}); expected {expected}.")
+    if array.ndim not in (1, 2) or array.shape[-1] != dim:
+        raise invalid(f"`{where}` has shape {list(array.shape)}; this model's state has {dim} "
+                      f"components, so expected {expected}.")
+    if array.ndim == 2 and array.shape[0] > rules.max_batch:
+        raise invalid(f"`{where}` holds a batch of {array.shape[0]} states; the limit is "
+                      f"{rules.max_batch}.")
+    with np.errstate(over="ignore"):
+        cast = np.ascontiguousarray(array, dtype=rules.dtype)
+    if not np.isfinite(cast).all():
+        raise invalid(f"`{where}` holds values too large for {rules.dtype.name}.")
+    return cast
+
+
+def time_value(value: Any, where: str = "t") -> float:
+    """A finite time ≥ 0."""
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise invalid(f"`{where}` is {_kind(value)}; expected a finite number ≥ 0.")
+    try:
+        number = float(value)
+    except OverflowError as error:
+        raise invalid(f"`{where}` is an integer too large for a float.") from error
+    if not math.isfinite(number) or number < 0:
+        raise invalid(f"`{where}` is {number!r}; expected a finite number ≥ 0.")
+    return number
+
+
+def times_array(value: Any, *, max_points: int, where: str = "times") -> np.ndarray:
+    """A non-empty 1-D array of times ≥ 0 with at most `max_points` entries."""
+    array = to_array(value, where)
+    if array.ndim != 1 or array.size == 0:
+        raise invalid(f"`{where}` has shape {list(array.shape)}; expected a non-empty list of "
+                      "times.")
+    if array.size > max_points:
+        raise invalid(f"`{where}` holds {array.size} times; the limit is {max_points} per "
+                      "request.")
+    negative = array[array < 0]
+    if negative.size:
+        raise invalid(f"`{where}` contains {float(negative[0])!r}; expected times ≥ 0.")
+    return array.astype(np.float64)
+
+
+def off_grid_value(value: Any, where: str = "off_grid") -> str:
+    if value not in OFF_GRID_POLICIES or not isinstance(value, str):
+        raise invalid(f"`{where}` is {_kind(value)}; expected one of {list(OFF_GRID_POLICIES)}.")
+    return value
+
+
+def parse_advance(document: Any, rules: StateRules) -> AdvanceQuery:
+    """Validate ``{"state": ..., "t": ..., "off_grid": ...}``."""
+    body = fields(document, "the request body", required={"state", "t"}, optional={"off_grid"})
+    return AdvanceQuery(
+        state=state_array(body["state"], rules),
+        t=time_value(body["t"]),
+        off_grid=off_grid_value(body.get("off_grid", "interpolate")),
+    )
+
+
+def parse_forecast(document: Any, rules: StateRules, *, max_points: int) -> ForecastQuery:
+    """Validate ``{"state": ..., "times": [...], "off_grid": ...}``."""
+    body = fields(document, "the request body", required={"state", "times"},
+                  optional={"off_grid"})
+    times = times_array(body["times"], max_points=max_points)
+    return ForecastQuery(
+        state=state_array(body["state"], rules),
+        times=tuple(float(t) for t in times),
+        off_grid=off_grid_value(body.get("off_grid", "interpolate")),
+    )

@@ -1,0 +1,189 @@
+"""Handlers of `inspect`, `advance` and `forecast`: runtime only (NumPy)."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from stridecast.runtime import BundleError, StateError, Stepper, TimeError, load
+
+DEMO_BUNDLE = Path(__file__).parent / "data" / "crane-demo.bundle"
+
+
+def bundle_path(arguments: argparse.Namespace) -> Path:
+    if getattr(arguments, "demo", False):
+        if arguments.bundle:
+            raise BundleError("give either a bundle path or --demo, not both.")
+        if not (DEMO_BUNDLE / "manifest.json").is_file():
+            raise BundleError(f"the shipped demo bundle is missing at {DEMO_BUNDLE}.")
+        return DEMO_BUNDLE
+    if not arguments.bundle:
+        raise BundleError("a bundle path is required (or --demo for the shipped one).")
+    return Path(arguments.bundle)
+
+
+def inspect_command(arguments: argparse.Namespace) -> int:
+    from stridecast.runtime.describe import describe_bundle
+
+    description = describe_bundle(bundle_path(arguments))
+    if arguments.json:
+        print(json.dumps(description, indent=2))
+        return 0
+    manifest = description["manifest"]
+    unit = manifest["time"]["unit"]
+    base = manifest["time"]["base_step"]
+    state = manifest["state"]
+    print(f"bundle      {description['path']}")
+    print(f"name        {manifest['name'] or '-'}  {manifest['description']}")
+    names = [f"{n} [{u}]" if u else n for n, u in zip(state["names"], state["units"], strict=True)]
+    print(f"state       {state['dim']} components: {', '.join(names)}")
+    print(f"base step   {base:g} {unit}    update: {manifest['update']}")
+    print("levels")
+    print(f"  {'stride':>7} {'time':>12}  {'params':>8}  {'opset':>5}  checksum  operators")
+    for level in description["levels"]:
+        operators = ", ".join(f"{op}×{count}" for op, count in level["operators"].items())
+        print(f"  {level['stride']:>7} {level['stride_time']:>10g} {unit:<2} "
+              f"{level['parameters']:>8}  {level['opset']:>5}  {level['checksum']:<8}  {operators}")
+    envelope = manifest.get("envelope")
+    if envelope:
+        print("envelope")
+        for name, low, high in zip(state["names"], envelope["min"], envelope["max"], strict=True):
+            print(f"  {name:<12} [{low:.6g}, {high:.6g}]")
+    else:
+        print("envelope    not recorded")
+    horizon = manifest.get("validated_horizon")
+    print(f"validated   {'not recorded' if horizon is None else f'{horizon:g} {unit}'}")
+    report = description.get("report")
+    if report:
+        print("report")
+        for key, value in report.items():
+            text = json.dumps(value)
+            print(f"  {key}: {text if len(text) < 200 else text[:197] + '...'}")
+    return 0
+
+
+def _read_states(arguments: argparse.Namespace) -> np.ndarray:
+    if arguments.state_file:
+        try:
+            array = np.load(arguments.state_file, allow_pickle=False)
+        except (OSError, ValueError) as error:
+            raise StateError(f"`--state-file` {arguments.state_file!r} could not be read as "
+                             f".npy: {error}.") from error
+        return array
+    rows = []
+    for text in arguments.state:
+        try:
+            rows.append([float(part) for part in text.split(",")])
+        except ValueError as error:
+            raise StateError(f"`--state` {text!r} is not a comma-separated list of numbers.") \
+                from error
+    if len({len(row) for row in rows}) != 1:
+        raise StateError("every `--state` must have the same number of components.")
+    return np.asarray(rows[0] if len(rows) == 1 else rows, dtype=np.float64)
+
+
+def _warnings(stepper: Stepper, states: np.ndarray, last_time: float) -> list[str]:
+    messages = []
+    if np.any(stepper.outside_envelope(states)):
+        messages.append("the initial state lies outside the training envelope; the forecast "
+                        "is an extrapolation.")
+    horizon = stepper.manifest.validated_horizon
+    if horizon is not None and last_time > horizon:
+        messages.append(f"t = {last_time:g} is beyond the validated horizon "
+                        f"({horizon:g} {stepper.manifest.time_unit}).")
+    return messages
+
+
+def _print_caution(warnings: list[str]) -> None:
+    from stridecast.cli import CAUTION
+
+    for message in warnings:
+        print(f"warning: {message}", file=sys.stderr)
+    print(CAUTION, file=sys.stderr)
+
+
+def advance_command(arguments: argparse.Namespace) -> int:
+    stepper = load(bundle_path(arguments), dtype=arguments.dtype)
+    states = _read_states(arguments)
+    result, plan = stepper.advance_with_plan(states, arguments.t, off_grid=arguments.off_grid)
+    warnings = _warnings(stepper, states, arguments.t)
+    if arguments.json:
+        print(json.dumps({"t": arguments.t, "state": result.tolist(),
+                          "state_names": list(stepper.state_names), "plan": plan.to_dict(),
+                          "warnings": warnings}))
+    else:
+        steps = " + ".join(f"{count}×{stride}" for stride, count in plan.steps) or "none"
+        print(f"t = {arguments.t:g} {stepper.manifest.time_unit}  (method {plan.method}; "
+              f"steps {steps}; {plan.evaluations} network evaluations)")
+        rows = result.reshape(-1, stepper.state_dim)
+        print("  ".join(f"{name:>14}" for name in stepper.state_names))
+        for row in rows:
+            print("  ".join(f"{value:>14.7g}" for value in row))
+    _print_caution(warnings)
+    return 0
+
+
+def _times(arguments: argparse.Namespace) -> np.ndarray:
+    if arguments.times:
+        try:
+            return np.asarray([float(part) for part in arguments.times.split(",")])
+        except ValueError as error:
+            raise TimeError(f"`--times` {arguments.times!r} is not a comma-separated list of "
+                            "numbers.") from error
+    if arguments.every is None or not arguments.every > 0:
+        raise TimeError("`--until` needs `--every` with a positive spacing.")
+    count = int(np.floor(arguments.until / arguments.every + 1e-9)) + 1
+    if count < 1:
+        raise TimeError(f"`--until` is {arguments.until!r}; expected a time ≥ 0.")
+    return np.arange(count) * arguments.every
+
+
+def forecast_command(arguments: argparse.Namespace) -> int:
+    stepper = load(bundle_path(arguments), dtype=arguments.dtype)
+    states = _read_states(arguments)
+    if states.ndim != 1:
+        raise StateError("`forecast` on the command line takes one initial state.")
+    times = _times(arguments)
+    result, info = stepper.forecast_with_info(states, times, off_grid=arguments.off_grid)
+    warnings = _warnings(stepper, states, float(times.max()))
+    if arguments.out:
+        _write_table(Path(arguments.out), times, result, stepper.state_names)
+        print(f"wrote {len(times)} states to {arguments.out} ({info.evaluations} network "
+              f"evaluations in {info.network_calls} batched calls)")
+    elif arguments.json:
+        print(json.dumps({"times": times.tolist(), "states": result.tolist(),
+                          "state_names": list(stepper.state_names),
+                          "evaluations": info.evaluations, "warnings": warnings}))
+    else:
+        print(f"{'t':>10}  " + "  ".join(f"{name:>14}" for name in stepper.state_names))
+        for t, row in zip(times, result, strict=True):
+            print(f"{t:>10.6g}  " + "  ".join(f"{value:>14.7g}" for value in row))
+    _print_caution(warnings)
+    return 0
+
+
+def _write_table(path: Path, times: np.ndarray, states: np.ndarray, names) -> None:
+    """Write atomically: a temporary file beside the target, then rename."""
+    if path.suffix not in (".csv", ".npy"):
+        raise StateError(f"`--out` {str(path)!r} must end in .csv or .npy.")
+    path.parent.mkdir(parents=True, exist_ok=True)
+    descriptor, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(descriptor, "wb") as handle:
+            if path.suffix == ".npy":
+                np.save(handle, np.column_stack([times, states]))
+            else:
+                header = "t," + ",".join(names)
+                np.savetxt(handle, np.column_stack([times, states]), delimiter=",",
+                           header=header, comments="", fmt="%.9g")
+        os.replace(temporary, path)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+        raise
