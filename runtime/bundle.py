@@ -70,7 +70,8 @@ def read_bundle_file(root: Path, relative: str, where: str, *, max_bytes: int) -
         raise BundleError(f"`{where}` names {relative!r}, which is a hard link; refused.")
     if info.st_size > max_bytes:
         raise BundleError(
-            f"`{where}` names {relative!r} of {info.st_size} bytes; the limit is {max_bytes}."
+            f"`{where}` names {relative!r} of {info.st_size} bytes; the limit is {max_bytes} "
+            "bytes."
         )
     flags = os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0)
     try:

@@ -32,7 +32,7 @@ from .onnx_model import (
     Tensor,
     ValueInfo,
 )
-from .protobuf import FieldSpec, RepeatedScalars, read_message
+from .protobuf import FieldSpec, MessageSchema, RepeatedScalars, read_message
 
 # NumPy 1.x arrays have at most 32 dimensions (NumPy 2 allows 64); keep the portable bound.
 MAX_TENSOR_RANK = 32
@@ -68,51 +68,55 @@ _SUPPORTED_ATTRIBUTE_TYPES = frozenset({"FLOAT", "INT", "STRING", "TENSOR", "FLO
 _SUPPORTED_ATTRIBUTES = "FLOAT, INT, STRING, TENSOR, FLOATS, INTS and STRINGS"
 
 
-def _fields(*specs: tuple[int, str, str] | tuple[int, str, str, bool]) -> dict[int, FieldSpec]:
-    return {spec[0]: FieldSpec(*spec[1:]) for spec in specs}
+def _schema(name: str, *specs: tuple[int, str, str] | tuple[int, str, str, bool]
+            ) -> MessageSchema:
+    return MessageSchema(name, {spec[0]: FieldSpec(*spec[1:]) for spec in specs})
 
 
 # Field tables, numbered as in onnx.proto. Fields not listed (doc strings, metadata, training
 # info, quantization annotations, ...) are skipped.
-_MODEL = _fields((1, "ir_version", "int64"), (2, "producer_name", "string"),
-                 (3, "producer_version", "string"), (7, "graph", "message"),
-                 (8, "opset_import", "message", True), (25, "functions", "message", True))
-_OPSET_ID = _fields((1, "domain", "string"), (2, "version", "int64"))
-_GRAPH = _fields((1, "node", "message", True), (2, "name", "string"),
-                 (5, "initializer", "message", True), (11, "input", "message", True),
-                 (12, "output", "message", True), (13, "value_info", "message", True),
-                 (15, "sparse_initializer", "message", True))
-_NODE = _fields((1, "input", "string", True), (2, "output", "string", True),
-                (3, "name", "string"), (4, "op_type", "string"),
-                (5, "attribute", "message", True), (7, "domain", "string"),
-                (8, "overload", "string"))
-_ATTRIBUTE = _fields((1, "name", "string"), (2, "f", "float"), (3, "i", "int64"),
-                     (4, "s", "bytes"), (5, "t", "message"), (6, "g", "message"),
-                     (7, "floats", "float", True), (8, "ints", "int64", True),
-                     (9, "strings", "bytes", True), (10, "tensors", "message", True),
-                     (11, "graphs", "message", True), (14, "tp", "message"),
-                     (15, "type_protos", "message", True), (20, "type", "int32"),
-                     (21, "ref_attr_name", "string"), (22, "sparse_tensor", "message"),
-                     (23, "sparse_tensors", "message", True))
-_TENSOR = _fields((1, "dims", "int64", True), (2, "data_type", "int32"),
-                  (3, "segment", "message"), (4, "float_data", "float", True),
-                  (5, "int32_data", "int32", True), (6, "string_data", "bytes", True),
-                  (7, "int64_data", "int64", True), (8, "name", "string"),
-                  (9, "raw_data", "bytes"), (10, "double_data", "double", True),
-                  (11, "uint64_data", "int64", True), (13, "external_data", "message", True),
-                  (14, "data_location", "int32"))
-_VALUE_INFO = _fields((1, "name", "string"), (2, "type", "message"))
-_TYPE = _fields((1, "tensor_type", "message"), (4, "sequence_type", "message"),
-                (5, "map_type", "message"), (7, "opaque_type", "message"),
-                (8, "sparse_tensor_type", "message"), (9, "optional_type", "message"))
-_TENSOR_TYPE = _fields((1, "elem_type", "int32"), (2, "shape", "message"))
-_SHAPE = _fields((1, "dim", "message", True))
-_DIMENSION = _fields((1, "dim_value", "int64"), (2, "dim_param", "string"))
-_FUNCTION = _fields((1, "name", "string"), (4, "input", "string", True),
-                    (5, "output", "string", True), (6, "attribute", "string", True),
-                    (7, "node", "message", True), (9, "opset_import", "message", True),
-                    (10, "domain", "string"), (11, "attribute_proto", "message", True),
-                    (13, "overload", "string"))
+_MODEL = _schema(
+    "ModelProto", (1, "ir_version", "int64"), (2, "producer_name", "string"),
+    (3, "producer_version", "string"), (7, "graph", "message"),
+    (8, "opset_import", "message", True), (25, "functions", "message", True))
+_OPSET_ID = _schema("OperatorSetIdProto", (1, "domain", "string"), (2, "version", "int64"))
+_GRAPH = _schema(
+    "GraphProto", (1, "node", "message", True), (2, "name", "string"),
+    (5, "initializer", "message", True), (11, "input", "message", True),
+    (12, "output", "message", True), (13, "value_info", "message", True),
+    (15, "sparse_initializer", "message", True))
+_NODE = _schema(
+    "NodeProto", (1, "input", "string", True), (2, "output", "string", True),
+    (3, "name", "string"), (4, "op_type", "string"), (5, "attribute", "message", True),
+    (7, "domain", "string"), (8, "overload", "string"))
+_ATTRIBUTE = _schema(
+    "AttributeProto", (1, "name", "string"), (2, "f", "float"), (3, "i", "int64"),
+    (4, "s", "bytes"), (5, "t", "message"), (6, "g", "message"), (7, "floats", "float", True),
+    (8, "ints", "int64", True), (9, "strings", "bytes", True), (10, "tensors", "message", True),
+    (11, "graphs", "message", True), (14, "tp", "message"),
+    (15, "type_protos", "message", True), (20, "type", "int32"), (21, "ref_attr_name", "string"),
+    (22, "sparse_tensor", "message"), (23, "sparse_tensors", "message", True))
+_TENSOR = _schema(
+    "TensorProto", (1, "dims", "int64", True), (2, "data_type", "int32"),
+    (3, "segment", "message"), (4, "float_data", "float", True),
+    (5, "int32_data", "int32", True), (6, "string_data", "bytes", True),
+    (7, "int64_data", "int64", True), (8, "name", "string"), (9, "raw_data", "bytes"),
+    (10, "double_data", "double", True), (11, "uint64_data", "int64", True),
+    (13, "external_data", "message", True), (14, "data_location", "int32"))
+_VALUE_INFO = _schema("ValueInfoProto", (1, "name", "string"), (2, "type", "message"))
+_TYPE = _schema(
+    "TypeProto", (1, "tensor_type", "message"), (4, "sequence_type", "message"),
+    (5, "map_type", "message"), (7, "opaque_type", "message"),
+    (8, "sparse_tensor_type", "message"), (9, "optional_type", "message"))
+_TENSOR_TYPE = _schema("TypeProto.Tensor", (1, "elem_type", "int32"), (2, "shape", "message"))
+_SHAPE = _schema("TensorShapeProto", (1, "dim", "message", True))
+_DIMENSION = _schema(
+    "TensorShapeProto.Dimension", (1, "dim_value", "int64"), (2, "dim_param", "string"))
+_FUNCTION = _schema(
+    "FunctionProto", (1, "name", "string"), (4, "input", "string", True),
+    (5, "output", "string", True), (6, "attribute", "string", True),
+    (7, "node", "message", True), (9, "opset_import", "message", True), (10, "domain", "string"),
+    (11, "attribute_proto", "message", True), (13, "overload", "string"))
 
 
 def load_model_file(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LIMITS) -> Model:
@@ -179,7 +183,7 @@ def read_model(data: bytes, *, limits: Limits = DEFAULT_LIMITS, source: str = "m
             f"{limits.max_model_bytes}."
         )
     view = memoryview(data if isinstance(data, bytes) else bytes(data))
-    fields = _read(view, _MODEL, source, "ModelProto", 1, limits)
+    fields = _read(view, _MODEL, source, 1, limits)
     if "graph" not in fields:
         raise ModelFormatError(
             f"{source} (ModelProto) has no graph; an ONNX model must contain one."
@@ -197,18 +201,17 @@ def read_model(data: bytes, *, limits: Limits = DEFAULT_LIMITS, source: str = "m
     )
 
 
-def _read(view: memoryview, schema: dict[int, FieldSpec], where: str, message_type: str,
-          depth: int, limits: Limits) -> dict[str, Any]:
-    return read_message(view, schema, where=where, message_type=message_type, depth=depth,
-                        max_depth=limits.max_protobuf_depth)
+def _read(view: memoryview, schema: MessageSchema, where: str, depth: int,
+          limits: Limits) -> dict[str, Any]:
+    return read_message(view, schema, where=where, depth=depth,
+                        max_depth=limits.max_protobuf_depth, max_items=limits.max_graph_nodes)
 
 
 def _opset_imports(payloads: list[memoryview], where: str, depth: int,
                    limits: Limits) -> dict[str, int]:
     versions: dict[str, int] = {}
     for index, payload in enumerate(payloads):
-        fields = _read(payload, _OPSET_ID, f"{where} > opset_import[{index}]",
-                       "OperatorSetIdProto", depth, limits)
+        fields = _read(payload, _OPSET_ID, f"{where} > opset_import[{index}]", depth, limits)
         domain = fields.get("domain", "")
         if domain in versions:
             raise ModelFormatError(
@@ -219,7 +222,7 @@ def _opset_imports(payloads: list[memoryview], where: str, depth: int,
 
 
 def _graph(view: memoryview, where: str, depth: int, limits: Limits) -> Graph:
-    fields = _read(view, _GRAPH, where, "GraphProto", depth, limits)
+    fields = _read(view, _GRAPH, where, depth, limits)
     name = fields.get("name", "")
     if name:
         where = f"{where} {name!r}"
@@ -244,11 +247,7 @@ def _graph(view: memoryview, where: str, depth: int, limits: Limits) -> Graph:
 
 def _nodes(payloads: list[memoryview], where: str, depth: int,
            limits: Limits) -> tuple[Node, ...]:
-    if len(payloads) > limits.max_graph_nodes:
-        raise ModelFormatError(
-            f"{where} has {len(payloads)} nodes; the limit `max_graph_nodes` is "
-            f"{limits.max_graph_nodes}."
-        )
+    # read_message has already held the count to `limits.max_graph_nodes`.
     return tuple(
         _node(payload, f"{where} > node[{index}]", depth, limits)
         for index, payload in enumerate(payloads)
@@ -256,7 +255,7 @@ def _nodes(payloads: list[memoryview], where: str, depth: int,
 
 
 def _node(view: memoryview, where: str, depth: int, limits: Limits) -> Node:
-    fields = _read(view, _NODE, where, "NodeProto", depth, limits)
+    fields = _read(view, _NODE, where, depth, limits)
     name, op_type = fields.get("name", ""), fields.get("op_type", "")
     if name:
         where = f"{where} {name!r}"
@@ -295,7 +294,7 @@ def _check_unique_names(attributes: tuple[Attribute, ...], where: str) -> None:
 
 
 def _attribute(view: memoryview, where: str, depth: int, limits: Limits) -> Attribute:
-    fields = _read(view, _ATTRIBUTE, where, "AttributeProto", depth, limits)
+    fields = _read(view, _ATTRIBUTE, where, depth, limits)
     name = fields.get("name", "")
     if not name:
         raise ModelFormatError(f"{where} (AttributeProto) has no name; every attribute needs one.")
@@ -327,7 +326,8 @@ def _attribute(view: memoryview, where: str, depth: int, limits: Limits) -> Attr
 def _has_value(fields: dict[str, Any], field_name: str) -> bool:
     value = fields.get(field_name)
     if isinstance(value, RepeatedScalars):
-        return bool(value.pieces)
+        # Like protobuf's own presence test: an empty packed payload holds nothing.
+        return any(len(piece) for piece in value.pieces)
     return bool(value) if isinstance(value, list) else value is not None
 
 
@@ -388,7 +388,7 @@ def _check_count(count: int, what: str, limits: Limits) -> None:
 
 
 def _tensor(view: memoryview, where: str, depth: int, limits: Limits) -> Tensor:
-    fields = _read(view, _TENSOR, where, "TensorProto", depth, limits)
+    fields = _read(view, _TENSOR, where, depth, limits)
     name = fields.get("name", "")
     label = f"Tensor {where} {name!r}" if name else f"Tensor {where}"
     if "segment" in fields:
@@ -481,12 +481,12 @@ def _value_infos(payloads: list[memoryview], where: str, depth: int,
 
 
 def _value_info(view: memoryview, where: str, depth: int, limits: Limits) -> ValueInfo:
-    fields = _read(view, _VALUE_INFO, where, "ValueInfoProto", depth, limits)
+    fields = _read(view, _VALUE_INFO, where, depth, limits)
     name = fields.get("name", "")
     where = f"{where} {name!r}"
     if "type" not in fields:
         return ValueInfo(name)
-    type_fields = _read(fields["type"], _TYPE, f"{where} > type", "TypeProto", depth + 1, limits)
+    type_fields = _read(fields["type"], _TYPE, f"{where} > type", depth + 1, limits)
     if "tensor_type" not in type_fields:
         if not type_fields:
             # An empty TypeProto says nothing about the value; treat it as untyped.
@@ -495,7 +495,7 @@ def _value_info(view: memoryview, where: str, depth: int, limits: Limits) -> Val
         raise ModelFormatError(f"Value {where} has a {kind} type; only tensor types are "
                                "supported.")
     tensor_fields = _read(type_fields["tensor_type"], _TENSOR_TYPE, f"{where} > type",
-                          "TypeProto.Tensor", depth + 2, limits)
+                          depth + 2, limits)
     shape = None
     if "shape" in tensor_fields:
         shape = _value_shape(tensor_fields["shape"], where, depth + 3, limits)
@@ -504,11 +504,10 @@ def _value_info(view: memoryview, where: str, depth: int, limits: Limits) -> Val
 
 def _value_shape(view: memoryview, where: str, depth: int,
                  limits: Limits) -> tuple[int | str | None, ...]:
-    dims = _read(view, _SHAPE, f"{where} > shape", "TensorShapeProto", depth, limits)["dim"]
+    dims = _read(view, _SHAPE, f"{where} > shape", depth, limits)["dim"]
     shape: list[int | str | None] = []
     for index, payload in enumerate(dims):
-        dim = _read(payload, _DIMENSION, f"{where} > shape > dim[{index}]",
-                    "TensorShapeProto.Dimension", depth + 1, limits)
+        dim = _read(payload, _DIMENSION, f"{where} > shape > dim[{index}]", depth + 1, limits)
         if "dim_value" in dim:
             if dim["dim_value"] < 0:
                 raise ModelFormatError(f"Value {where} has dim_value {dim['dim_value']} at "
@@ -520,7 +519,7 @@ def _value_shape(view: memoryview, where: str, depth: int,
 
 
 def _function(view: memoryview, where: str, depth: int, limits: Limits) -> Function:
-    fields = _read(view, _FUNCTION, where, "FunctionProto", depth, limits)
+    fields = _read(view, _FUNCTION, where, depth, limits)
     name, domain = fields.get("name", ""), fields.get("domain", "")
     where = f"{where} {domain}:{name}" if domain else f"{where} {name!r}"
     if not name:

@@ -276,7 +276,8 @@ class StridePlanner:
         Returns
         -------
         below, above : int or None
-            Both equal n when n is reachable; `below` is None when nothing ≤ n is reachable.
+            Both equal n when n is reachable. Target 0 (the empty plan) is always reachable,
+            so in practice neither is None; the type allows None for callers' generality.
         """
         n = _validate_target(n)
         if self.is_reachable(n):

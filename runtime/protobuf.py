@@ -9,7 +9,8 @@ from __future__ import annotations
 import struct
 from array import array
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import Any
 
 import numpy as np
@@ -57,9 +58,6 @@ class FieldSpec:
     def __post_init__(self) -> None:
         if self.kind not in _KINDS:
             raise ValueError(f"`kind` must be one of {sorted(_KINDS)}, got {self.kind!r}.")
-
-
-Schema = Mapping[int, FieldSpec]
 
 
 def fail(where: str, message_type: str, problem: str) -> ModelFormatError:
@@ -153,6 +151,29 @@ class RepeatedScalars:
         return np.add.reduceat(parts, starts)
 
 
+@dataclass(frozen=True)
+class MessageSchema:
+    """A message type: its name (for error messages) and its declared fields by number."""
+
+    name: str
+    fields: Mapping[int, FieldSpec]
+    # Derived once here rather than on every message read.
+    lists: tuple[str, ...] = field(init=False)
+    empty_scalars: Mapping[str, RepeatedScalars] = field(init=False)
+
+    def __post_init__(self) -> None:
+        for number in self.fields:
+            if not 1 <= number <= _MAX_FIELD_NUMBER:
+                raise ValueError(f"Field numbers must lie in 1..{_MAX_FIELD_NUMBER}, got "
+                                 f"{number}.")
+        repeated = [spec for spec in self.fields.values() if spec.repeated]
+        object.__setattr__(self, "lists", tuple(
+            spec.name for spec in repeated if spec.kind in _LEN_KINDS))
+        object.__setattr__(self, "empty_scalars", MappingProxyType({
+            spec.name: RepeatedScalars(spec.kind) for spec in repeated
+            if spec.kind not in _LEN_KINDS}))
+
+
 class _RepeatedBuilder:
     """Collects the occurrences of one repeated scalar field while a message is read."""
 
@@ -218,23 +239,28 @@ def _to_signed(value: int, bits: int) -> int:
     return value - (1 << bits) if value >> (bits - 1) else value
 
 
-def read_message(view: memoryview, schema: Schema, *, where: str, message_type: str,
-                 depth: int, max_depth: int) -> dict[str, Any]:
+def read_message(view: memoryview, schema: MessageSchema, *, where: str, depth: int,
+                 max_depth: int, max_items: int) -> dict[str, Any]:
     """Decode one message's fields by `schema`, skipping fields the schema does not declare.
 
     Parameters
     ----------
     view : memoryview
         The message's bytes (the whole buffer, or a length-delimited payload).
-    schema : mapping of int to FieldSpec
-        The declared fields by field number.
-    where, message_type : str
-        Location (e.g. ``"model > graph > node[3]"``) and type name used in error messages.
+    schema : MessageSchema
+        The message type's name and declared fields.
+    where : str
+        Location used in error messages, e.g. ``"model > graph > node[3]"``.
     depth : int
         Nesting depth of this message (the outermost message is 1). Unknown length-delimited
         fields are skipped, not decoded, but still count as one level deeper.
     max_depth : int
-        The largest depth accepted.
+        The largest depth accepted (`Limits.max_protobuf_depth`).
+    max_items : int
+        The most occurrences a repeated string, bytes or message field may have
+        (`Limits.max_graph_nodes`). Each becomes a Python object many times larger than its
+        few wire bytes, so this bounds memory; repeated scalars are bounded by their callers
+        through `RepeatedScalars.count`.
 
     Returns
     -------
@@ -244,42 +270,83 @@ def read_message(view: memoryview, schema: Schema, *, where: str, message_type: 
         other repeated fields are always present as lists. Strings are `str`; bytes and
         messages are memoryviews into `view`.
     """
+    message_type = schema.name
     if depth > max_depth:
         raise ModelFormatError(
             f"{where} ({message_type}) is nested {depth} messages deep; the limit "
             f"`max_protobuf_depth` is {max_depth}."
         )
-    fields: dict[str, Any] = {}
+    fields: dict[str, Any] = {name: [] for name in schema.lists}
+    fields.update(schema.empty_scalars)
     builders: dict[str, _RepeatedBuilder] = {}
-    for spec in schema.values():
-        if spec.repeated and spec.kind in _SCALAR_WIRE:
-            builders[spec.name] = _RepeatedBuilder(spec.kind)
-        elif spec.repeated:
-            fields[spec.name] = []
+    specs = schema.fields
     pos, end = 0, len(view)
     while pos < end:
-        tag, pos = read_varint(view, pos, where, message_type)
+        # Tags and lengths below 128 take one byte: by far the common case, so inline it.
+        tag = view[pos]
+        if tag < 0x80:
+            pos += 1
+        else:
+            tag, pos = read_varint(view, pos, where, message_type)
         number, wire = tag >> 3, tag & 7
-        if number == 0 or number > _MAX_FIELD_NUMBER:
-            raise fail(where, message_type,
-                       f"field number {number} is outside 1..{_MAX_FIELD_NUMBER}")
-        spec = schema.get(number)
+        spec = specs.get(number)
         if spec is None:
+            if number == 0 or number > _MAX_FIELD_NUMBER:
+                raise fail(where, message_type,
+                           f"field number {number} is outside 1..{_MAX_FIELD_NUMBER}")
             pos = _skip(view, pos, number, wire, where, message_type, depth, max_depth)
-            continue
-        pos = _read_field(view, pos, number, wire, spec, fields, builders, where, message_type)
+        elif wire == WIRE_LEN and spec.kind in _LEN_KINDS:
+            if pos < end and view[pos] < 0x80 and pos + 1 + view[pos] <= end:
+                start, pos = pos + 1, pos + 1 + view[pos]
+            else:
+                start, pos = _read_length(view, pos, where, message_type, number)
+            value: Any = view[start:pos]
+            if spec.kind == "string":
+                value = _decode_utf8(value, spec, number, where, message_type)
+            _store(fields, spec, number, value, where, message_type, max_items)
+        else:
+            pos = _read_scalar(view, pos, number, wire, spec, fields, builders, where,
+                               message_type)
     for name, builder in builders.items():
         fields[name] = RepeatedScalars(builder.kind, tuple(builder.pieces), where,
                                        message_type, name)
     return fields
 
 
-def _read_field(view: memoryview, pos: int, number: int, wire: int, spec: FieldSpec,
-                fields: dict[str, Any], builders: dict[str, _RepeatedBuilder],
-                where: str, message_type: str) -> int:
+def _store(fields: dict[str, Any], spec: FieldSpec, number: int, value: Any, where: str,
+           message_type: str, max_items: int) -> None:
+    if spec.repeated:
+        items = fields[spec.name]
+        if len(items) >= max_items:
+            raise ModelFormatError(
+                f"Field {spec.name} ({number}) of {where} ({message_type}) occurs more than "
+                f"{max_items} times; repeated fields are limited by `max_graph_nodes`, which "
+                f"is {max_items}."
+            )
+        items.append(value)
+    elif spec.kind == "message" and spec.name in fields:
+        # protobuf would merge the two copies; no ONNX writer emits that, so refuse it.
+        raise fail(where, message_type,
+                   f"singular message field {spec.name} ({number}) occurs more than once")
+    else:
+        fields[spec.name] = value
+
+
+def _read_scalar(view: memoryview, pos: int, number: int, wire: int, spec: FieldSpec,
+                 fields: dict[str, Any], builders: dict[str, _RepeatedBuilder],
+                 where: str, message_type: str) -> int:
+    """Read a numeric field (or a packed run of one); return the position after it."""
     kind = spec.kind
     expected = _SCALAR_WIRE.get(kind, WIRE_LEN)
-    if wire == WIRE_LEN and spec.name in builders:
+    packed = wire == WIRE_LEN and spec.repeated and kind not in _LEN_KINDS
+    if wire != expected and not packed:
+        raise fail(where, message_type,
+                   f"field {spec.name} ({number}) arrives as wire type {wire} "
+                   f"({_WIRE_NAMES[wire]}) but is declared {kind}, wire type {expected}")
+    builder = builders.get(spec.name)
+    if spec.repeated and builder is None:
+        builder = builders[spec.name] = _RepeatedBuilder(kind)
+    if packed:
         start, pos = _read_length(view, pos, where, message_type, number)
         payload = view[start:pos]
         width = _FIXED_DTYPES[kind].itemsize if kind in _FIXED_DTYPES else 0
@@ -289,44 +356,25 @@ def _read_field(view: memoryview, pos: int, number: int, wire: int, spec: FieldS
         if not width and len(payload) and payload[-1] >= 0x80:
             raise fail(where, message_type,
                        f"packed field {spec.name} ({number}) ends inside a varint")
-        builders[spec.name].add_packed(payload)
+        builder.add_packed(payload)
         return pos
-    if wire != expected:
-        raise fail(where, message_type,
-                   f"field {spec.name} ({number}) arrives as wire type {wire} "
-                   f"({_WIRE_NAMES[wire]}) but is declared {kind}, wire type {expected}")
     if expected == WIRE_VARINT:
         raw, pos = read_varint(view, pos, where, message_type)
         if spec.repeated:
-            builders[spec.name].add_varint(raw)
-            return pos
-        value: Any = _to_signed(raw, 64 if kind == "int64" else 32)
-    elif expected != WIRE_LEN:
-        width = _FIXED_DTYPES[kind].itemsize
-        if pos + width > len(view):
-            raise fail(where, message_type,
-                       f"field {spec.name} ({number}) needs {width} bytes but only "
-                       f"{len(view) - pos} remain")
-        octets = view[pos:pos + width]
-        pos += width
-        if spec.repeated:
-            builders[spec.name].add_fixed(octets)
-            return pos
-        value = struct.unpack("<f" if width == 4 else "<d", octets)[0]
-    else:
-        start, pos = _read_length(view, pos, where, message_type, number)
-        value = view[start:pos]
-        if kind == "string":
-            value = _decode_utf8(value, spec, number, where, message_type)
+            builder.add_varint(raw)
+        else:
+            fields[spec.name] = _to_signed(raw, 64 if kind == "int64" else 32)
+        return pos
+    width = _FIXED_DTYPES[kind].itemsize
+    if pos + width > len(view):
+        raise fail(where, message_type, f"field {spec.name} ({number}) needs {width} bytes "
+                   f"but only {len(view) - pos} remain")
+    octets = view[pos:pos + width]
     if spec.repeated:
-        fields[spec.name].append(value)
-    elif kind == "message" and spec.name in fields:
-        # protobuf would merge the two copies; no ONNX writer emits that, so refuse it.
-        raise fail(where, message_type,
-                   f"singular message field {spec.name} ({number}) occurs more than once")
+        builder.add_fixed(octets)
     else:
-        fields[spec.name] = value
-    return pos
+        fields[spec.name] = struct.unpack("<f" if width == 4 else "<d", octets)[0]
+    return pos + width
 
 
 def _decode_utf8(value: memoryview, spec: FieldSpec, number: int, where: str,

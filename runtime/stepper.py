@@ -387,7 +387,9 @@ class Stepper:
         return schedule
 
     def _apply(self, stride: int, states: np.ndarray, *, depth: int) -> np.ndarray:
-        result = self._kernels[stride](states)
+        # Overflow shows up as inf below and is reported with the step and level.
+        with np.errstate(over="ignore", invalid="ignore"):
+            result = self._kernels[stride](states)
         if result.shape != states.shape:
             raise StateError(
                 f"the level with stride {stride} returned shape {result.shape} for input "

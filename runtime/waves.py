@@ -18,6 +18,7 @@ about 1 GB, so large requests should be split into chunks of states.
 
 from __future__ import annotations
 
+import itertools
 import operator
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -28,7 +29,7 @@ import numpy as np
 from .errors import StateError
 
 StepFunction = Callable[[int, np.ndarray, int], np.ndarray]
-"""`step(stride, states, depth) -> next_states`, states of shape (N, d)."""
+"""`step(stride, states, depth) -> next_states`, states (N, d) that took `depth` steps so far."""
 
 CheckFunction = Callable[[int, int, np.ndarray], None]
 """`check(depth, stride, outputs)`: raise to stop the run (e.g. on non-finite outputs)."""
@@ -192,7 +193,7 @@ def build_schedule(targets: Sequence[int], planner: Planner) -> Schedule:
                     _read_only(parent[low:high]),
                     _read_only(np.arange(low, high)),
                 )
-                for low, high in zip(bounds[:-1], bounds[1:], strict=True)
+                for low, high in itertools.pairwise(bounds)
             )
         )
     return Schedule(
@@ -220,10 +221,13 @@ def run_schedule(
         Initial states.
     step : callable
         `step(stride, states, depth)` with states of shape (N, d), N a multiple of B, returns
-        the states `stride` base steps later, same shape. `depth` (1 = first wave) and
-        `stride` let the caller say where a failure happened; `step` may raise.
+        the states `stride` base steps later, same shape. `depth` is the trie depth of the
+        input states, i.e. the steps they have already taken (0 in the first wave, so the
+        call computes step `depth + 1` of the plans); with `stride` it lets the caller say
+        where a failure happened. `step` may raise.
     check : callable, optional
-        `check(depth, stride, outputs)` is called on every step's outputs; it may raise.
+        `check(depth, stride, outputs)` is called on every step's outputs (same `depth` as
+        given to `step`); it may raise.
 
     Returns
     -------
@@ -246,23 +250,23 @@ def run_schedule(
     at_root = np.flatnonzero(target_depth == 0)
     result[at_root] = initial
     level = initial[np.newaxis]
-    for depth, wave in enumerate(schedule.waves, start=1):
-        previous_start = int(schedule.level_starts[depth - 1])
-        start = int(schedule.level_starts[depth])
-        width = int(schedule.level_starts[depth + 1]) - start
+    for taken, wave in enumerate(schedule.waves):
+        previous_start = int(schedule.level_starts[taken])
+        start = int(schedule.level_starts[taken + 1])
+        width = int(schedule.level_starts[taken + 2]) - start
         following = np.empty((width, batch, dim), dtype=initial.dtype)
         for stride, parents, children in wave:
             states = level[parents - previous_start].reshape(-1, dim)
-            outputs = np.asarray(step(stride, states, depth))
+            outputs = np.asarray(step(stride, states, taken))
             if outputs.shape != states.shape:
                 raise StateError(
-                    f"step for stride {stride} at depth {depth} must return shape "
+                    f"step for stride {stride} at depth {taken} must return shape "
                     f"{states.shape}; got {outputs.shape}."
                 )
             if check is not None:
-                check(depth, stride, outputs)
+                check(taken, stride, outputs)
             following[children - start] = outputs.reshape(len(children), batch, dim)
         level = following
-        landing = np.flatnonzero(target_depth == depth)
+        landing = np.flatnonzero(target_depth == taken + 1)
         result[landing] = level[schedule.target_nodes[landing] - start]
     return result

@@ -111,7 +111,7 @@ def _decode_msgpack(body: bytes) -> Any:
             # Bound every container by the body size so a forged header cannot make the
             # decoder allocate more than the body could hold.
             max_str_len=size, max_bin_len=size, max_array_len=size, max_map_len=size // 2,
-            max_ext_len=0,
+            max_ext_len=size,  # extensions reach `_refuse_extension`, which names them
         )
     except DecodeError:
         raise
@@ -215,10 +215,20 @@ def encode(document: Any, media: str) -> bytes:
                       separators=(",", ":")).encode("utf-8")
 
 
+def response_media(request: Request) -> str:
+    """The encoding `request` accepts: MessagePack if preferred, else JSON."""
+    return preferred_media(request.headers.get("accept"))
+
+
+def encoded_response(body: bytes, media: str, *, status: int = 200,
+                     headers: dict[str, str] | None = None) -> Response:
+    """A response around a body already encoded as `media`."""
+    return Response(body, status_code=status, media_type=media,
+                    headers={"Vary": "Accept", **(headers or {})})
+
+
 def encode_response(request: Request, document: Any, *, status: int = 200,
                     headers: dict[str, str] | None = None) -> Response:
     """A response in the encoding `request` accepts (JSON by default)."""
-    media = preferred_media(request.headers.get("accept"))
-    response_headers = {"Vary": "Accept", **(headers or {})}
-    return Response(encode(document, media), status_code=status, media_type=media,
-                    headers=response_headers)
+    media = response_media(request)
+    return encoded_response(encode(document, media), media, status=status, headers=headers)

@@ -82,9 +82,13 @@ def _is_path(source: Any) -> bool:
     return isinstance(source, str | os.PathLike)
 
 
-def _named_sources(models: Mapping[str, ModelSource] | Iterable[ModelSource]
-                   ) -> list[tuple[str, str, ModelSource]]:
-    """Expand `models` into (name, description of the source, path or stepper) triples."""
+def named_sources(models: Mapping[str, ModelSource] | Iterable[ModelSource]
+                  ) -> list[tuple[str, str, ModelSource]]:
+    """Expand `models` into (name, description of the source, path or stepper) triples.
+
+    Raises `TypeError` or `ValueError` for arguments that are not models at all (a programming
+    error, unlike a bundle that fails to load).
+    """
     named: list[tuple[str, str, ModelSource]] = []
     if isinstance(models, Mapping):
         for name, source in models.items():
@@ -104,20 +108,19 @@ def _named_sources(models: Mapping[str, ModelSource] | Iterable[ModelSource]
     return named
 
 
-def load_registry(models: Mapping[str, ModelSource] | Iterable[ModelSource], *,
+def load_registry(sources: Iterable[tuple[str, str, ModelSource]], *,
                   dtype: str = "float32") -> Registry:
     """Load and verify every model; failures become entries with an `error`, never exceptions.
 
     Parameters
     ----------
-    models : mapping of name to source, or iterable of sources
-        A source is a bundle path, a folder of bundles (iterable form only), or a loaded
-        `Stepper`.
+    sources : iterable of (name, description, source)
+        From `named_sources`; a source is a bundle path or a loaded `Stepper`.
     dtype : {"float32", "float64"}
         Arithmetic of the steppers loaded from paths.
     """
     entries: list[ModelEntry] = []
-    for name, description, source in _named_sources(models):
+    for name, description, source in sources:
         if any(entry.name == name for entry in entries):
             error = f"the name {name!r} is already taken by another model; rename the folder."
             entries.append(ModelEntry(name, description, error=error))

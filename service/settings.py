@@ -19,6 +19,8 @@ DEFAULT_MAX_BODY_BYTES = 4 * 1024 * 1024
 DEFAULT_MAX_BATCH = 4096
 DEFAULT_MAX_FORECAST_POINTS = 100_000
 DEFAULT_REQUEST_TIMEOUT = 10.0
+# Not in design.md: times x batch x d numbers in one forecast answer (about 40 MB of JSON).
+DEFAULT_MAX_FORECAST_VALUES = 2_000_000
 # A token longer than this is surely a wrong file, not a secret.
 MAX_TOKEN_BYTES = 4096
 
@@ -41,8 +43,9 @@ class Settings(BaseSettings):
         its models as an argument instead.
     dtype : {"float32", "float64"}
         Arithmetic of the steppers loaded from paths.
-    max_body_bytes, max_batch, max_forecast_points : int
-        Request limits; larger requests get 413 (body) or 422.
+    max_body_bytes, max_batch, max_forecast_points, max_forecast_values : int
+        Request limits; larger requests get 413 (body) or 422. `max_forecast_values` bounds
+        the numbers in one forecast answer (times x batch x d).
     request_timeout : float
         Wall-time budget of one request in seconds, queueing included; 504 when exceeded.
     max_concurrency : int
@@ -63,6 +66,7 @@ class Settings(BaseSettings):
     max_body_bytes: int = Field(DEFAULT_MAX_BODY_BYTES, ge=64)
     max_batch: int = Field(DEFAULT_MAX_BATCH, ge=1)
     max_forecast_points: int = Field(DEFAULT_MAX_FORECAST_POINTS, ge=1)
+    max_forecast_values: int = Field(DEFAULT_MAX_FORECAST_VALUES, ge=1)
     request_timeout: float = Field(DEFAULT_REQUEST_TIMEOUT, gt=0, allow_inf_nan=False)
     max_concurrency: int = Field(default_factory=_cpu_count, ge=1)
     max_waiting: int = Field(64, ge=0)

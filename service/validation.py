@@ -147,7 +147,11 @@ def _nested_array(value: list, where: str) -> np.ndarray:
 
 def state_array(value: Any, rules: StateRules, where: str = "state") -> np.ndarray:
     """A state `(d,)` or batch `(B, d)`, cast to the model's dtype; B ≤ `rules.max_batch`."""
-    array = to_array(value, where)
+    return check_state(to_array(value, where), rules, where)
+
+
+def check_state(array: np.ndarray, rules: StateRules, where: str = "state") -> np.ndarray:
+    """Check the shape of a finite state array and cast it to the model's dtype."""
     dim = rules.dim
     expected = f"({dim},) or (batch, {dim})"
     if array.size == 0:
@@ -209,13 +213,23 @@ def parse_advance(document: Any, rules: StateRules) -> AdvanceQuery:
     )
 
 
-def parse_forecast(document: Any, rules: StateRules, *, max_points: int) -> ForecastQuery:
-    """Validate ``{"state": ..., "times": [...], "off_grid": ...}``."""
+def parse_forecast(document: Any, rules: StateRules, *, max_points: int, max_values: int
+                   ) -> ForecastQuery:
+    """Validate ``{"state": ..., "times": [...], "off_grid": ...}``.
+
+    The answer holds ``len(times) * state.size`` numbers; more than `max_values` is refused
+    so that one request cannot ask for gigabytes.
+    """
     body = fields(document, "the request body", required={"state", "times"},
                   optional={"off_grid"})
     times = times_array(body["times"], max_points=max_points)
+    state = state_array(body["state"], rules)
+    if times.size * state.size > max_values:
+        raise invalid(f"the forecast would hold {times.size} times x {state.size} numbers = "
+                      f"{times.size * state.size} values; the limit is {max_values} per "
+                      "request (send fewer times or a smaller batch).")
     return ForecastQuery(
-        state=state_array(body["state"], rules),
+        state=state,
         times=tuple(float(t) for t in times),
         off_grid=off_grid_value(body.get("off_grid", "interpolate")),
     )

@@ -53,7 +53,7 @@ def linear_level_model(matrix: np.ndarray, bias: np.ndarray | None = None, *,
 def linear_bundle(out: Path, system: np.ndarray, *, base_step: float, strides: Sequence[int],
                   mean: Sequence[float] | None = None, scale: Sequence[float] | None = None,
                   update: str = "replace", dtype=np.float64, use_gemm: bool = False,
-                  name: str = "linear") -> Path:
+                  name: str = "linear", overwrite: bool = False) -> Path:
     """A bundle whose level k is the exact flow map expm(A k Δt), in normalised coordinates.
 
     With z = (x − m)/s and x' = M x, the network must give z' = S⁻¹ M S z + S⁻¹ (M m − m)
@@ -83,7 +83,7 @@ def linear_bundle(out: Path, system: np.ndarray, *, base_step: float, strides: S
         levels=tuple(LevelEntry(stride=s, file="", sha256=PLACEHOLDER_SHA,
                                 input="state", output="next") for s in strides),
     )
-    return write_bundle(out, manifest, files)
+    return write_bundle(out, manifest, files, overwrite=overwrite)
 
 
 def oscillator_matrix(omega: float = 2.0, damping: float = 0.0) -> np.ndarray:

@@ -5,9 +5,12 @@ Op modules register with `@register(op_type, since_version)`; the interpreter ca
 
 from __future__ import annotations
 
+import functools
 from bisect import bisect_right
 from collections.abc import Callable
 from typing import TypeVar
+
+import numpy as np
 
 from ..errors import UnsupportedOperatorError
 
@@ -30,6 +33,12 @@ def register(op_type: str, since_version: int) -> Callable[[Operator], Operator]
     since_version : int
         The first opset of the default domain whose semantics the function implements; it
         serves every later opset until a newer registration of the same op type takes over.
+
+    Returns
+    -------
+    callable
+        The function, wrapped so that it always returns ndarrays: NumPy ufuncs turn 0-d
+        arrays into NumPy scalars, and callers may rely on ``.shape`` and ``.dtype``.
     """
 
     def decorator(function: Operator) -> Operator:
@@ -39,10 +48,22 @@ def register(op_type: str, since_version: int) -> Callable[[Operator], Operator]
                 f"Operator {op_type!r} is already registered for opset {since_version} "
                 f"(by {versions[since_version].__qualname__}); expected one function per version."
             )
-        versions[since_version] = function
-        return function
+        operator = _returning_arrays(function)
+        versions[since_version] = operator
+        return operator
 
     return decorator
+
+
+def _returning_arrays(function: Operator) -> Operator:
+    @functools.wraps(function)
+    def operator(*inputs, **attributes):
+        result = function(*inputs, **attributes)
+        if isinstance(result, tuple):
+            return tuple(np.asarray(value) for value in result)
+        return np.asarray(result)
+
+    return operator  # type: ignore[return-value]
 
 
 def supported_operators() -> dict[str, tuple[int, ...]]:

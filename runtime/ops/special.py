@@ -78,6 +78,8 @@ _SMALL_END, _MIDDLE_END, _FAR_TAIL_START = 0.84375, 1.25, 1 / 0.35
 _ERF_SATURATES, _ERFC_UNDERFLOWS = 6.0, 28.0
 # Keeps the high 32 bits of a float64 (sign, exponent, 20 mantissa bits): z² is then exact.
 _HIGH_WORD = np.uint64(0xFFFF_FFFF_0000_0000)
+# 512 KiB of float64 per block: large enough to amortise call overhead, small enough for L2.
+_BLOCK_ELEMENTS = 65_536
 
 
 def erf(x: np.ndarray) -> np.ndarray:
@@ -93,8 +95,7 @@ def erf(x: np.ndarray) -> np.ndarray:
     ndarray of float64, same shape as `x`
         erf(x); ±1 for ±inf, NaN for NaN, and the sign of zero kept.
     """
-    x = np.asarray(x, dtype=np.float64)
-    return np.copysign(_erf_of_magnitude(np.abs(x), complement=False), x)
+    return _blockwise(x, _erf_block)
 
 
 def erfc(x: np.ndarray) -> np.ndarray:
@@ -110,23 +111,46 @@ def erfc(x: np.ndarray) -> np.ndarray:
     ndarray of float64, same shape as `x`
         erfc(x): 2 for −inf, 0 for +inf, NaN for NaN.
     """
+    return _blockwise(x, _erfc_block)
+
+
+def _blockwise(x: np.ndarray, block_function) -> np.ndarray:
+    """Apply `block_function` to float64 `x` in blocks that keep the temporaries in cache.
+
+    The piecewise evaluation makes some twenty passes over its data; on blocks of a few
+    hundred KiB these run several times faster than on arrays too large for the caches.
+    """
     x = np.asarray(x, dtype=np.float64)
+    flat = x.reshape(-1)
+    result = np.empty_like(flat)
+    for start in range(0, flat.size, _BLOCK_ELEMENTS):
+        stop = start + _BLOCK_ELEMENTS
+        result[start:stop] = block_function(flat[start:stop])
+    return result.reshape(x.shape)
+
+
+def _erf_block(x: np.ndarray) -> np.ndarray:
+    return np.copysign(_erf_of_magnitude(np.abs(x), complement=False), x)
+
+
+def _erfc_block(x: np.ndarray) -> np.ndarray:
     upper_tail = _erf_of_magnitude(np.abs(x), complement=True)
     # erfc(−a) = 2 − erfc(a), and erfc(a) ≤ 1 there, so no digits are lost.
     return np.where(x < 0, 2.0 - upper_tail, upper_tail)
 
 
 def _erf_of_magnitude(magnitude: np.ndarray, *, complement: bool) -> np.ndarray:
-    """erf(a), or erfc(a) if `complement`, for float64 a ≥ 0 (or NaN).
+    """erf(a), or erfc(a) if `complement`, for a 1-D float64 block of a ≥ 0 (or NaN).
 
     Each element is evaluated only on the interval it falls in, so the cost is one rational
-    function (and two exponentials in the tail) per element.
+    function (and two exponentials in the tail) per element. Integer indices, not boolean
+    masks, select the elements: NumPy gathers and scatters with them several times faster.
     """
     end = _ERFC_UNDERFLOWS if complement else _ERF_SATURATES
     result = np.where(np.isnan(magnitude), magnitude, 0.0 if complement else 1.0)
 
-    small = magnitude < _SMALL_END
-    if small.any():
+    small = np.flatnonzero(magnitude < _SMALL_END)
+    if small.size:
         a = magnitude[small]
         squared = a * a
         ratio = _polynomial(squared, _SMALL_P) / _polynomial(squared, _SMALL_Q)
@@ -138,8 +162,8 @@ def _erf_of_magnitude(magnitude: np.ndarray, *, complement: bool) -> np.ndarray:
         else:
             result[small] = a + a * ratio
 
-    middle = (magnitude >= _SMALL_END) & (magnitude < _MIDDLE_END)
-    if middle.any():
+    middle = np.flatnonzero((magnitude >= _SMALL_END) & (magnitude < _MIDDLE_END))
+    if middle.size:
         shifted = magnitude[middle] - 1.0
         ratio = _polynomial(shifted, _MIDDLE_P) / _polynomial(shifted, _MIDDLE_Q)
         if complement:
@@ -147,24 +171,25 @@ def _erf_of_magnitude(magnitude: np.ndarray, *, complement: bool) -> np.ndarray:
         else:
             result[middle] = _ERF_ONE_ROUNDED + ratio
 
-    tail = (magnitude >= _MIDDLE_END) & (magnitude < end)
-    if tail.any():
+    tail = np.flatnonzero((magnitude >= _MIDDLE_END) & (magnitude < end))
+    if tail.size:
         upper_tail = _erfc_tail(magnitude[tail])
         result[tail] = upper_tail if complement else 1.0 - upper_tail
     return result
 
 
 def _erfc_tail(a: np.ndarray) -> np.ndarray:
-    """erfc(a) for contiguous float64 a in [1.25, 28)."""
+    """erfc(a) for a 1-D contiguous float64 array of a in [1.25, 28)."""
     inverse_square = 1.0 / (a * a)
     correction = np.empty_like(a)
     near = a < _FAR_TAIL_START
-    for mask, numerator, denominator in (
-        (near, _NEAR_TAIL_R, _NEAR_TAIL_S),
-        (~near, _FAR_TAIL_R, _FAR_TAIL_S),
+    for indices, numerator, denominator in (
+        (np.flatnonzero(near), _NEAR_TAIL_R, _NEAR_TAIL_S),
+        (np.flatnonzero(~near), _FAR_TAIL_R, _FAR_TAIL_S),
     ):
-        t = inverse_square[mask]
-        correction[mask] = _polynomial(t, numerator) / _polynomial(t, denominator)
+        if indices.size:
+            t = inverse_square[indices]
+            correction[indices] = _polynomial(t, numerator) / _polynomial(t, denominator)
     truncated = (a.view(np.uint64) & _HIGH_WORD).view(np.float64)
     # exp(−a²) = exp(−z²)·exp((z − a)(z + a)); the first factor has an exact argument.
     return (

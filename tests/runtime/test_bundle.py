@@ -140,7 +140,7 @@ def test_not_a_directory(tmp_path):
 def test_write_refuses_existing_and_overwrites_atomically(bundle):
     with pytest.raises(BundleError, match="already exists"):
         linear_bundle(bundle, oscillator_matrix(), base_step=0.1, strides=(1, 4))
-    linear_bundle(bundle, oscillator_matrix(), base_step=0.2, strides=(2,))
+    linear_bundle(bundle, oscillator_matrix(), base_step=0.2, strides=(2,), overwrite=True)
     assert load(bundle).strides == (2,)
     assert [p.name for p in bundle.parent.iterdir() if p.name.startswith(".")] == []
 
@@ -155,7 +155,7 @@ def test_interrupted_write_leaves_nothing(tmp_path, monkeypatch, bundle):
     with pytest.raises(OSError, match="simulated"):
         linear_bundle(tmp_path / "new.bundle", oscillator_matrix(), base_step=0.1, strides=(1,))
     with pytest.raises(OSError, match="simulated"):
-        linear_bundle(bundle, oscillator_matrix(), base_step=0.3, strides=(1,))
+        linear_bundle(bundle, oscillator_matrix(), base_step=0.3, strides=(1,), overwrite=True)
     assert not (tmp_path / "new.bundle").exists()
     assert (bundle / "manifest.json").read_bytes() == before
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import time
 from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 from functools import lru_cache
 
 import numpy as np
@@ -168,6 +169,18 @@ def test_non_greedy_set_builds_fast_and_beats_greedy():
     assert time.perf_counter() - started < 0.25
     assert planner.steps(10**12 + 6) == ((1000, 10**9), (3, 2))
     assert StridePlanner((1, 3, 4)).steps(6) == ((3, 2),)
+
+
+def test_table_is_shared_safely_between_threads():
+    # Expected: the exact table answers equal the single-threaded ones (breadth-first search
+    # would give the same counts; checked above), whichever thread builds the table first.
+    strides = (1, 24, 25)
+    targets = list(range(0, 600, 7))
+    expected = [StridePlanner(strides).steps(n) for n in targets]
+    planner = StridePlanner(strides)
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        results = list(pool.map(planner.steps, targets * 4))
+    assert results == expected * 4
 
 
 def test_zero_target_is_empty_plan():

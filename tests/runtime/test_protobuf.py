@@ -11,10 +11,9 @@ import onnx
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
 from stridecast.runtime import protobuf
 from stridecast.runtime.errors import ModelFormatError
-from stridecast.runtime.protobuf import FieldSpec, read_message, read_varint
+from stridecast.runtime.protobuf import FieldSpec, MessageSchema, read_message, read_varint
 
 MAX_DEPTH = 16
 
@@ -38,9 +37,10 @@ def length_delimited(number: int, payload: bytes) -> bytes:
     return tag(number, 2) + varint(len(payload)) + payload
 
 
-def read(data: bytes, schema, *, depth: int = 1, max_depth: int = MAX_DEPTH) -> dict:
-    return read_message(memoryview(data), schema, where="test", message_type="TestProto",
-                        depth=depth, max_depth=max_depth)
+def read(data: bytes, schema, *, depth: int = 1, max_depth: int = MAX_DEPTH,
+         max_items: int = 1000) -> dict:
+    return read_message(memoryview(data), MessageSchema("TestProto", schema), where="test",
+                        depth=depth, max_depth=max_depth, max_items=max_items)
 
 
 SCHEMA = {
@@ -315,3 +315,19 @@ def test_deeply_nested_unknown_field_is_skipped_without_recursion() -> None:
 def test_field_spec_rejects_unknown_kinds() -> None:
     with pytest.raises(ValueError, match=r"`kind` must be one of .*, got 'uint8'\."):
         FieldSpec("x", "uint8")
+
+
+def test_repeated_fields_are_capped_by_max_items() -> None:
+    data = length_delimited(12, b"a") * 3
+    assert read(data, SCHEMA, max_items=3)["names"] == ["a", "a", "a"]
+    with pytest.raises(ModelFormatError, match=r"Field names \(12\) of test \(TestProto\) "
+                       r"occurs more than 2 times; repeated fields are limited by "
+                       r"`max_graph_nodes`, which is 2\."):
+        read(data, SCHEMA, max_items=2)
+
+
+@pytest.mark.parametrize("number", [0, 2**29])
+def test_message_schema_rejects_impossible_field_numbers(number: int) -> None:
+    with pytest.raises(ValueError, match=rf"Field numbers must lie in 1\.\.536870911, got "
+                       rf"{number}\."):
+        MessageSchema("Bad", {number: FieldSpec("x", "int64")})

@@ -62,6 +62,9 @@ def test_schedule_matches_brute_force(strides, data):
     np.testing.assert_array_equal(result, expected)
     assert len(calls) == schedule.calls
     assert len(set((depth, stride) for depth, stride, _ in calls)) == len(calls)
+    # `depth` counts the steps the inputs already took: waves 0, 1, ..., depth - 1 in order.
+    assert sorted(set(depth for depth, _, _ in calls)) == list(range(schedule.depth))
+    assert [depth for depth, _, _ in calls] == sorted(depth for depth, _, _ in calls)
     assert sum(size for _, _, size in calls) == schedule.evaluations * len(initial)
 
 
@@ -73,7 +76,7 @@ def test_structure_of_a_small_schedule():
     assert schedule.node_count == 6
     assert schedule.evaluations == 5
     assert schedule.depth == 3
-    assert schedule.calls == 5  # depth 1: strides 4 and 1; depth 2: 4 and 1; depth 3: 1
+    assert schedule.calls == 5  # nodes at depth 1: strides 4, 1; depth 2: 4, 1; depth 3: 1
     assert [[stride for stride, _, _ in wave] for wave in schedule.waves] == [[4, 1], [4, 1], [1]]
     assert schedule.target_nodes[0] == 0
     for stride_group in (group for wave in schedule.waves for group in wave):
@@ -101,19 +104,20 @@ def test_check_and_step_see_depth_and_stride():
     schedule = build_schedule([3], planner)
 
     def step(stride, states, depth):
-        return np.full_like(states, np.nan) if depth == 2 else states + stride
+        return np.full_like(states, np.nan) if depth == 1 else states + stride
 
     def check(depth, stride, outputs):
         if not np.isfinite(outputs).all():
             raise StateError(f"non-finite at depth {depth}, stride {stride}.")
 
-    with pytest.raises(StateError, match=r"non-finite at depth 2, stride 1\."):
+    # Plan for 3 is (2, 1): the second step (depth 1: one step already taken) has stride 1.
+    with pytest.raises(StateError, match=r"non-finite at depth 1, stride 1\."):
         run_schedule(schedule, np.zeros((1, 1)), step, check)
 
 
 def test_wrong_step_shape_is_reported():
     schedule = build_schedule([2], StridePlanner((2,)))
-    with pytest.raises(StateError, match=r"stride 2 at depth 1 must return shape \(3, 2\)"):
+    with pytest.raises(StateError, match=r"stride 2 at depth 0 must return shape \(3, 2\)"):
         run_schedule(schedule, np.zeros((3, 2)), lambda stride, states, depth: states[:1])
 
 

@@ -1,0 +1,205 @@
+"""Validation of everything `export_bundle` is given, in one place.
+
+Each check names the argument, the value received and what was expected; the result is a frozen
+`ExportSpec` the rest of the exporter trusts.
+"""
+
+from __future__ import annotations
+
+import math
+import operator
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from stridecast.runtime.errors import BundleError
+from stridecast.runtime.manifest import UPDATE_FORMS
+
+EXPORTERS = ("auto", "dynamo", "legacy")
+
+
+@dataclass(frozen=True)
+class ExportSpec:
+    """The checked, bundle-level facts of one export (everything except the modules)."""
+
+    strides: tuple[int, ...]
+    state_dim: int
+    base_step: float
+    mean: tuple[float, ...]
+    scale: tuple[float, ...]
+    update: str
+    state_names: tuple[str, ...]
+    state_units: tuple[str, ...]
+    time_unit: str
+    name: str
+    description: str
+    envelope_min: tuple[float, ...] | None
+    envelope_max: tuple[float, ...] | None
+    validated_horizon: float | None
+
+
+def level_pairs(levels: Mapping[Any, Any] | Iterable[tuple[Any, Any]]) -> list[tuple[int, Any]]:
+    """Return `levels` as (stride, module) pairs, refusing bad or repeated strides.
+
+    Accepts a mapping or an iterable of pairs (the latter so a repeated stride can be seen
+    and refused rather than silently collapsed by a dict).
+    """
+    items = list(levels.items()) if isinstance(levels, Mapping) else list(levels)
+    if not items:
+        raise BundleError("`levels` is empty; expected at least one stride with its module.")
+    pairs: list[tuple[int, Any]] = []
+    seen: set[int] = set()
+    for item in items:
+        if not isinstance(item, tuple | list) or len(item) != 2:
+            raise BundleError(
+                f"`levels` must map strides to modules; got the entry {item!r}."
+            )
+        stride = check_stride(item[0])
+        if stride in seen:
+            raise BundleError(f"`levels` repeats stride {stride}; strides must be distinct.")
+        seen.add(stride)
+        pairs.append((stride, item[1]))
+    return sorted(pairs, key=lambda pair: pair[0])
+
+
+def check_stride(value: Any) -> int:
+    """A stride as a positive int, or `BundleError` naming the value."""
+    if isinstance(value, bool | float | str | bytes):
+        raise BundleError(f"stride {value!r} is not an integer; strides are whole base steps.")
+    try:
+        stride = operator.index(value)
+    except TypeError as error:
+        raise BundleError(
+            f"stride {value!r} is not an integer; strides are whole base steps."
+        ) from error
+    if stride <= 0:
+        raise BundleError(f"stride {stride} must be a positive number of base steps.")
+    return stride
+
+
+def check_base_step(value: Any) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float | np.floating | np.integer):
+        raise BundleError(f"`base_step` is {value!r}; expected a finite number > 0.")
+    base_step = float(value)
+    if not math.isfinite(base_step) or base_step <= 0:
+        raise BundleError(f"`base_step` is {value!r}; expected a finite number > 0.")
+    return base_step
+
+
+def finite_vector(values: Any, where: str, dim: int | None = None) -> tuple[float, ...]:
+    """A 1-D sequence of finite floats of length `dim` (when given)."""
+    try:
+        array = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError) as error:
+        raise BundleError(f"`{where}` is {values!r}; expected a list of numbers.") from error
+    if array.ndim != 1 or array.size == 0:
+        raise BundleError(f"`{where}` has shape {array.shape}; expected a non-empty 1-D list.")
+    if dim is not None and array.size != dim:
+        raise BundleError(f"`{where}` has {array.size} entries; the state has {dim}.")
+    bad = np.flatnonzero(~np.isfinite(array))
+    if bad.size:
+        raise BundleError(
+            f"`{where}` must be finite; entry {int(bad[0])} is {array[bad[0]]!r}."
+        )
+    return tuple(float(v) for v in array)
+
+
+def check_scale(values: Any, dim: int) -> tuple[float, ...]:
+    scale = finite_vector(values, "scale", dim)
+    bad = [index for index, value in enumerate(scale) if value <= 0]
+    if bad:
+        raise BundleError(
+            f"`scale` must be > 0 in every component; entry {bad[0]} is {scale[bad[0]]!r}."
+        )
+    return scale
+
+
+def check_strings(values: Any, where: str, dim: int, *, distinct: bool) -> tuple[str, ...]:
+    if isinstance(values, str) or not isinstance(values, Sequence):
+        raise BundleError(f"`{where}` is {values!r}; expected a list of {dim} strings.")
+    if len(values) != dim or not all(isinstance(value, str) for value in values):
+        raise BundleError(f"`{where}` is {list(values)!r}; expected a list of {dim} strings.")
+    if distinct and len(set(values)) != dim:
+        raise BundleError(f"`{where}` must be distinct; got {list(values)!r}.")
+    return tuple(values)
+
+
+def check_envelope(envelope: Any, dim: int) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    """An envelope given as (min, max) or {"min": ..., "max": ...}."""
+    if isinstance(envelope, Mapping):
+        if set(envelope) != {"min", "max"}:
+            raise BundleError(
+                f"`envelope` has keys {sorted(envelope)}; expected exactly ['max', 'min']."
+            )
+        lower, upper = envelope["min"], envelope["max"]
+    elif isinstance(envelope, Sequence) and len(envelope) == 2:
+        lower, upper = envelope
+    else:
+        raise BundleError(f"`envelope` is {envelope!r}; expected (min, max) or a min/max mapping.")
+    lower = finite_vector(lower, "envelope min", dim)
+    upper = finite_vector(upper, "envelope max", dim)
+    crossed = [index for index in range(dim) if lower[index] > upper[index]]
+    if crossed:
+        raise BundleError(
+            f"`envelope` min exceeds max in component {crossed[0]} "
+            f"({lower[crossed[0]]!r} > {upper[crossed[0]]!r})."
+        )
+    return lower, upper
+
+
+def check_update(update: Any) -> str:
+    if update not in UPDATE_FORMS:
+        raise BundleError(f"`update` is {update!r}; expected one of {list(UPDATE_FORMS)}.")
+    return update
+
+
+def check_exporter(exporter: Any) -> str:
+    if exporter not in EXPORTERS:
+        raise BundleError(f"`exporter` is {exporter!r}; expected one of {list(EXPORTERS)}.")
+    return exporter
+
+
+def declared_state_dim(*, mean: Any, scale: Any, state_names: Any, units: Any,
+                       envelope: Any) -> int | None:
+    """The state dimension implied by the first of these arguments that is given, if any."""
+    for where, value in (("mean", mean), ("scale", scale)):
+        if value is not None:
+            return len(finite_vector(value, where))
+    for value in (state_names, units):
+        if value is not None and isinstance(value, Sequence) and not isinstance(value, str):
+            return len(value)
+    if isinstance(envelope, Mapping) and "min" in envelope:
+        return len(finite_vector(envelope["min"], "envelope min"))
+    if isinstance(envelope, Sequence) and len(envelope) == 2:
+        return len(finite_vector(envelope[0], "envelope min"))
+    return None
+
+
+def build_spec(*, strides: Sequence[int], state_dim: int, base_step: Any, mean: Any, scale: Any,
+               update: Any, state_names: Any, units: Any, time_unit: Any, name: Any,
+               description: Any, envelope: Any, validated_horizon: Any) -> ExportSpec:
+    """Check every bundle-level argument against `state_dim` and return an `ExportSpec`."""
+    mean = (0.0,) * state_dim if mean is None else finite_vector(mean, "mean", state_dim)
+    scale = (1.0,) * state_dim if scale is None else check_scale(scale, state_dim)
+    names = (tuple(f"x{index}" for index in range(state_dim)) if state_names is None
+             else check_strings(state_names, "state_names", state_dim, distinct=True))
+    state_units = (("",) * state_dim if units is None
+                   else check_strings(units, "units", state_dim, distinct=False))
+    lower = upper = None
+    if envelope is not None:
+        lower, upper = check_envelope(envelope, state_dim)
+    for where, value in (("time_unit", time_unit), ("name", name), ("description", description)):
+        if not isinstance(value, str):
+            raise BundleError(f"`{where}` is {value!r}; expected a string.")
+    horizon = None
+    if validated_horizon is not None:
+        horizon = finite_vector([validated_horizon], "validated_horizon")[0]
+        if horizon < 0:
+            raise BundleError(f"`validated_horizon` is {horizon!r}; expected ≥ 0 or None.")
+    return ExportSpec(
+        strides=tuple(strides), state_dim=state_dim, base_step=check_base_step(base_step),
+        mean=mean, scale=scale, update=check_update(update), state_names=names,
+        state_units=state_units, time_unit=time_unit, name=name, description=description,
+        envelope_min=lower, envelope_max=upper, validated_horizon=horizon,
+    )

@@ -1,0 +1,278 @@
+"""`export_bundle`: torch modules in, a verified bundle directory out.
+
+Every level goes to in-memory ONNX bytes, the bundle is written by the runtime's `write_bundle`
+into a private staging directory beside `out`, loaded back with `stridecast.runtime.load`,
+compared with torch (and onnxruntime), and only then renamed into place.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import os
+import shutil
+import tempfile
+from collections.abc import Iterable, Mapping
+from pathlib import Path
+from typing import Any
+
+import onnx
+import torch
+from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
+from stridecast.runtime.bundle import REPORT_NAME
+from stridecast.runtime.errors import BundleError
+
+import stridecast
+
+from . import plots
+from .arguments import build_spec, check_exporter, declared_state_dim, level_pairs
+from .onnx_export import EXAMPLE_BATCH, export_level, infer_state_dim, prepare_level
+from .trained import TrainedLevels
+from .verify import DEFAULT_SAMPLES, Tolerance, normalised_example, sample_states, verify_levels
+
+logger = logging.getLogger(__name__)
+_PLACEHOLDER_SHA = "0" * 64
+
+
+def export_bundle(
+    levels: Mapping[int, Any] | Iterable[tuple[int, Any]] | TrainedLevels,
+    out: str | os.PathLike[str],
+    *,
+    base_step: float | None = None,
+    mean: Any = None,
+    scale: Any = None,
+    update: str = "increment",
+    state_names: Any = None,
+    units: Any = None,
+    time_unit: str = "s",
+    name: str | None = None,
+    description: str | None = None,
+    envelope: Any = None,
+    validation: Mapping[str, Any] | None = None,
+    overwrite: bool = False,
+    exporter: str = "auto",
+    opset: int | None = None,
+    verify_samples: int = DEFAULT_SAMPLES,
+    verify_states: Any = None,
+    tolerance: Tolerance | None = None,
+    seed: int = 0,
+) -> Path:
+    """Export one torch network per stride into a verified stridecast bundle.
+
+    Parameters
+    ----------
+    levels : mapping of int to module, or TrainedLevels
+        Stride (positive int, in base steps) to a `torch.nn.Module` (TorchScript included)
+        or `torch.export.ExportedProgram` mapping normalised states (B, d) → (B, d). A
+        `TrainedLevels` brings its own normalisation, update form, base step, envelope and
+        validation figures.
+    out : path
+        The bundle directory to create.
+    base_step : float
+        Time of one base step (required unless `levels` is a `TrainedLevels`).
+    mean, scale : array_like, shape (d,), optional
+        Normalisation z = (x − mean) / scale (default 0 and 1); scale > 0, all finite.
+    update : {"increment", "replace"}
+        z' = z + N(z) or z' = N(z).
+    state_names, units : list of str, optional
+        Default "x0", "x1", ... and empty units.
+    time_unit, name, description : str
+        Manifest text; `name` defaults to the directory name.
+    envelope : (min, max) or {"min": ..., "max": ...}, optional
+        The range the training data covered; verification states are drawn in it.
+    validation : dict, optional
+        Held-out figures for report.json; its "validated_horizon" goes into the manifest.
+    overwrite : bool
+        Replace an existing bundle (moved aside first, restored on failure).
+    exporter : {"auto", "dynamo", "legacy"}
+        "auto" uses torch's dynamo exporter (torch.export based) and the legacy TorchScript
+        exporter only for TorchScript modules, which torch.export cannot trace.
+    opset : int, optional
+        ONNX opset to target (default: the exporter's own default).
+    verify_samples : int
+        Number of verification states (default 512).
+    verify_states : array_like, shape (M, d), optional
+        Physical states to verify on instead of drawing in the envelope.
+    tolerance : Tolerance, optional
+        Float32 tolerance of the comparison (docs/export.md).
+    seed : int
+        Seed of the verification draw.
+
+    Returns
+    -------
+    Path
+        `out`.
+
+    Raises
+    ------
+    BundleError
+        Bad arguments (stride, normalisation, shapes, names), an existing `out` without
+        `overwrite`, or an exporter failure; nothing is written.
+    VerificationError
+        torch, the runtime and onnxruntime disagree; nothing is left under `out`.
+    """
+    trained = levels if isinstance(levels, TrainedLevels) else None
+    if trained is not None:
+        base_step, mean, scale, envelope, validation, state_names, units = _from_trained(
+            trained, base_step=base_step, mean=mean, scale=scale, update=update,
+            envelope=envelope, validation=validation, state_names=state_names, units=units)
+        pairs = level_pairs(trained.levels)
+    else:
+        pairs = level_pairs(levels)
+    if base_step is None:
+        raise BundleError("`base_step` is required: the time of one base step (> 0).")
+    exporter = check_exporter(exporter)
+    validation = _json_ready(validation, "validation")
+    target = Path(out)
+    _check_target(target, overwrite)
+
+    state_dim = declared_state_dim(mean=mean, scale=scale, state_names=state_names, units=units,
+                                   envelope=envelope)
+    if state_dim is None:
+        state_dim = _inferred_state_dim(pairs)
+    horizon = None if validation is None else validation.get("validated_horizon")
+    spec = build_spec(
+        strides=[stride for stride, _ in pairs], state_dim=state_dim, base_step=base_step,
+        mean=mean, scale=scale, update=update, state_names=state_names, units=units,
+        time_unit=time_unit, name=_default_name(target) if name is None else name,
+        description="" if description is None else description, envelope=envelope,
+        validated_horizon=horizon,
+    )
+    sample = sample_states(spec, samples=verify_samples, seed=seed, states=verify_states)
+    example = normalised_example(spec, sample, EXAMPLE_BATCH)
+    prepared = {stride: prepare_level(stride, level, state_dim, example)
+                for stride, level in pairs}
+    exported = {}
+    for stride in spec.strides:
+        exported[stride] = export_level(prepared[stride], state_dim=state_dim,
+                                        exporter=exporter, example=example, opset=opset)
+        logger.info("exported stride %d with the %s exporter (opset %d, %d nodes)", stride,
+                    exported[stride].exporter, exported[stride].opset,
+                    len(exported[stride].operators))
+
+    manifest = Manifest(
+        state_names=spec.state_names, state_units=spec.state_units, base_step=spec.base_step,
+        mean=spec.mean, scale=spec.scale, update=spec.update, time_unit=spec.time_unit,
+        name=spec.name, description=spec.description, envelope_min=spec.envelope_min,
+        envelope_max=spec.envelope_max, validated_horizon=spec.validated_horizon,
+        levels=tuple(LevelEntry(stride=stride, file="", sha256=_PLACEHOLDER_SHA)
+                     for stride in spec.strides),
+        producer=_producer(exported.values()),
+    )
+    target.parent.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.export-", dir=target.parent))
+    try:
+        staged = write_bundle(staging / "bundle", manifest,
+                              {stride: level.onnx_bytes for stride, level in exported.items()})
+        stepper = load(staged, dtype="float32", verify=True)
+        verification = verify_levels(stepper, prepared, exported, spec, sample,
+                                     tolerance or Tolerance())
+        report = {"verification": verification, "validation": validation}
+        if trained is not None:
+            report["training"] = {"settings": dict(trained.settings),
+                                  "history": trained.history_json()}
+            if trained.forecast_example is not None:
+                report["plots"] = plots.write_plots(staged, trained.forecast_example,
+                                                    validation, spec.state_names,
+                                                    time_unit=spec.time_unit)
+        (staged / REPORT_NAME).write_text(json.dumps(report, indent=2, allow_nan=False) + "\n",
+                                          encoding="utf-8")
+        _check_target(target, overwrite)
+        _move_into_place(staged, target)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+    logger.info("wrote bundle %s (strides %s)", target, list(spec.strides))
+    return target
+
+
+def _from_trained(trained: TrainedLevels, *, base_step, mean, scale, update, envelope,
+                  validation, state_names, units) -> tuple:
+    """Take the trained normalisation; refuse arguments that would contradict it."""
+    for where, given in (("mean", mean), ("scale", scale)):
+        if given is not None:
+            raise BundleError(
+                f"`{where}` cannot be given with TrainedLevels: the networks were trained with "
+                "the normalisation they carry."
+            )
+    if base_step is not None and float(base_step) != trained.base_step:
+        raise BundleError(
+            f"`base_step` is {base_step!r} but the levels were trained at base step "
+            f"{trained.base_step!r}."
+        )
+    if update != trained.update:
+        raise BundleError(
+            f"`update` is {update!r} but the levels were trained with {trained.update!r}."
+        )
+    if envelope is None and trained.envelope_min is not None:
+        envelope = (trained.envelope_min, trained.envelope_max)
+    return (trained.base_step, trained.mean, trained.scale, envelope,
+            trained.validation if validation is None else validation,
+            trained.state_names if state_names is None else state_names,
+            trained.state_units if units is None else units)
+
+
+def _inferred_state_dim(pairs: list[tuple[int, Any]]) -> int:
+    for _, level in pairs:
+        dim = infer_state_dim(level)
+        if dim is not None:
+            return dim
+    raise BundleError(
+        "the state dimension cannot be inferred from the modules; pass `mean`/`scale` or "
+        "`state_names`."
+    )
+
+
+def _check_target(target: Path, overwrite: bool) -> None:
+    if target.exists() or target.is_symlink():
+        if not overwrite:
+            raise BundleError(
+                f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to "
+                "replace it."
+            )
+        if target.is_symlink() or not target.is_dir():
+            raise BundleError(
+                f"{str(target)!r} exists and is not a directory; refusing to replace it."
+            )
+
+
+def _move_into_place(staged: Path, target: Path) -> None:
+    """Rename the verified bundle into place; an existing one is moved aside, then removed."""
+    if not target.exists():
+        os.rename(staged, target)
+        return
+    aside = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
+    os.rmdir(aside)
+    os.rename(target, aside)
+    try:
+        os.rename(staged, target)
+    except BaseException:
+        os.rename(aside, target)
+        raise
+    shutil.rmtree(aside, ignore_errors=True)
+
+
+def _default_name(target: Path) -> str:
+    return target.name.removesuffix(".bundle") or target.name
+
+
+def _json_ready(value: Mapping[str, Any] | None, where: str) -> dict[str, Any] | None:
+    if value is None:
+        return None
+    if not isinstance(value, Mapping):
+        raise BundleError(f"`{where}` is a {type(value).__name__}; expected a mapping.")
+    try:
+        return json.loads(json.dumps(value, allow_nan=False))
+    except (TypeError, ValueError) as error:
+        raise BundleError(f"`{where}` must be JSON-serialisable with finite numbers: "
+                          f"{error}.") from error
+
+
+def _producer(exported: Iterable[Any]) -> dict[str, Any]:
+    exported = list(exported)
+    return {
+        "stridecast": stridecast.__version__,
+        "torch": torch.__version__,
+        "onnx": onnx.__version__,
+        "opset": max(level.opset for level in exported),
+        "exporter": {str(level.stride): level.exporter for level in exported},
+    }

@@ -1,0 +1,84 @@
+"""PNG figures beside report.json: forecast against held-out truth, and error against horizon.
+
+matplotlib is optional; without it no figure is written and the report says so.
+"""
+
+from __future__ import annotations
+
+import importlib
+import logging
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .trained import ForecastExample
+
+logger = logging.getLogger(__name__)
+FORECAST_PNG = "forecast.png"
+ERROR_PNG = "error-vs-horizon.png"
+
+
+def write_plots(directory: Path, example: ForecastExample, validation: Mapping[str, Any] | None,
+                state_names: Sequence[str], *, time_unit: str = "s") -> list[str]:
+    """Write the figures into `directory` and return their file names ([] without matplotlib)."""
+    figure_class = _figure_class()
+    if figure_class is None:
+        logger.info("matplotlib is not installed; no plots were written")
+        return []
+    written = [_forecast_figure(figure_class, directory, example, state_names, time_unit)]
+    horizons = (validation or {}).get("horizons") or []
+    if horizons:
+        written.append(_error_figure(figure_class, directory, horizons, time_unit))
+    return written
+
+
+def _figure_class() -> Any:
+    """matplotlib's `Figure`, used without pyplot so no global backend is touched."""
+    try:
+        return importlib.import_module("matplotlib.figure").Figure
+    except ImportError:
+        return None
+
+
+def _forecast_figure(figure_class: Any, directory: Path, example: ForecastExample,
+                     state_names: Sequence[str], time_unit: str) -> str:
+    dim = example.truth.shape[1]
+    figure = figure_class(figsize=(8, 2.2 * dim + 0.6))
+    axes = figure.subplots(dim, 1, sharex=True, squeeze=False)
+    for component, axis in enumerate(axes[:, 0]):
+        axis.plot(example.times, example.truth[:, component], color="black", lw=1.6,
+                  label="held-out truth")
+        axis.plot(example.times, example.hierarchical[:, component], color="tab:blue",
+                  lw=1.1, ls="--", label="hierarchical forecast")
+        axis.plot(example.times, example.finest_only[:, component], color="tab:orange",
+                  lw=1.0, ls=":", label="finest level only")
+        axis.set_ylabel(state_names[component])
+    axes[0, 0].legend(loc="upper right", fontsize="small")
+    axes[-1, 0].set_xlabel(f"time [{time_unit}]")
+    figure.suptitle("Forecast from the first held-out state")
+    figure.tight_layout()
+    figure.savefig(directory / FORECAST_PNG, dpi=110)
+    return FORECAST_PNG
+
+
+def _error_figure(figure_class: Any, directory: Path, horizons: Sequence[Mapping[str, Any]],
+                  time_unit: str) -> str:
+    times = np.array([row["time"] for row in horizons], dtype=float)
+    figure = figure_class(figsize=(6.5, 4.2))
+    axis = figure.subplots()
+    for key, label, style in (("hierarchical_rmse", "hierarchical", "o-"),
+                              ("finest_only_rmse", "finest level only", "s--")):
+        values = np.array([row[key] for row in horizons], dtype=float)
+        axis.plot(times, values, style, label=label)
+    axis.set_xscale("log")
+    axis.set_yscale("log")
+    axis.set_xlabel(f"horizon [{time_unit}]")
+    axis.set_ylabel("RMSE (normalised units)")
+    axis.set_title("Held-out error against horizon")
+    axis.grid(True, which="both", alpha=0.3)
+    axis.legend()
+    figure.tight_layout()
+    figure.savefig(directory / ERROR_PNG, dpi=110)
+    return ERROR_PNG

@@ -1,0 +1,89 @@
+"""`TrainedLevels`: what `train_levels` returns and `export_bundle` accepts directly.
+
+Kept apart from the training loop so the exporter can recognise it without importing training.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import torch
+
+
+@dataclass(frozen=True)
+class ForecastExample:
+    """One held-out trajectory with its forecasts, for the plots beside report.json.
+
+    Arrays are physical units, shape (len(times), d); `times` in the bundle's time unit.
+    """
+
+    times: np.ndarray
+    truth: np.ndarray
+    hierarchical: np.ndarray
+    finest_only: np.ndarray
+
+
+@dataclass(frozen=True)
+class TrainedLevels:
+    """Networks trained per stride, with everything a bundle needs to describe them.
+
+    Attributes
+    ----------
+    levels : mapping of int to torch.nn.Module
+        Stride (base steps) to the network N, acting on normalised states (B, d) → (B, d).
+    mean, scale : tuple of float, length d
+        Normalisation from the training split: the networks see z = (x − mean) / scale.
+    base_step : float
+        Time of one base step (the sampling interval of the trajectories).
+    update : str
+        "increment": z' = z + N(z).
+    history : mapping of int to dict
+        Per stride: losses per epoch and final one-step errors (see `train_levels`).
+    validation : dict or None
+        Held-out figures (JSON-ready); None without held-out data.
+    envelope_min, envelope_max : tuple of float or None
+        Per-component range of the training split.
+    state_names, state_units : tuple of str or None
+        From the data file, when it had them.
+    settings : dict
+        The training settings, JSON-ready, for the report.
+    forecast_example : ForecastExample or None
+        Data for the forecast plot (not written to JSON).
+    """
+
+    levels: Mapping[int, torch.nn.Module]
+    mean: tuple[float, ...]
+    scale: tuple[float, ...]
+    base_step: float
+    update: str = "increment"
+    history: Mapping[int, Mapping[str, Any]] = field(default_factory=dict)
+    validation: Mapping[str, Any] | None = None
+    envelope_min: tuple[float, ...] | None = None
+    envelope_max: tuple[float, ...] | None = None
+    state_names: tuple[str, ...] | None = None
+    state_units: tuple[str, ...] | None = None
+    settings: Mapping[str, Any] = field(default_factory=dict)
+    forecast_example: ForecastExample | None = field(default=None, repr=False, compare=False)
+
+    @property
+    def strides(self) -> tuple[int, ...]:
+        """Strides in base steps, finest first."""
+        return tuple(sorted(self.levels))
+
+    @property
+    def state_dim(self) -> int:
+        return len(self.mean)
+
+    @property
+    def validated_horizon(self) -> float | None:
+        """Longest held-out horizon validated, in time units (None without validation)."""
+        if not self.validation:
+            return None
+        return self.validation.get("validated_horizon")
+
+    def history_json(self) -> dict[str, Any]:
+        """`history` with string keys, ready for JSON."""
+        return {str(stride): dict(entry) for stride, entry in sorted(self.history.items())}

@@ -1,0 +1,315 @@
+"""`train_levels`: one increment MLP per stride, trained on windows cut from trajectories.
+
+Each level minimises the one-step mean squared error plus the mean squared error of a rollout
+of `rollout` steps at its own stride, in normalised units. Normalisation comes from the
+training split; held-out trajectories give the validation figures of the bundle.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import operator
+import sys
+import time
+from collections.abc import Sequence
+from dataclasses import asdict, dataclass
+from typing import Any
+
+import numpy as np
+import torch
+from stridecast.runtime.errors import BundleError
+from torch import nn
+from tqdm.auto import tqdm
+
+from . import evaluation
+from .arguments import check_base_step, check_stride, check_strings
+from .data import check_length, check_trajectories
+from .errors import TrainingError
+from .networks import ACTIVATIONS, increment_mlp, parameter_count
+from .trained import TrainedLevels
+from .windows import gather_windows, normalisation, spaced_subset, split_trajectories, window_starts
+
+logger = logging.getLogger(__name__)
+# Windows used for per-epoch validation losses and final one-step errors (evenly spaced).
+EVALUATION_WINDOWS = 8192
+# The learning rate decays on a cosine to this fraction of its start, for a precise finish.
+FINAL_LEARNING_RATE_FRACTION = 0.01
+
+
+@dataclass(frozen=True)
+class TrainingSettings:
+    """Checked training settings (JSON-ready through `dataclasses.asdict`)."""
+
+    hidden: tuple[int, ...]
+    activation: str
+    rollout: int
+    epochs: int
+    batch_size: int
+    learning_rate: float
+    validation_fraction: float
+    max_windows_per_epoch: int | None
+    seed: int
+    select_levels: bool
+
+
+def train_levels(
+    trajectories: Any,
+    *,
+    base_step: float,
+    strides: Sequence[int],
+    hidden: Sequence[int] = (128, 128, 128),
+    activation: str = "tanh",
+    rollout: int = 4,
+    epochs: int = 50,
+    batch_size: int = 256,
+    validation_fraction: float = 0.1,
+    seed: int = 0,
+    progress: bool = True,
+    learning_rate: float = 1e-3,
+    select_levels: bool = False,
+    max_windows_per_epoch: int | None = 65536,
+    state_names: Sequence[str] | None = None,
+    state_units: Sequence[str] | None = None,
+) -> TrainedLevels:
+    """Train one network per stride on trajectories sampled every `base_step`.
+
+    Parameters
+    ----------
+    trajectories : array_like, shape (N, T, d) or (T, d)
+        States sampled every base step; whole trajectories are held out for validation.
+    base_step : float
+        Time between samples.
+    strides : sequence of int
+        Distinct positive strides, in base steps.
+    hidden, activation
+        Hidden widths and activation (a key of `networks.ACTIVATIONS`) of each level's MLP.
+    rollout : int
+        Steps of the multi-step loss; trajectories need rollout · max(strides) + 1 samples.
+    epochs, batch_size, learning_rate
+        Adam with a cosine decay to 1 % of `learning_rate` over all batches.
+    validation_fraction : float
+        Share of trajectories held out, in [0, 1) (a single trajectory is split in time).
+    seed : int
+        Seeds initialisation, the split and shuffling; the result is reproducible on the same
+        machine and thread count. The global torch RNG is left as it was.
+    progress : bool
+        Show a progress bar on stderr.
+    select_levels : bool
+        Drop coarse levels whose inclusion worsens the held-out hierarchical error.
+    max_windows_per_epoch : int or None
+        Cap on the windows one epoch visits (a fresh random subset each epoch).
+    state_names, state_units : sequence of str, optional
+        Carried into the bundle.
+
+    Returns
+    -------
+    TrainedLevels
+        Networks, normalisation, per-level `history` and held-out `validation` figures.
+    """
+    data = check_trajectories(trajectories)
+    settings = _check_settings(hidden=hidden, activation=activation, rollout=rollout,
+                               epochs=epochs, batch_size=batch_size, learning_rate=learning_rate,
+                               validation_fraction=validation_fraction,
+                               max_windows_per_epoch=max_windows_per_epoch, seed=seed,
+                               select_levels=select_levels)
+    base_step = check_base_step(base_step)
+    strides = _check_strides(strides)
+    dim = data.shape[2]
+    names = None if state_names is None else check_strings(state_names, "state_names", dim,
+                                                           distinct=True)
+    units = None if state_units is None else check_strings(state_units, "state_units", dim,
+                                                           distinct=False)
+    check_length(data.shape[1], strides, settings.rollout, where="the trajectories")
+    split = split_trajectories(data, settings.validation_fraction, settings.seed)
+    check_length(split.train.shape[1], strides, settings.rollout,
+                 where="the training trajectories (after the time split)")
+    mean, scale = normalisation(split.train)
+    train = torch.from_numpy(((split.train - mean) / scale).astype(np.float32))
+    held_out = None if split.held_out is None else torch.from_numpy(
+        ((split.held_out - mean) / scale).astype(np.float32))
+
+    levels, history = {}, {}
+    for stride in strides:
+        levels[stride], history[stride] = _train_level(stride, train, held_out, settings,
+                                                       progress=progress)
+    validation, example = None, None
+    if held_out is not None:
+        validation, example = _validate(levels, held_out, settings, base_step, mean, scale,
+                                        split.description)
+        levels = {stride: levels[stride] for stride in validation["strides"]}
+    return TrainedLevels(
+        levels=levels, mean=tuple(map(float, mean)), scale=tuple(map(float, scale)),
+        base_step=base_step, update="increment", history=history, validation=validation,
+        envelope_min=tuple(map(float, split.train.min(axis=(0, 1)))),
+        envelope_max=tuple(map(float, split.train.max(axis=(0, 1)))),
+        state_names=names, state_units=units,
+        settings={**asdict(settings), "hidden": list(settings.hidden),
+                  "strides": list(strides), "base_step": base_step},
+        forecast_example=example,
+    )
+
+
+def _validate(levels: dict[int, nn.Module], held_out: torch.Tensor, settings: TrainingSettings,
+              base_step: float, mean: np.ndarray, scale: np.ndarray,
+              split: dict[str, Any]) -> tuple[dict[str, Any], Any]:
+    selection = None
+    if settings.select_levels:
+        kept, decisions = evaluation.select_levels(levels, held_out)
+        selection = {"kept": list(kept), "decisions": decisions}
+        for decision in decisions:
+            logger.info("level selection: stride %d %s (mean held-out RMSE %s with, %s without)",
+                        decision["stride"], "kept" if decision["kept"] else "dropped",
+                        decision["mean_rmse_with"], decision["mean_rmse_without"])
+        levels = {stride: levels[stride] for stride in kept}
+    figures = evaluation.held_out_figures(levels, held_out, base_step=base_step, scale=scale)
+    figures.update({"strides": sorted(levels), "split": split, "selection": selection})
+    example = evaluation.forecast_example(levels, held_out[0], base_step=base_step, mean=mean,
+                                          scale=scale)
+    return figures, example
+
+
+def _train_level(stride: int, train: torch.Tensor, held_out: torch.Tensor | None,
+                 settings: TrainingSettings, *, progress: bool) -> tuple[nn.Module, dict]:
+    """Train the network of one stride; return it (eval mode) and its history."""
+    started = time.perf_counter()
+    level_seed = settings.seed * 1_000_003 + stride  # independent of which other levels exist
+    with torch.random.fork_rng(devices=[]):
+        torch.manual_seed(level_seed)
+        model = increment_mlp(train.shape[2], settings.hidden, settings.activation)
+    generator = torch.Generator().manual_seed(level_seed)
+    starts = torch.from_numpy(window_starts(train.shape[0], train.shape[1], stride,
+                                            settings.rollout))
+    per_epoch = min(len(starts), settings.max_windows_per_epoch or len(starts))
+    batches = math.ceil(per_epoch / settings.batch_size)
+    optimizer = torch.optim.Adam(model.parameters(), lr=settings.learning_rate)
+    schedule = torch.optim.lr_scheduler.CosineAnnealingLR(
+        optimizer, T_max=settings.epochs * batches,
+        eta_min=settings.learning_rate * FINAL_LEARNING_RATE_FRACTION)
+    check_starts = _evaluation_starts(held_out, stride, settings.rollout)
+    train_losses, validation_losses = [], []
+    bar = tqdm(total=settings.epochs * batches, desc=f"stride {stride}", unit="batch",
+               file=sys.stderr, disable=not progress, leave=False)
+    with bar:
+        for _ in range(settings.epochs):
+            order = torch.randperm(len(starts), generator=generator)[:per_epoch]
+            total = 0.0
+            for first in range(0, per_epoch, settings.batch_size):
+                windows = gather_windows(train, starts[order[first:first + settings.batch_size]],
+                                         stride, settings.rollout)
+                loss, _ = window_loss(model, windows)
+                optimizer.zero_grad(set_to_none=True)
+                loss.backward()
+                optimizer.step()
+                schedule.step()
+                total += float(loss) * len(windows)
+                bar.update(1)
+            train_losses.append(total / per_epoch)
+            if check_starts is not None:
+                validation_losses.append(_mean_loss(model, held_out, check_starts, stride,
+                                                    settings.rollout)[0])
+            bar.set_postfix(loss=f"{train_losses[-1]:.3g}")
+    model.eval()
+    train_check = starts[torch.from_numpy(spaced_subset(len(starts), EVALUATION_WINDOWS))]
+    entry = {
+        "epochs": settings.epochs,
+        "windows": len(starts),
+        "parameters": parameter_count(model),
+        "train_loss": train_losses,
+        "validation_loss": validation_losses or None,
+        "train_one_step_mse": _mean_loss(model, train, train_check, stride, settings.rollout)[1],
+        "validation_one_step_mse": None if check_starts is None else _mean_loss(
+            model, held_out, check_starts, stride, settings.rollout)[1],
+        "seconds": round(time.perf_counter() - started, 3),
+    }
+    logger.info("stride %d: train loss %.3g, validation loss %s, one-step MSE %.3g (train)",
+                stride, train_losses[-1], validation_losses[-1] if validation_losses else None,
+                entry["train_one_step_mse"])
+    return model, entry
+
+
+def window_loss(model: nn.Module, windows: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    """Loss of a batch of windows (B, R + 1, d): one-step MSE + mean MSE over the rollout.
+
+    Returns the total and the one-step part.
+    """
+    state = windows[:, 0]
+    rollout_error = windows.new_zeros(())
+    one_step = None
+    for index in range(1, windows.shape[1]):
+        state = state + model(state)
+        error = torch.mean((state - windows[:, index]) ** 2)
+        one_step = error if one_step is None else one_step
+        rollout_error = rollout_error + error
+    return one_step + rollout_error / (windows.shape[1] - 1), one_step
+
+
+def _mean_loss(model: nn.Module, data: torch.Tensor, starts: torch.Tensor, stride: int,
+               rollout: int) -> tuple[float, float]:
+    with torch.no_grad():
+        total, one_step = window_loss(model, gather_windows(data, starts, stride, rollout))
+    return float(total), float(one_step)
+
+
+def _evaluation_starts(held_out: torch.Tensor | None, stride: int,
+                       rollout: int) -> torch.Tensor | None:
+    if held_out is None:
+        return None
+    starts = window_starts(held_out.shape[0], held_out.shape[1], stride, rollout)
+    if len(starts) == 0:
+        logger.info("stride %d: held-out trajectories too short for a validation loss", stride)
+        return None
+    return torch.from_numpy(starts[spaced_subset(len(starts), EVALUATION_WINDOWS)])
+
+
+def _check_strides(strides: Sequence[int]) -> tuple[int, ...]:
+    if isinstance(strides, str | bytes) or not isinstance(strides, Sequence) or not strides:
+        raise BundleError(f"`strides` is {strides!r}; expected a non-empty list of integers.")
+    checked = [check_stride(stride) for stride in strides]
+    if len(set(checked)) != len(checked):
+        raise BundleError(f"`strides` repeats a stride: {checked}; strides must be distinct.")
+    return tuple(sorted(checked))
+
+
+def _positive_int(value: Any, where: str) -> int:
+    if isinstance(value, bool):
+        raise TrainingError(f"`{where}` is {value!r}; expected a positive integer.")
+    try:
+        number = operator.index(value)
+    except TypeError as error:
+        raise TrainingError(f"`{where}` is {value!r}; expected a positive integer.") from error
+    if number <= 0:
+        raise TrainingError(f"`{where}` is {value!r}; expected a positive integer.")
+    return number
+
+
+def _check_settings(*, hidden, activation, rollout, epochs, batch_size, learning_rate,
+                    validation_fraction, max_windows_per_epoch, seed,
+                    select_levels) -> TrainingSettings:
+    if isinstance(hidden, int) or not isinstance(hidden, Sequence) or not hidden:
+        raise TrainingError(f"`hidden` is {hidden!r}; expected a non-empty list of widths.")
+    widths = tuple(_positive_int(width, "hidden") for width in hidden)
+    if activation not in ACTIVATIONS:
+        raise TrainingError(
+            f"`activation` is {activation!r}; expected one of {sorted(ACTIVATIONS)}."
+        )
+    rate = float(learning_rate) if isinstance(learning_rate, int | float) else math.nan
+    if isinstance(learning_rate, bool) or not math.isfinite(rate) or rate <= 0:
+        raise TrainingError(f"`learning_rate` is {learning_rate!r}; expected a number > 0.")
+    fraction = (float(validation_fraction)
+                if isinstance(validation_fraction, int | float) else math.nan)
+    if isinstance(validation_fraction, bool) or not 0 <= fraction < 1:
+        raise TrainingError(
+            f"`validation_fraction` is {validation_fraction!r}; expected a number in [0, 1)."
+        )
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise TrainingError(f"`seed` is {seed!r}; expected a non-negative integer.")
+    return TrainingSettings(
+        hidden=widths, activation=activation, rollout=_positive_int(rollout, "rollout"),
+        epochs=_positive_int(epochs, "epochs"),
+        batch_size=_positive_int(batch_size, "batch_size"), learning_rate=rate,
+        validation_fraction=fraction,
+        max_windows_per_epoch=None if max_windows_per_epoch is None
+        else _positive_int(max_windows_per_epoch, "max_windows_per_epoch"),
+        seed=seed, select_levels=bool(select_levels),
+    )

@@ -1,0 +1,109 @@
+"""What every handler needs: the served model, the decoded body, the gate, and warnings.
+
+Handlers stay short by delegating here; everything reads the app's state set up by `create_app`
+and its lifespan, never a module-level global.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from fastapi import Request
+
+from .body import read_body
+from .codec import DecodeError, decode_body
+from .errors import ApiError
+from .execution import Gate
+from .metrics import Metrics
+from .registry import Registry
+from .settings import Settings
+from .validation import StateRules
+
+
+def registry_of(request: Request) -> Registry:
+    return request.app.state.registry
+
+
+def metrics_of(request: Request) -> Metrics:
+    return request.app.state.metrics
+
+
+def gate_of(request: Request) -> Gate:
+    gate = getattr(request.app.state, "gate", None)
+    if gate is None:
+        raise ApiError(503, "the service has not started (its lifespan did not run); with "
+                            "TestClient, use `with TestClient(app) as client:`.")
+    return gate
+
+
+def served_stepper(request: Request, name: str) -> Any:
+    """The loaded stepper called `name`; 404 if unknown or not served, 503 while loading."""
+    registry = registry_of(request)
+    if not registry.loaded:
+        raise ApiError(503, "the service is still loading its models; try again shortly.",
+                       headers={"Retry-After": "1"})
+    entry = registry.get(name)
+    if entry is None:
+        known = [item.name for item in registry.served]
+        raise ApiError(404, f"there is no model {name!r}; the served models are {known}.")
+    if not entry.ready:
+        raise ApiError(404, f"model {name!r} is not served because it failed to load: "
+                            f"{entry.error}", code="model_unavailable")
+    return entry.stepper
+
+
+async def read_document(request: Request, settings: Settings) -> Any:
+    """Read (size-limited) and decode (safely) the request body."""
+    body = await read_body(request, max_bytes=settings.max_body_bytes)
+    try:
+        return decode_body(request.headers.get("content-type"), body,
+                           max_depth=settings.max_depth)
+    except DecodeError as error:
+        raise ApiError(error.status, error.message) from error
+
+
+def batch_rows(state: np.ndarray) -> int:
+    """How many states a `(d,)` or `(B, d)` array holds."""
+    return 1 if state.ndim == 1 else state.shape[0]
+
+
+def state_rules(stepper: Any, settings: Settings) -> StateRules:
+    return StateRules(dim=stepper.state_dim, dtype=np.dtype(stepper.dtype),
+                      max_batch=settings.max_batch)
+
+
+def envelope_warnings(stepper: Any, states: np.ndarray, what: str) -> list[str]:
+    """A warning if any of `states` (any shape ending in d) lies outside the training envelope."""
+    manifest = stepper.manifest
+    if manifest.envelope_min is None:
+        return []
+    rows = states.reshape(-1, stepper.state_dim)
+    # Checked here rather than with Stepper.outside_envelope, whose batch limit a forecast's
+    # (times x batch) rows may exceed.
+    lower = np.asarray(manifest.envelope_min)
+    upper = np.asarray(manifest.envelope_max)
+    outside = np.flatnonzero(((rows < lower) | (rows > upper)).any(axis=1))
+    if outside.size == 0:
+        return []
+    return [f"{outside.size} of {rows.shape[0]} {what} lie outside the training envelope "
+            f"(min {list(manifest.envelope_min)}, max {list(manifest.envelope_max)}); the "
+            "answer is an extrapolation."]
+
+
+def horizon_warnings(stepper: Any, times: Sequence[float]) -> list[str]:
+    """A warning if the latest requested time is beyond the validated horizon."""
+    horizon = stepper.manifest.validated_horizon
+    latest = max(times)
+    if horizon is None or latest <= horizon:
+        return []
+    unit = stepper.manifest.time_unit
+    return [f"t = {latest:g} {unit} is beyond the validated horizon of {horizon:g} {unit}."]
+
+
+def answer_warnings(stepper: Any, start: np.ndarray, result: np.ndarray,
+                    times: Sequence[float]) -> list[str]:
+    return (envelope_warnings(stepper, start, "initial states")
+            + envelope_warnings(stepper, result, "result states")
+            + horizon_warnings(stepper, times))

@@ -1,0 +1,143 @@
+"""The `/v1` routes: list and describe models, advance and forecast states."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+import anyio
+from fastapi import APIRouter, Depends, Request
+from starlette.responses import Response
+
+from .auth import require_token
+from .codec import encode, encode_response, encoded_response, response_media
+from .context import (
+    answer_warnings,
+    batch_rows,
+    gate_of,
+    metrics_of,
+    read_document,
+    registry_of,
+    served_stepper,
+    state_rules,
+)
+from .openapi import GET_MODEL_ERRORS, POST_ERRORS, request_body, responses
+from .registry import ModelEntry
+from .schemas import (
+    AdvanceRequest,
+    AdvanceResponse,
+    ForecastRequest,
+    ForecastResponse,
+    ModelDetail,
+    ModelList,
+)
+from .settings import Settings, get_settings
+from .validation import parse_advance, parse_forecast
+
+router = APIRouter(prefix="/v1", tags=["v1"])
+SettingsDep = Annotated[Settings, Depends(get_settings)]
+
+
+def model_summary(entry: ModelEntry) -> dict[str, Any]:
+    summary: dict[str, Any] = {"name": entry.name, "ready": entry.ready, "source": entry.source,
+                               "error": entry.error}
+    if entry.ready:
+        stepper = entry.stepper
+        summary.update(state_dim=stepper.state_dim, base_step=stepper.base_step,
+                       time_unit=stepper.manifest.time_unit, strides=list(stepper.strides))
+    return summary
+
+
+def model_detail(name: str, stepper: Any) -> dict[str, Any]:
+    manifest = stepper.manifest
+    envelope = None
+    if manifest.envelope_min is not None:
+        envelope = {"min": list(manifest.envelope_min), "max": list(manifest.envelope_max)}
+    return {
+        "name": name,
+        "description": manifest.description,
+        "state": {"dim": stepper.state_dim, "names": list(stepper.state_names),
+                  "units": list(stepper.state_units)},
+        "time": {"base_step": stepper.base_step, "unit": manifest.time_unit},
+        "strides": list(stepper.strides),
+        "update": manifest.update,
+        "envelope": envelope,
+        "validated_horizon": manifest.validated_horizon,
+        "dtype": str(stepper.dtype),
+    }
+
+
+@router.get("/models", responses=responses(ModelList),
+            summary="Every configured model, including ones that failed to load")
+async def list_models(request: Request) -> Response:
+    entries = registry_of(request).entries
+    return encode_response(request, {"models": [model_summary(entry) for entry in entries]})
+
+
+@router.get("/models/{name}", responses=responses(ModelDetail, *GET_MODEL_ERRORS),
+            summary="Manifest summary of one model")
+async def describe_model(name: str, request: Request) -> Response:
+    return encode_response(request, model_detail(name, served_stepper(request, name)))
+
+
+@router.post("/models/{name}/advance", dependencies=[Depends(require_token)],
+             openapi_extra=request_body(AdvanceRequest),
+             responses=responses(AdvanceResponse, *POST_ERRORS),
+             summary="Advance a state or a batch from time 0 to time t")
+async def advance(name: str, request: Request, settings: SettingsDep) -> Response:
+    started = anyio.current_time()
+    stepper = served_stepper(request, name)
+    query = parse_advance(await read_document(request, settings), state_rules(stepper, settings))
+    media, metrics = response_media(request), metrics_of(request)
+
+    def work() -> bytes:
+        # Runs in a worker thread: computing and encoding both stay off the event loop.
+        result, plan = stepper.advance_with_plan(query.state, query.t, off_grid=query.off_grid)
+        metrics.record_computation(name, "advance", evaluations=plan.evaluations,
+                                   states=batch_rows(query.state))
+        return encode({
+            "model": name,
+            "state": result,
+            "t": query.t,
+            "plan": plan.to_dict(),
+            "method": plan.method,
+            "evaluations": plan.evaluations,
+            "dtype": str(stepper.dtype),
+            "warnings": answer_warnings(stepper, query.state, result, [query.t]),
+        }, media)
+
+    body = await gate_of(request).run(work, started=started, budget=settings.request_timeout)
+    return encoded_response(body, media)
+
+
+@router.post("/models/{name}/forecast", dependencies=[Depends(require_token)],
+             openapi_extra=request_body(ForecastRequest),
+             responses=responses(ForecastResponse, *POST_ERRORS),
+             summary="Forecast a state or a batch at many times")
+async def forecast(name: str, request: Request, settings: SettingsDep) -> Response:
+    started = anyio.current_time()
+    stepper = served_stepper(request, name)
+    query = parse_forecast(await read_document(request, settings),
+                           state_rules(stepper, settings),
+                           max_points=settings.max_forecast_points,
+                           max_values=settings.max_forecast_values)
+    media, metrics = response_media(request), metrics_of(request)
+
+    def work() -> bytes:
+        states, info = stepper.forecast_with_info(query.state, query.times,
+                                                  off_grid=query.off_grid)
+        metrics.record_computation(name, "forecast", evaluations=info.evaluations,
+                                   states=batch_rows(query.state) * len(query.times))
+        return encode({
+            "model": name,
+            "times": list(query.times),
+            "states": states,
+            "evaluations": info.evaluations,
+            "network_calls": info.network_calls,
+            "depth": info.depth,
+            "methods": list(info.methods),
+            "dtype": str(stepper.dtype),
+            "warnings": answer_warnings(stepper, query.state, states, query.times),
+        }, media)
+
+    body = await gate_of(request).run(work, started=started, budget=settings.request_timeout)
+    return encoded_response(body, media)
