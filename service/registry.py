@@ -94,6 +94,7 @@ def named_sources(models: Mapping[str, ModelSource] | Iterable[ModelSource]
         for name, source in models.items():
             if not isinstance(name, str) or not name or "/" in name:
                 raise ValueError(f"model name {name!r} must be a non-empty string without '/'.")
+            _check_source(name, source)
             named.append((name, str(source) if _is_path(source) else repr(source), source))
         return named
     if _is_path(models):
@@ -104,8 +105,15 @@ def named_sources(models: Mapping[str, ModelSource] | Iterable[ModelSource]
             named.extend((name, str(path), path) for name, path in discover(source))
         else:
             name = getattr(getattr(source, "manifest", None), "name", "") or f"model-{index}"
+            _check_source(name, source)
             named.append((name, repr(source), source))
     return named
+
+
+def _check_source(name: str, source: Any) -> None:
+    if not _is_path(source) and not isinstance(source, runtime.Stepper):
+        raise TypeError(f"model {name!r} is a {type(source).__name__}; expected a bundle path "
+                        "or a stridecast.runtime.Stepper.")
 
 
 def load_registry(sources: Iterable[tuple[str, str, ModelSource]], *,
@@ -132,9 +140,6 @@ def load_registry(sources: Iterable[tuple[str, str, ModelSource]], *,
 
 def _load_one(name: str, description: str, source: ModelSource, dtype: str) -> ModelEntry:
     if not _is_path(source):
-        if not isinstance(source, runtime.Stepper):
-            raise TypeError(f"model {name!r} is a {type(source).__name__}; expected a bundle "
-                            "path or a stridecast.runtime.Stepper.")
         return ModelEntry(name, description, stepper=source)
     try:
         stepper = runtime.load(source, dtype=dtype, verify=True)

@@ -70,8 +70,11 @@ def _unary_cases() -> list[Case]:
                     Case("Sin", opset, (x,), tolerance="transcendental"),
                     Case("Cos", opset, (x,), tolerance="transcendental"),
                 ]
-            for opset in (9, 13):
-                cases.append(Case("Erf", opset, (x,), tolerance="transcendental"))
+            # Erf in float64 is checked in test_ops_erf.py instead, against SciPy and math.erf:
+            # onnxruntime implements Erf for float32 only, and the ReferenceEvaluator rounds its
+            # float64 Erf through float32.
+            if dtype == np.float32:
+                cases += [Case("Erf", opset, (x,), tolerance="transcendental") for opset in (9, 13)]
     return cases
 
 
@@ -98,12 +101,16 @@ def _clip_cases() -> list[Case]:
     for dtype in FLOATS:
         x = sample(RNG, (3, 5), dtype)
         lower, upper = np.array(-1.0, dtype), np.array(0.5, dtype)
+        # onnxruntime's Clip kernels for opsets 6–11 take float32 only (float64 from 12 on).
+        float32 = dtype == np.float32
         for attributes in ({}, {"min": -1.0}, {"max": 0.5}, {"min": -1.0, "max": 0.5}):
-            cases.append(Case("Clip", 6, (x,), attributes, note="-".join(attributes)))
+            cases.append(Case("Clip", 6, (x,), attributes, onnxruntime=float32,
+                              note="-".join(attributes)))
         for opset in (11, 13):
             for bounds, note in [((lower, upper), "both"), ((lower,), "min"),
                                  ((None, upper), "max"), ((), "none")]:
-                cases.append(Case("Clip", opset, (x, *bounds), note=note))
+                cases.append(Case("Clip", opset, (x, *bounds), onnxruntime=float32 or opset > 11,
+                                  note=note))
         # When min > max every element becomes max (the spec from opset 13).
         cases.append(Case("Clip", 13, (x, upper, lower), note="empty-interval"))
     return cases
@@ -116,8 +123,10 @@ def _logic_cases() -> list[Case]:
             # Small integers (also as floats) make equal pairs common.
             a = RNG.integers(-2, 3, shape_a).astype(dtype)
             b = RNG.integers(-2, 3, shape_b).astype(dtype)
+            # Opset 7's Greater and Less accept float types only; integers from opset 9.
+            first = 7 if dtype in FLOATS else 9
             cases += [Case(op, opset, (a, b)) for op, opset in
-                      [("Greater", 7), ("Greater", 13), ("Less", 9), ("Equal", 11),
+                      [("Greater", first), ("Greater", 13), ("Less", first), ("Equal", 11),
                        ("Equal", 19), ("GreaterOrEqual", 12), ("LessOrEqual", 16)]]
     for shape_a, shape_b in BROADCAST_SHAPES:
         a, b = RNG.random(shape_a) < 0.5, RNG.random(shape_b) < 0.5

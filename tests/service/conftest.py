@@ -9,7 +9,6 @@ from calling the runtime directly.
 
 from __future__ import annotations
 
-import shutil
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
@@ -19,7 +18,6 @@ import pytest
 import scipy.linalg
 from fastapi.testclient import TestClient
 from onnx import TensorProto, helper, numpy_helper
-
 from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
 from stridecast.service import Settings, create_app
 
@@ -121,13 +119,3 @@ def make_client(models_dir: Path) -> Iterator[Callable[..., TestClient]]:
 @pytest.fixture
 def client(make_client) -> TestClient:
     return make_client()
-
-
-@pytest.fixture
-def copy_bundle(tmp_path: Path, oscillator_path: Path) -> Callable[[str], Path]:
-    def copy(name: str) -> Path:
-        target = tmp_path / name
-        shutil.copytree(oscillator_path, target)
-        return target
-
-    return copy
