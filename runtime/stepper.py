@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 import threading
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -23,6 +23,7 @@ from .planner import StridePlanner
 from .waves import build_schedule, run_schedule
 
 OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
+_PLAN_CACHE_SIZE = 4096
 VectorField = Callable[[np.ndarray], np.ndarray]
 Kernel = Callable[[np.ndarray], np.ndarray]
 
@@ -66,6 +67,8 @@ class Stepper:
         self._planner = StridePlanner(self._kernels, max_steps=limits.max_steps_per_query)
         self._hybrid_planners: dict[int, StridePlanner] = {}
         self._lock = threading.Lock()
+        # Plans depend only on the time and options; dict reads/writes are atomic.
+        self._plan_cache: dict[tuple, tuple[_Resolution, Plan, object]] = {}
         lower = manifest.envelope_min
         self._envelope = None if lower is None else (
             np.asarray(lower, dtype=np.float64), np.asarray(manifest.envelope_max, np.float64))
@@ -118,8 +121,25 @@ class Stepper:
     def plan(self, t: float, *, off_grid: str = "interpolate",
              vector_field: VectorField | None = None, hybrid_below: int | None = None) -> Plan:
         """Describe how `advance` reaches time `t`, without running a network."""
-        resolution = self._resolve(t, off_grid, vector_field, hybrid_below)
-        return self._describe(resolution, integrator_evaluations=0)
+        return self._planned(t, off_grid, vector_field, hybrid_below)[1]
+
+    def _planned(self, t: float, off_grid: str, vector_field: VectorField | None,
+                 hybrid_below: int | None) -> tuple[_Resolution, Plan, object]:
+        """Resolution, plan and (for several anchors) schedule of one time, memoised."""
+        key = (self._check_time(t), off_grid, hybrid_below, vector_field is None)
+        cached = self._plan_cache.get(key)
+        if cached is None:
+            resolution = self._resolve(t, off_grid, vector_field, hybrid_below)
+            schedule = None
+            if len(resolution.anchors) > 1:
+                schedule = self._schedule(self._planner_for(resolution), resolution.anchors)
+            plan = self._describe(resolution, integrator_evaluations=0, evaluations=(
+                None if schedule is None else schedule.evaluations))
+            cached = (resolution, plan, schedule)
+            if len(self._plan_cache) >= _PLAN_CACHE_SIZE:
+                self._plan_cache.clear()
+            self._plan_cache[key] = cached
+        return cached
 
     def step(self, state: np.ndarray, stride: int) -> np.ndarray:
         """Apply the network of one level once (one stride) to `state`."""
@@ -161,20 +181,15 @@ class Stepper:
                           hybrid_below: int | None = None) -> tuple[np.ndarray, Plan]:
         """`advance`, also returning the `Plan` that says how the answer was produced."""
         states, single = self._check_state(state)
-        resolution = self._resolve(t, off_grid, vector_field, hybrid_below)
-        planner = self._planner_for(resolution)
-        if len(resolution.anchors) == 1:
-            anchor_states = self._run_sequential(states, planner.steps(resolution.anchors[0]))
-            anchor_states = anchor_states[None]
-            evaluations = planner.step_count(resolution.anchors[0])
+        resolution, plan, schedule = self._planned(t, off_grid, vector_field, hybrid_below)
+        if schedule is None:
+            anchor_states = self._run_sequential(states, plan.steps)[None]
         else:
-            schedule = self._schedule(planner, resolution.anchors)
             anchor_states = self._run_schedule(schedule, states)
-            evaluations = schedule.evaluations
         result, rk_evaluations = self._finish(resolution, resolution.anchors, anchor_states,
                                               vector_field)
-        plan = self._describe(resolution, integrator_evaluations=rk_evaluations,
-                              evaluations=evaluations)
+        if rk_evaluations:
+            plan = replace(plan, integrator_evaluations=rk_evaluations)
         return (result[0] if single else result), plan
 
     def forecast(self, state: np.ndarray, times: Sequence[float], *,
@@ -390,27 +405,38 @@ class Stepper:
         # Overflow shows up as inf below and is reported with the step and level.
         with np.errstate(over="ignore", invalid="ignore"):
             result = self._kernels[stride](states)
-        if result.shape != states.shape:
-            raise StateError(
-                f"the level with stride {stride} returned shape {result.shape} for input "
-                f"{states.shape}; expected the same shape."
-            )
-        if not np.isfinite(result).all():
-            raise NonFiniteError(
-                f"the level with stride {stride} produced non-finite values at step "
-                f"{depth + 1} of the plan; the forecast is stopped (the state may have left the "
-                "region the network was trained on)."
-            )
+        if result.shape != states.shape or not np.isfinite(result).all():
+            self._report_bad_step(stride, result, states.shape, depth)
         return result
 
     def _run_sequential(self, states: np.ndarray, steps: tuple[tuple[int, int], ...]
                         ) -> np.ndarray:
+        # The hot path of `advance`: one error-state context for the whole plan, and a
+        # finiteness check after every step so a failure names its step and level.
         depth = 0
-        for stride, count in steps:
-            for _ in range(count):
-                states = self._apply(stride, states, depth=depth)
-                depth += 1
+        shape = states.shape
+        with np.errstate(over="ignore", invalid="ignore"):
+            for stride, count in steps:
+                kernel = self._kernels[stride]
+                for _ in range(count):
+                    states = kernel(states)
+                    if states.shape != shape or not np.isfinite(states).all():
+                        self._report_bad_step(stride, states, shape, depth)
+                    depth += 1
         return states
+
+    def _report_bad_step(self, stride: int, result: np.ndarray, shape: tuple[int, ...],
+                         depth: int) -> None:
+        if result.shape != shape:
+            raise StateError(
+                f"the level with stride {stride} returned shape {result.shape} for input "
+                f"{shape}; expected the same shape."
+            )
+        raise NonFiniteError(
+            f"the level with stride {stride} produced non-finite values at step "
+            f"{depth + 1} of the plan; the forecast is stopped (the state may have left the "
+            "region the network was trained on)."
+        )
 
     def _run_schedule(self, schedule, states: np.ndarray) -> np.ndarray:
         return run_schedule(schedule, states,

@@ -50,6 +50,15 @@ def normalize_axes(axes: Iterable[int] | np.ndarray, rank: int, *, op_type: str,
     return normalized
 
 
+def float32_value(value: float) -> float:
+    """The float32 nearest to `value`, as a Python float.
+
+    ONNX stores float attributes as float32, so a spec default such as LeakyRelu's 0.01 means
+    float32(0.01) = 0.009999999776…; float64 models must see that value, as onnxruntime does.
+    """
+    return float(np.float32(value))
+
+
 def like(value: float | int, array: np.ndarray) -> np.ndarray:
     """An attribute scalar as a 0-d array of `array`'s dtype.
 

@@ -11,13 +11,17 @@ import math
 import numpy as np
 
 from ..errors import ModelFormatError
-from ._common import like, normalize_axis
+from ._common import float32_value, like, normalize_axis
 from .registry import register
 from .special import erfc
 
-# Selu's defaults as the spec gives them: the float32 values of Klambauer et al.'s constants.
+# Float attribute defaults are float32 values (see `float32_value`). Selu's are the float32
+# roundings of Klambauer et al.'s constants, exactly as the spec writes them.
 _SELU_ALPHA = 1.67326319217681884765625
 _SELU_GAMMA = 1.05070102214813232421875
+_LEAKY_RELU_ALPHA = float32_value(0.01)
+_HARD_SIGMOID_ALPHA = float32_value(0.2)
+_HARD_SWISH_ALPHA = float32_value(1 / 6)
 
 
 @register("Relu", 6)
@@ -27,7 +31,7 @@ def Relu(x):
 
 
 @register("LeakyRelu", 6)
-def LeakyRelu(x, *, alpha=0.01):
+def LeakyRelu(x, *, alpha=_LEAKY_RELU_ALPHA):
     """LeakyRelu (opset 6): x for x ≥ 0, alpha·x otherwise."""
     return np.where(x >= 0, x, x * like(alpha, x))
 
@@ -59,15 +63,18 @@ def Sigmoid(x):
 
 
 @register("HardSigmoid", 6)
-def HardSigmoid(x, *, alpha=0.2, beta=0.5):
+def HardSigmoid(x, *, alpha=_HARD_SIGMOID_ALPHA, beta=0.5):
     """HardSigmoid (opset 6): max(0, min(1, alpha·x + beta))."""
     return np.clip(like(alpha, x) * x + like(beta, x), 0, 1)
 
 
 @register("HardSwish", 14)
 def HardSwish(x):
-    """HardSwish (opset 14): x · max(0, min(1, x/6 + 1/2)), with alpha = 1/6 as in the spec."""
-    return x * HardSigmoid(x, alpha=1 / 6, beta=0.5)
+    """HardSwish (opset 14): x · max(0, min(1, alpha·x + 1/2)) with alpha = 1/6.
+
+    The spec defines it as x · HardSigmoid(x, alpha=1/6), an attribute, hence float32(1/6).
+    """
+    return x * HardSigmoid(x, alpha=_HARD_SWISH_ALPHA, beta=0.5)
 
 
 @register("Tanh", 6)

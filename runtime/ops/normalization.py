@@ -10,15 +10,17 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import ModelFormatError, UnsupportedOperatorError
-from ._common import normalize_axis
+from ._common import float32_value, normalize_axis
 from .registry import register
 
+# The spec's float defaults, as the float32 values ONNX attributes hold.
+_EPSILON, _MOMENTUM = float32_value(1e-5), float32_value(0.9)
 # stash_type 1 (TensorProto FLOAT) is the only stash type the spec allows that NumPy holds.
 _STASH_FLOAT = 1
 
 
 @register("LayerNormalization", 17)
-def LayerNormalization(x, scale, b=None, *, axis=-1, epsilon=1e-5, stash_type=_STASH_FLOAT):
+def LayerNormalization(x, scale, b=None, *, axis=-1, epsilon=_EPSILON, stash_type=_STASH_FLOAT):
     """LayerNormalization (opset 17): standardise over dimensions [axis, rank), scale, shift.
 
     Parameters
@@ -65,8 +67,8 @@ def LayerNormalization(x, scale, b=None, *, axis=-1, epsilon=1e-5, stash_type=_S
 
 
 @register("BatchNormalization", 7)
-def BatchNormalization_7(x, scale, b, input_mean, input_var, *, epsilon=1e-5, momentum=0.9,
-                         spatial=1):
+def BatchNormalization_7(x, scale, b, input_mean, input_var, *, epsilon=_EPSILON,
+                         momentum=_MOMENTUM, spatial=1):
     """BatchNormalization (opset 7): inference-mode normalisation with the stored statistics.
 
     With ``spatial=1`` the parameters have one value per channel (dimension 1); with
@@ -77,14 +79,15 @@ def BatchNormalization_7(x, scale, b, input_mean, input_var, *, epsilon=1e-5, mo
 
 
 @register("BatchNormalization", 9)
-def BatchNormalization_9(x, scale, b, input_mean, input_var, *, epsilon=1e-5, momentum=0.9):
+def BatchNormalization_9(x, scale, b, input_mean, input_var, *, epsilon=_EPSILON,
+                         momentum=_MOMENTUM):
     """BatchNormalization (opset 9): (x − mean)·scale / √(var + epsilon) + b per channel."""
     return _batch_normalization(x, scale, b, input_mean, input_var, epsilon, per_channel=True)
 
 
 @register("BatchNormalization", 14)
-def BatchNormalization_14(x, scale, b, input_mean, input_var, *, epsilon=1e-5, momentum=0.9,
-                          training_mode=0):
+def BatchNormalization_14(x, scale, b, input_mean, input_var, *, epsilon=_EPSILON,
+                          momentum=_MOMENTUM, training_mode=0):
     """BatchNormalization (opset 14): as opset 9; ``training_mode=1`` is refused."""
     if training_mode:
         raise UnsupportedOperatorError(

@@ -30,8 +30,9 @@ TOLERANCES: dict[str, dict[type, tuple[float, float]]] = {
     "exact": {np.float32: (0.0, 0.0), np.float64: (0.0, 0.0)},
     # A few correctly rounded IEEE operations (+ − × ÷ √): implementations may order or fuse
     # them differently (x·a + b versus fma), which moves the result by a few ulp — 8 ulp of
-    # float32 is ≈ 1e-6, of float64 ≈ 2e-15.
-    "rounded": {np.float32: (1e-6, 1e-7), np.float64: (2e-15, 1e-16)},
+    # float32 is ≈ 1e-6, of float64 ≈ 2e-15. Results that cancel to near zero keep the
+    # absolute error of their unit-scale operands, hence atol of the same size.
+    "rounded": {np.float32: (1e-6, 1e-6), np.float64: (2e-15, 2e-15)},
     # Library transcendentals (exp, log, tanh, erf …): onnxruntime's vectorised float32
     # kernels (MLAS) approximate them to a few ulp and sometimes use other formulas (e.g.
     # 1 + tanh instead of our sigmoid form), so float32 gets ~100 ulp; float64 libm-grade
@@ -89,7 +90,9 @@ def check_against_references(case: Case) -> None:
         )
         expected["onnxruntime"] = session.run(None, feeds)
     if case.reference:
-        expected["ReferenceEvaluator"] = ReferenceEvaluator(model).run(None, feeds)
+        # Its Cast warns where the spec defines the result (float overflow to ±inf).
+        with np.errstate(over="ignore"):
+            expected["ReferenceEvaluator"] = ReferenceEvaluator(model).run(None, feeds)
     assert expected, f"{case} has no reference to compare with"
     for source, outputs in expected.items():
         assert len(outputs) == case.outputs
@@ -178,12 +181,14 @@ def sample(rng: np.random.Generator, shape, dtype, *, low=-3.0, high=3.0) -> np.
 # The registry and the calling convention.
 
 REQUIRED = (
-    "Gemm MatMul Add Sub Mul Div Neg Relu LeakyRelu Elu Selu Sigmoid Tanh Softplus Mish Gelu Erf "
-    "Exp Log Sqrt Pow Abs Sin Cos Clip Where Greater Less Equal GreaterOrEqual LessOrEqual Not "
-    "And Or LayerNormalization ReduceMean ReduceSum Transpose Reshape Flatten Squeeze Unsqueeze "
-    "Concat Slice Gather Shape Cast Constant Identity Expand Softmax Max Min Sum Reciprocal "
-    "HardSigmoid HardSwish Dropout BatchNormalization ConstantOfShape Range"
-).split()
+    "Gemm", "MatMul", "Add", "Sub", "Mul", "Div", "Neg", "Relu", "LeakyRelu", "Elu", "Selu",
+    "Sigmoid", "Tanh", "Softplus", "Mish", "Gelu", "Erf", "Exp", "Log", "Sqrt", "Pow", "Abs",
+    "Sin", "Cos", "Clip", "Where", "Greater", "Less", "Equal", "GreaterOrEqual", "LessOrEqual",
+    "Not", "And", "Or", "LayerNormalization", "ReduceMean", "ReduceSum", "Transpose", "Reshape",
+    "Flatten", "Squeeze", "Unsqueeze", "Concat", "Slice", "Gather", "Shape", "Cast", "Constant",
+    "Identity", "Expand", "Softmax", "Max", "Min", "Sum", "Reciprocal", "HardSigmoid",
+    "HardSwish", "Dropout", "BatchNormalization", "ConstantOfShape", "Range",
+)
 
 
 def test_every_required_operator_is_registered():

@@ -1,0 +1,71 @@
+"""Property-based API testing with schemathesis against the app's own OpenAPI schema.
+
+Every operation, request bodies included (documented with `openapi_extra`), is exercised with
+generated data (valid and invalid) in JSON and MessagePack: no response may be a 5xx, and every
+response must match the documented status codes, content types and schemas.
+"""
+
+from __future__ import annotations
+
+import msgpack
+import pytest
+import schemathesis
+from hypothesis import HealthCheck, given, settings
+from schemathesis import GenerationMode
+from schemathesis.checks import not_a_server_error
+from schemathesis.specs.openapi.checks import (
+    content_type_conformance,
+    response_schema_conformance,
+    status_code_conformance,
+)
+from stridecast.service import Settings, create_app
+
+CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
+          response_schema_conformance]
+# The operations, read from an app that loads nothing (its lifespan never runs here).
+OPERATIONS = [(path, method.upper())
+              for path, methods in create_app().openapi()["paths"].items()
+              for method in methods]
+EXAMPLES = 20
+
+
+@schemathesis.serializer("application/msgpack")
+def _msgpack(ctx, value) -> bytes:
+    return msgpack.packb(value, use_bin_type=True)
+
+
+@pytest.fixture(scope="module")
+def api_schema(models_dir):
+    # Small limits, so generated data also reaches the 413 and 422 answers.
+    limits = Settings(max_body_bytes=16 * 1024, max_batch=16, max_forecast_points=50,
+                      request_timeout=5.0)
+    return schemathesis.openapi.from_asgi("/openapi.json", create_app([models_dir], limits))
+
+
+def test_every_post_route_documents_its_request_body(api_schema):
+    posts = [path for path, method in OPERATIONS if method == "POST"]
+    assert posts == ["/v1/models/{name}/advance", "/v1/models/{name}/forecast",
+                     "/v2/models/{name}/infer"]
+    for path in posts:
+        body = api_schema.raw_schema["paths"][path]["post"]["requestBody"]
+        assert set(body["content"]) == {"application/json", "application/msgpack"}
+
+
+@pytest.mark.parametrize("mode", [GenerationMode.POSITIVE, GenerationMode.NEGATIVE],
+                         ids=["valid", "invalid"])
+@pytest.mark.parametrize(("path", "method"), OPERATIONS, ids=[f"{m} {p}" for p, m in OPERATIONS])
+def test_operation_conforms_to_its_schema(api_schema, path, method, mode):
+    fixed = {"name": "oscillator"} if "{name}" in path else None
+    strategy = api_schema[path][method].as_strategy(generation_mode=mode)
+    if fixed:
+        # Half the cases name the served model, so bodies reach validation and the runtime.
+        strategy = strategy | api_schema[path][method].as_strategy(
+            generation_mode=mode, path_parameters=fixed)
+
+    @given(case=strategy)
+    @settings(max_examples=EXAMPLES, deadline=None, derandomize=True, database=None,
+              suppress_health_check=list(HealthCheck))
+    def check(case):
+        case.call_and_validate(checks=CHECKS)
+
+    check()
