@@ -62,6 +62,15 @@ class ReferenceModel:
     modules: Mapping[int, nn.Module]
     mean: tuple[float, ...]
     scale: tuple[float, ...]
+    via_export: bool = False
+
+    def describe(self) -> dict[str, object]:
+        """JSON-ready description of the model (not its path: that is temporary)."""
+        return {"strides": sorted(self.modules), "hidden": list(REFERENCE_HIDDEN),
+                "activation": "tanh", "state_dim": len(self.mean), "update": "increment",
+                "base_step": REFERENCE_BASE_STEP, "output_gain": OUTPUT_GAIN,
+                "onnx_writer": ("stridecast.export.export_bundle" if self.via_export
+                                else "onnx.helper (Gemm transB=1 + Tanh)")}
 
 
 def reference_modules(strides: Sequence[int] = REFERENCE_STRIDES, *,
@@ -159,7 +168,8 @@ def build_reference(directory: Path, *, strides: Sequence[int] = REFERENCE_STRID
     modules = reference_modules(strides, seed=seed)
     path = write_reference_bundle(Path(directory) / "reference.bundle", modules,
                                   via_export=via_export)
-    return ReferenceModel(path=path, modules=modules, mean=REFERENCE_MEAN, scale=REFERENCE_SCALE)
+    return ReferenceModel(path=path, modules=modules, mean=REFERENCE_MEAN, scale=REFERENCE_SCALE,
+                          via_export=via_export)
 
 
 def finest_only_bundle(bundle: Path, out: Path) -> Path:

@@ -7,12 +7,13 @@ training split; held-out trajectories give the validation figures of the bundle.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import math
 import operator
 import sys
 import time
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -69,6 +70,7 @@ def train_levels(
     learning_rate: float = 1e-3,
     select_levels: bool = False,
     max_windows_per_epoch: int | None = 65536,
+    threads: int | None = 1,
     state_names: Sequence[str] | None = None,
     state_units: Sequence[str] | None = None,
 ) -> TrainedLevels:
@@ -99,6 +101,10 @@ def train_levels(
         Drop coarse levels whose inclusion worsens the held-out hierarchical error.
     max_windows_per_epoch : int or None
         Cap on the windows one epoch visits (a fresh random subset each epoch).
+    threads : int or None
+        torch intra-op threads while training (restored afterwards). The default 1 makes
+        results independent of the machine's core count (reduction order) and is fastest for
+        small networks; None keeps torch's setting.
     state_names, state_units : sequence of str, optional
         Carried into the bundle.
 
@@ -130,14 +136,15 @@ def train_levels(
         ((split.held_out - mean) / scale).astype(np.float32))
 
     levels, history = {}, {}
-    for stride in strides:
-        levels[stride], history[stride] = _train_level(stride, train, held_out, settings,
-                                                       progress=progress)
     validation, example = None, None
-    if held_out is not None:
-        validation, example = _validate(levels, held_out, settings, base_step, mean, scale,
-                                        split.description)
-        levels = {stride: levels[stride] for stride in validation["strides"]}
+    with _torch_threads(threads):
+        for stride in strides:
+            levels[stride], history[stride] = _train_level(stride, train, held_out, settings,
+                                                           progress=progress)
+        if held_out is not None:
+            validation, example = _validate(levels, held_out, settings, base_step, mean, scale,
+                                            split.description)
+            levels = {stride: levels[stride] for stride in validation["strides"]}
     return TrainedLevels(
         levels=levels, mean=tuple(map(float, mean)), scale=tuple(map(float, scale)),
         base_step=base_step, update="increment", history=history, validation=validation,
@@ -202,7 +209,7 @@ def _train_level(stride: int, train: torch.Tensor, held_out: torch.Tensor | None
                 loss.backward()
                 optimizer.step()
                 schedule.step()
-                total += float(loss) * len(windows)
+                total += float(loss.detach()) * len(windows)
                 bar.update(1)
             train_losses.append(total / per_epoch)
             if check_starts is not None:
@@ -260,6 +267,19 @@ def _evaluation_starts(held_out: torch.Tensor | None, stride: int,
         logger.info("stride %d: held-out trajectories too short for a validation loss", stride)
         return None
     return torch.from_numpy(starts[spaced_subset(len(starts), EVALUATION_WINDOWS)])
+
+
+@contextlib.contextmanager
+def _torch_threads(threads: int | None) -> Iterator[None]:
+    if threads is None:
+        yield
+        return
+    previous = torch.get_num_threads()
+    torch.set_num_threads(_positive_int(threads, "threads"))
+    try:
+        yield
+    finally:
+        torch.set_num_threads(previous)
 
 
 def _check_strides(strides: Sequence[int]) -> tuple[int, ...]:

@@ -1,7 +1,172 @@
-"""Parsers of the commands whose parts need optional extras (torch, FastAPI)."""
+"""Parsers and handlers of the commands whose parts need optional extras.
+
+`demo`, `train` and `export` need torch (`pip install "stridecast[export]"`); `serve` needs
+the service extra; `bench` needs onnxruntime and torch for its peers. Each handler imports its
+part only when run, and says which extra is missing if the import fails.
+"""
 
 from __future__ import annotations
 
+import argparse
+import sys
+from pathlib import Path
+
+EXTRAS = {
+    "torch": "export", "onnx": "export", "onnxscript": "export", "tqdm": "export",
+    "fastapi": "service", "uvicorn": "service", "msgpack": "service",
+    "prometheus_client": "service", "pydantic_settings": "service",
+    "scipy": "demo", "matplotlib": "plot", "onnxruntime": "dev",
+}
+
 
 def register(subparsers, add) -> None:
-    """Add the parsers of demo, train, export, serve and bench (filled in as parts land)."""
+    demo = add(subparsers, "demo", "Train, export, reload and evaluate the harbour-crane demo.",
+               "stridecast demo --quick", "stridecast.commands_optional:demo_command")
+    demo.add_argument("--out", default="crane-demo.bundle", help="bundle folder to write "
+                      "(default: %(default)s)")
+    demo.add_argument("--quick", action="store_true",
+                      help="smaller data and networks: ~30 s, lower accuracy")
+    demo.add_argument("--overwrite", action="store_true", help="replace an existing bundle")
+    demo.add_argument("--no-progress", action="store_true", help="no progress bars")
+    demo.add_argument("--plots-dir", default=None,
+                      help="where forecast.png and error.png go (default: beside the bundle)")
+
+    train = add(subparsers, "train", "Train levels from trajectories and export a bundle.",
+                "stridecast train data.npz --base-step 0.05 --strides 1,4,16,64 -o my.bundle",
+                "stridecast.commands_optional:train_command")
+    train.add_argument("data", help=".npy array (N, T, d) or .npz with key `trajectories`")
+    train.add_argument("--base-step", type=float, default=None,
+                       help="time between samples (required unless the .npz has base_step)")
+    train.add_argument("--strides", required=True, help="comma-separated strides in base steps")
+    train.add_argument("-o", "--out", required=True, help="bundle folder to write")
+    train.add_argument("--name", default=None)
+    train.add_argument("--hidden", default="128,128,128", help="hidden layer widths")
+    train.add_argument("--activation", default="tanh")
+    train.add_argument("--epochs", type=int, default=None)
+    train.add_argument("--seed", type=int, default=0)
+    train.add_argument("--overwrite", action="store_true")
+    train.add_argument("--no-progress", action="store_true")
+
+    export = add(subparsers, "export", "Export per-stride torch programs to a verified bundle.",
+                 "stridecast export --level 1=fine.pt2 --level 16=coarse.pt2 --base-step 0.05 "
+                 "--normalization stats.json -o my.bundle",
+                 "stridecast.commands_optional:export_command")
+    export.add_argument("--level", action="append", required=True, metavar="STRIDE=FILE",
+                        help="a torch.export program (.pt2) or TorchScript file; repeat")
+    export.add_argument("--base-step", type=float, required=True)
+    export.add_argument("--normalization", default=None, metavar="STATS.json",
+                        help="JSON with mean and scale (optional state_names, units, envelope)")
+    export.add_argument("--update", choices=("increment", "replace"), default="increment")
+    export.add_argument("--name", default=None)
+    export.add_argument("--time-unit", default="s")
+    export.add_argument("-o", "--out", required=True)
+    export.add_argument("--overwrite", action="store_true")
+
+    serve = add(subparsers, "serve", "Serve bundles over HTTP (JSON, MessagePack, open "
+                "inference protocol v2).", "stridecast serve crane-demo.bundle --port 8000",
+                "stridecast.commands_optional:serve_command")
+    serve.add_argument("paths", nargs="*", help="bundles, or folders of bundles")
+    serve.add_argument("--demo", action="store_true", help="also serve the shipped demo bundle")
+    serve.add_argument("--host", default="127.0.0.1")
+    serve.add_argument("--port", type=int, default=8000)
+    serve.add_argument("--workers", type=int, default=1)
+    serve.add_argument("--token-file", default=None,
+                       help="file holding the bearer token POST routes require")
+    serve.add_argument("--limit-concurrency", type=int, default=None,
+                       help="requests computing at once (default: CPU count)")
+
+    bench = add(subparsers, "bench", "Benchmark a bundle against onnxruntime, torch and the "
+                "naive rollout.", "stridecast bench crane-demo.bundle --quick",
+                "stridecast.commands_optional:bench_command")
+    bench.add_argument("bundle", nargs="?", help="bundle directory")
+    bench.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
+    bench.add_argument("--quick", action="store_true", help="short run")
+    bench.add_argument("--json", default=None, metavar="FILE", help="also write JSON here")
+
+
+def _needs(extra_hint: str):
+    """Turn a missing optional dependency into a one-line instruction."""
+
+    class _Guard:
+        def __enter__(self):
+            return self
+
+        def __exit__(self, kind, error, traceback):
+            if kind is ModuleNotFoundError:
+                package = (error.name or "").split(".")[0]
+                extra = EXTRAS.get(package, extra_hint)
+                print(f"stridecast: this command needs {package!r}; install it with "
+                      f'pip install "stridecast[{extra}]"', file=sys.stderr)
+                raise SystemExit(3) from error
+            return False
+
+    return _Guard()
+
+
+def demo_command(arguments: argparse.Namespace) -> int:
+    with _needs("all"):
+        from stridecast import demo
+    return demo.main(arguments)
+
+
+def train_command(arguments: argparse.Namespace) -> int:
+    with _needs("export"):
+        from stridecast.export.cli_support import parse_strides, train_from_file
+    hidden = tuple(int(width) for width in arguments.hidden.split(",") if width.strip())
+    training = {"hidden": hidden, "activation": arguments.activation, "seed": arguments.seed}
+    if arguments.epochs is not None:
+        training["epochs"] = arguments.epochs
+    path, trained = train_from_file(
+        arguments.data, arguments.out, strides=parse_strides(arguments.strides),
+        base_step=arguments.base_step, name=arguments.name, overwrite=arguments.overwrite,
+        progress=not arguments.no_progress, **training)
+    print(f"trained {len(trained.levels)} levels and wrote the verified bundle {path}")
+    print(f"inspect it with: stridecast inspect {path}")
+    return 0
+
+
+def export_command(arguments: argparse.Namespace) -> int:
+    with _needs("export"):
+        from stridecast.export.cli_support import export_from_files, parse_level_option
+    levels = dict(parse_level_option(text) for text in arguments.level)
+    path = export_from_files(
+        levels, arguments.out, base_step=arguments.base_step,
+        normalization_json=arguments.normalization, update=arguments.update,
+        name=arguments.name, overwrite=arguments.overwrite, time_unit=arguments.time_unit)
+    print(f"wrote the verified bundle {path}")
+    return 0
+
+
+def serve_command(arguments: argparse.Namespace) -> int:
+    from stridecast.cli import CAUTION
+    from stridecast.commands_runtime import DEMO_BUNDLE
+
+    with _needs("service"):
+        from stridecast.service.server import serve
+    paths = [Path(p) for p in arguments.paths]
+    if arguments.demo:
+        paths.append(DEMO_BUNDLE)
+    if not paths:
+        print("stridecast serve: give at least one bundle path (or --demo).", file=sys.stderr)
+        return 2
+    overrides = {}
+    if arguments.limit_concurrency is not None:
+        overrides["max_concurrency"] = arguments.limit_concurrency
+    print(CAUTION, file=sys.stderr)
+    serve(paths, host=arguments.host, port=arguments.port, workers=arguments.workers,
+          token_file=arguments.token_file, **overrides)
+    return 0
+
+
+def bench_command(arguments: argparse.Namespace) -> int:
+    from stridecast.commands_runtime import bundle_path
+
+    with _needs("dev"):
+        from stridecast.benchmarks import bundle_bench
+    result = bundle_bench.run(bundle_path(arguments), quick=arguments.quick)
+    print(bundle_bench.to_markdown(result))
+    if arguments.json:
+        import json
+
+        Path(arguments.json).write_text(json.dumps(result, indent=2, default=str) + "\n")
+    return 0

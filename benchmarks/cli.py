@@ -1,0 +1,157 @@
+"""`python -m benchmarks`: run the suite, print the Markdown report, write JSON and the plot."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import sys
+from pathlib import Path
+from typing import Any
+
+from . import report
+from .plot import plot_horizon
+from .suite import measure_pass, run_suite
+
+RESULTS_NAME = "bench-results.json"
+PLOT_NAME = "bench-horizon.png"
+COMMAND = "python -m benchmarks --markdown docs/benchmarks.md"
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="python -m benchmarks",
+        description="Benchmark the stridecast runtime against onnxruntime, torch eager, the "
+                    "naive finest-level rollout and SciPy's solve_ivp.",
+        epilog=f"example:\n  {COMMAND}", formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--quick", action="store_true",
+                        help="short budgets and fewer horizons (about a minute)")
+    parser.add_argument("--bundle", type=Path,
+                        help="benchmark this bundle instead of the built-in reference model")
+    parser.add_argument("--crane-bundle", type=Path,
+                        help="a bundle trained on the crane scenario, for the solve_ivp "
+                             "comparison (default: the shipped crane-demo.bundle, if any)")
+    parser.add_argument("--out-dir", type=Path, default=Path("."),
+                        help=f"where to write {RESULTS_NAME} and {PLOT_NAME} (default: .)")
+    parser.add_argument("--markdown", type=Path, metavar="FILE",
+                        help="also write the Markdown report to FILE")
+    parser.add_argument("--no-single-thread", action="store_true",
+                        help="skip the second pass with OPENBLAS_NUM_THREADS=1")
+    parser.add_argument("--via-export", action="store_true",
+                        help="write the reference bundle with stridecast.export.export_bundle "
+                             "(slow: runs torch's exporter and verifies each level)")
+    parser.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    # Internal: the single-thread child measures one pass and writes it as JSON.
+    parser.add_argument("--worker", type=Path, help=argparse.SUPPRESS)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    arguments = build_parser().parse_args(argv)
+    logging.basicConfig(level=logging.WARNING if arguments.quiet else logging.INFO,
+                        format="bench: %(message)s", stream=sys.stderr)
+    if arguments.worker is not None:
+        if arguments.bundle is None:
+            raise SystemExit("--worker needs --bundle")
+        record = measure_pass(arguments.bundle, quick=arguments.quick, solvers=False,
+                              system=False)
+        arguments.worker.write_text(json.dumps(record, indent=1), encoding="utf-8")
+        return 0
+    results = run_suite(arguments.out_dir, quick=arguments.quick, bundle=arguments.bundle,
+                        crane_bundle=arguments.crane_bundle,
+                        single_thread=not arguments.no_single_thread,
+                        via_export=arguments.via_export)
+    results["command"] = _command(arguments)
+    default = results["passes"]["default"]
+    plot = plot_horizon(default["bench"], default.get("solvers"),
+                        arguments.out_dir / PLOT_NAME)
+    results["targets"] = {label: report.measure_targets(p.get("bench"), p.get("solvers"),
+                                                        p.get("system"))
+                          for label, p in results["passes"].items()}
+    (arguments.out_dir / RESULTS_NAME).write_text(json.dumps(results, indent=1) + "\n",
+                                                  encoding="utf-8")
+    text = document(results, plot_name=plot.name)
+    if arguments.markdown is not None:
+        arguments.markdown.write_text(text, encoding="utf-8")
+    print(text)
+    return 0
+
+
+def _command(arguments: argparse.Namespace) -> str:
+    parts = ["python -m benchmarks"]
+    if arguments.quick:
+        parts.append("--quick")
+    for flag, value in (("--bundle", arguments.bundle), ("--crane-bundle", arguments.crane_bundle),
+                        ("--markdown", arguments.markdown)):
+        if value is not None:
+            parts.append(f"{flag} {value}")
+    if arguments.no_single_thread:
+        parts.append("--no-single-thread")
+    if arguments.via_export:
+        parts.append("--via-export")
+    return " ".join(parts)
+
+
+def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
+    """The full Markdown report: targets, environment, then every table with notes."""
+    passes = results["passes"]
+    default = passes["default"]
+    bench = default["bench"]
+    benches = {label: p["bench"] for label, p in passes.items()}
+    info = bench["bundle"]
+    model = results.get("reference")
+    if model is not None:
+        model_text = (f"Reference model: d = {model['state_dim']}, hidden {model['hidden']} "
+                      f"{model['activation']}, increment levels at strides {model['strides']}, "
+                      f"random weights (output layer × {model['output_gain']:g}), float32, "
+                      f"base step {model['base_step']:g} s; ONNX written with "
+                      f"{model['onnx_writer']}.")
+    else:
+        model_text = (f"Bundle `{info['name']}` ({info['path']}): strides {info['strides']}, "
+                      f"d = {info['state_dim']}, base step {info['base_step']:g} "
+                      f"{info['time_unit']}.")
+    sections = [
+        "# Benchmarks",
+        f"Regenerate with `{results['command']}` from the repository root (about "
+        f"{'a minute' if 'quick' in results['command'] else 'five minutes'}); it also writes "
+        f"`{RESULTS_NAME}` and `{plot_name}`. All numbers below come from one run on one "
+        "machine; ratios are measured in the same run, peers interleaved round by round.",
+        model_text,
+        environment_section(passes),
+        "## Targets",
+        "Time ratio = stridecast's time ÷ the peer's (below 1: stridecast faster); speedup = "
+        "the slower method's time ÷ stridecast's; throughput ratio = stridecast's states·steps "
+        "per second ÷ the peer's. p50 of interleaved rounds.",
+        report.target_table(results["targets"]),
+        "## Single-state `advance` latency (default threads)",
+        "stridecast gets a state of shape (d,) and plans itself; onnxruntime (one session call "
+        "per step) and torch eager (`inference_mode`) follow the same plan with the "
+        "normalisation applied once in NumPy before and after the loop; the naive rollout is "
+        "the runtime with the finest level only.",
+        report.latency_table(bench),
+        f"## Batches: `advance` to {bench['settings']['batch_base_steps']:,} base steps",
+        report.batch_table(benches),
+        "## Dense forecast",
+        report.dense_table(benches),
+    ]
+    if "solvers" in default:
+        sections += ["## Against SciPy `solve_ivp` (crane scenario)",
+                     report.solver_note(default["solvers"]),
+                     report.solver_table(default["solvers"]),
+                     f"![advance cost against horizon]({plot_name})"]
+    if "system" in default:
+        sections += ["## Start-up and memory (fresh processes, medians)",
+                     report.system_table(default["system"])]
+    agreement = {label: p["bench"]["agreement"] for label, p in passes.items()}
+    sections += ["## Agreement",
+                 "Largest absolute difference of each peer's answer from stridecast's (same "
+                 "plan, float32): " + "; ".join(
+                     f"{label}: " + ", ".join(f"{name} {value:.2g}" for name, value in
+                                              values.items())
+                     for label, values in agreement.items()) + "."]
+    return "\n\n".join(sections) + "\n"
+
+
+def environment_section(passes: dict[str, Any]) -> str:
+    return "## Machine and threads\n\n" + report.environment_lines(
+        {label: p["environment"] for label, p in passes.items()})

@@ -1,0 +1,106 @@
+"""The whole benchmark: build the reference model, measure every part, run the 1-thread pass.
+
+One pass measures in this process with the BLAS thread setting as found; a second pass runs the
+bundle comparisons again in a child process with OPENBLAS_NUM_THREADS=OMP_NUM_THREADS=1 (the
+child's environment only; this process's is never changed).
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import os
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
+
+from stridecast.runtime import load
+
+from . import bundle_bench, environment, solver_bench, system_bench
+from .reference import build_reference
+
+logger = logging.getLogger("benchmarks")
+
+SINGLE_THREAD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1",
+                     "MKL_NUM_THREADS": "1"}
+# The solver comparison stops at this many time units: beyond it a tight DOP853 run costs
+# seconds per call and adds nothing the log-log slope does not already show.
+MAX_SOLVER_TIME = 120.0
+QUICK_SOLVER_STEPS = (100, 1_000, 3_000)
+REPOSITORY = Path(__file__).resolve().parent.parent
+
+
+def shipped_crane_bundle() -> Path | None:
+    """`stridecast/data/crane-demo.bundle` if the package ships it, else None."""
+    import stridecast
+
+    path = Path(stridecast.__file__).resolve().parent / "data" / "crane-demo.bundle"
+    return path if (path / "manifest.json").is_file() else None
+
+
+def measure_pass(bundle: Path, *, quick: bool, modules=None, crane_bundle: Path | None = None,
+                 solvers: bool = True, system: bool = True,
+                 work_dir: Path | None = None) -> dict[str, Any]:
+    """One pass in this process: bundle comparisons, and optionally solvers and start-up."""
+    record: dict[str, Any] = {"environment": environment.describe()}
+    record["bench"] = bundle_bench.run(bundle, quick=quick, torch_modules=modules,
+                                       work_dir=work_dir)
+    if solvers:
+        record["solvers"] = _solvers(bundle, crane_bundle, quick)
+    if system:
+        logger.info("start-up and memory (fresh processes)")
+        record["system"] = system_bench.run(bundle, quick=quick)
+    record["environment"] = environment.describe()  # torch is imported by now: its threads too
+    return record
+
+
+def _solvers(bundle: Path, crane_bundle: Path | None, quick: bool) -> dict[str, Any]:
+    trained = crane_bundle is not None
+    stepper = load(crane_bundle if trained else bundle)
+    horizons = QUICK_SOLVER_STEPS if quick else bundle_bench.HORIZONS
+    horizons = [bundle_bench.on_grid(stepper, n) for n in horizons
+                if n * stepper.base_step <= MAX_SOLVER_TIME]
+    target = bundle_bench.on_grid(stepper, bundle_bench.NAIVE_TARGET_STEPS)
+    logger.info("solve_ivp comparison with %s", crane_bundle if trained else bundle)
+    return solver_bench.run(stepper, horizons, trained_on_crane=trained, target_steps=target,
+                            quick=quick)
+
+
+def single_thread_pass(bundle: Path, *, quick: bool, out: Path) -> dict[str, Any]:
+    """Run the bundle comparisons in a child with BLAS and OpenMP at one thread."""
+    env = dict(os.environ, **SINGLE_THREAD_ENV)
+    command = [sys.executable, "-m", "benchmarks", "--worker", str(out), "--bundle", str(bundle)]
+    if quick:
+        command.append("--quick")
+    logger.info("single-thread pass: %s", " ".join(f"{k}={v}" for k, v in
+                                                     SINGLE_THREAD_ENV.items()))
+    subprocess.run(command, cwd=REPOSITORY, env=env, check=True)
+    return json.loads(out.read_text(encoding="utf-8"))
+
+
+def run_suite(out_dir: Path, *, quick: bool = False, bundle: Path | None = None,
+              crane_bundle: Path | None = None, single_thread: bool = True,
+              via_export: bool = False) -> dict[str, Any]:
+    """Everything: the default pass (with solvers and start-up) and the 1-thread pass.
+
+    The reference model is built in a temporary directory unless `bundle` is given.
+    """
+    out_dir.mkdir(parents=True, exist_ok=True)
+    if crane_bundle is None:
+        crane_bundle = shipped_crane_bundle()
+    results: dict[str, Any] = {"passes": {}}
+    with tempfile.TemporaryDirectory(prefix="stridecast-bench-") as scratch:
+        work = Path(scratch)
+        modules = None
+        if bundle is None:
+            reference = build_reference(work, via_export=via_export)
+            bundle, modules = reference.path, reference.modules
+            results["reference"] = reference.describe()
+        results["passes"]["default"] = measure_pass(bundle, quick=quick, modules=modules,
+                                                    crane_bundle=crane_bundle, work_dir=work)
+        if single_thread:
+            results["passes"]["1 BLAS thread"] = single_thread_pass(
+                bundle, quick=quick, out=work / "single-thread.json")
+    return results
