@@ -62,6 +62,8 @@ def run(bundle_path: os.PathLike[str] | str, *, quick: bool = False,
         torch_modules: Mapping[int, Any] | None = None, horizons: Sequence[int] = HORIZONS,
         batches: Sequence[int] = BATCHES, batch_base_steps: int = BATCH_BASE_STEPS,
         dense_points: int = DENSE_POINTS, naive: bool = True, peers: bool = True,
+        naive_target_steps: int = NAIVE_TARGET_STEPS,
+        budgets: Mapping[str, Budget] | None = None,
         work_dir: os.PathLike[str] | str | None = None) -> dict[str, Any]:
     """Benchmark one bundle and return a JSON-ready record.
 
@@ -86,6 +88,10 @@ def run(bundle_path: os.PathLike[str] | str, *, quick: bool = False,
         Also time the finest-level-only rollout.
     peers : bool
         Also time onnxruntime and torch (when importable).
+    naive_target_steps : int
+        Horizon of the naive-rollout target, added to `horizons`.
+    budgets : mapping, optional
+        `Budget` per section ("latency", "naive", "batch", "dense"), overriding `quick`.
     work_dir : path, optional
         Where to write the finest-only bundle (default: a temporary directory).
 
@@ -94,7 +100,7 @@ def run(bundle_path: os.PathLike[str] | str, *, quick: bool = False,
     dict
         Sections `bundle`, `environment`, `latency`, `batch`, `dense` and `agreement`.
     """
-    budgets = _budgets(quick)
+    budgets = {**_budgets(quick), **(budgets or {})}
     stepper = load(bundle_path)
     runners = _peers(stepper, bundle_path, torch_modules) if peers else {}
     logger.info("bundle %s: strides %s; peers %s", bundle_path, stepper.strides, list(runners))
@@ -102,8 +108,10 @@ def run(bundle_path: os.PathLike[str] | str, *, quick: bool = False,
         naive_stepper = (load(finest_only_bundle(Path(bundle_path),
                                                  Path(scratch) / "finest.bundle"))
                          if naive else None)
-        horizons = sorted({on_grid(stepper, n) for n in (*horizons, NAIVE_TARGET_STEPS)})
-        latency = _latency(stepper, runners, naive_stepper, horizons, budgets)
+        horizons = sorted({on_grid(stepper, n) for n in (*horizons, naive_target_steps)})
+        # Quick runs stop the naive rollout at its target: 10,000 finest steps take seconds.
+        naive_limit = on_grid(stepper, naive_target_steps) if quick else max(horizons)
+        latency = _latency(stepper, runners, naive_stepper, horizons, budgets, naive_limit)
     batch = [_batch(stepper, runners, size, on_grid(stepper, batch_base_steps), budgets)
              for size in batches]
     dense = _dense(stepper, runners, dense_points, budgets)
@@ -111,7 +119,8 @@ def run(bundle_path: os.PathLike[str] | str, *, quick: bool = False,
         "bundle": _describe_bundle(stepper, bundle_path),
         "environment": environment.describe(),
         "settings": {"quick": quick, "batch_base_steps": on_grid(stepper, batch_base_steps),
-                     "dense_points": dense_points, "peers": sorted(runners)},
+                     "dense_points": dense_points, "peers": sorted(runners),
+                     "naive_target_steps": on_grid(stepper, naive_target_steps)},
         "latency": latency,
         "batch": batch,
         "dense": dense,
@@ -142,7 +151,8 @@ def _peers(stepper: Stepper, bundle_path, torch_modules) -> dict[str, Any]:
     return runners
 
 
-def _latency(stepper: Stepper, runners, naive_stepper, horizons, budgets) -> list[dict]:
+def _latency(stepper: Stepper, runners, naive_stepper, horizons, budgets,
+             naive_limit: int) -> list[dict]:
     state = example_states(stepper, 1, seed=1)
     rows = []
     for base_steps in horizons:
@@ -157,7 +167,7 @@ def _latency(stepper: Stepper, runners, naive_stepper, horizons, budgets) -> lis
                "times": {name: summary(values) for name, values in samples.items()},
                "answers": {name: np.asarray(call(), dtype=np.float64).reshape(-1).tolist()
                            for name, call in calls.items()}}
-        if naive_stepper is not None:
+        if naive_stepper is not None and base_steps <= naive_limit:
             naive_samples = interleaved(
                 {"naive": lambda t=t: naive_stepper.advance(state[0], t)}, budgets["naive"])
             row["times"]["naive"] = summary(naive_samples["naive"])

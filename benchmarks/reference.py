@@ -66,7 +66,9 @@ class ReferenceModel:
 
     def describe(self) -> dict[str, object]:
         """JSON-ready description of the model (not its path: that is temporary)."""
-        return {"strides": sorted(self.modules), "hidden": list(REFERENCE_HIDDEN),
+        first = next(iter(self.modules.values()))
+        hidden = [layer.out_features for layer in list(first)[:-1] if isinstance(layer, nn.Linear)]
+        return {"strides": sorted(self.modules), "hidden": hidden,
                 "activation": "tanh", "state_dim": len(self.mean), "update": "increment",
                 "base_step": REFERENCE_BASE_STEP, "output_gain": OUTPUT_GAIN,
                 "onnx_writer": ("stridecast.export.export_bundle" if self.via_export
@@ -163,9 +165,10 @@ def write_reference_bundle(out: Path, modules: Mapping[int, nn.Module], *,
 
 
 def build_reference(directory: Path, *, strides: Sequence[int] = REFERENCE_STRIDES,
-                    via_export: bool = False, seed: int = 0) -> ReferenceModel:
+                    hidden: Sequence[int] = REFERENCE_HIDDEN, via_export: bool = False,
+                    seed: int = 0) -> ReferenceModel:
     """Make the reference modules and write their bundle under `directory`."""
-    modules = reference_modules(strides, seed=seed)
+    modules = reference_modules(strides, hidden=hidden, seed=seed)
     path = write_reference_bundle(Path(directory) / "reference.bundle", modules,
                                   via_export=via_export)
     return ReferenceModel(path=path, modules=modules, mean=REFERENCE_MEAN, scale=REFERENCE_SCALE,
@@ -230,9 +233,9 @@ def _linear(weight: np.ndarray, bias: np.ndarray | None) -> nn.Linear:
     out_features, in_features = weight.shape
     layer = nn.Linear(in_features, out_features, bias=bias is not None)
     with torch.no_grad():
-        layer.weight.copy_(torch.from_numpy(np.ascontiguousarray(weight, dtype=np.float32)))
+        layer.weight.copy_(torch.from_numpy(np.array(weight, dtype=np.float32)))
         if bias is not None:
-            layer.bias.copy_(torch.from_numpy(np.ascontiguousarray(bias, dtype=np.float32)))
+            layer.bias.copy_(torch.from_numpy(np.array(bias, dtype=np.float32)))
     return layer.eval()
 
 

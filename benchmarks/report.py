@@ -122,10 +122,9 @@ def target_table(passes: Mapping[str, Mapping[str, float | None]]) -> str:
     return "\n".join(lines)
 
 
-def _with_ratio(time: float, reference: float, *, speedup: bool = False) -> str:
-    ratio = time / reference
-    label = f"{ratio:.3g}× faster" if speedup else f"{reference / time:.3g}×"
-    return f"{format_seconds(time)} ({label})"
+def _with_speedup(time: float, own: float) -> str:
+    """A peer's time and how many times faster stridecast (`own`) was."""
+    return f"{format_seconds(time)} ({time / own:.3g}× faster)"
 
 
 def latency_table(bench: Mapping[str, Any]) -> str:
@@ -146,9 +145,7 @@ def latency_table(bench: Mapping[str, Any]) -> str:
             cells.append(f"{format_seconds(theirs)} ({own['p50'] / theirs:.3g}×)")
         if naive:
             theirs = row["times"].get("naive")
-            cells.append("—" if theirs is None else
-                         f"{format_seconds(theirs['p50'])} "
-                         f"({theirs['p50'] / own['p50']:.3g}× faster)")
+            cells.append("—" if theirs is None else _with_speedup(theirs["p50"], own["p50"]))
         lines.append("| " + " | ".join(cells) + " |")
     return "\n".join(lines)
 
@@ -200,8 +197,8 @@ def solver_table(solvers: Mapping[str, Any]) -> str:
         own = row["times"]["stridecast"]["p50"]
         lines.append(
             f"| {row['base_steps']:,} | {row['t']:g} | {format_seconds(own)} | "
-            f"{_with_ratio(row['times']['rk45']['p50'], own, speedup=True)} | "
-            f"{_with_ratio(row['times']['dop853']['p50'], own, speedup=True)} |")
+            f"{_with_speedup(row['times']['rk45']['p50'], own)} | "
+            f"{_with_speedup(row['times']['dop853']['p50'], own)} |")
     return "\n".join(lines)
 
 
@@ -258,8 +255,11 @@ def environment_lines(passes: Mapping[str, Mapping[str, Any]]) -> str:
         blas = record["numpy_blas"]
         variables = ", ".join(f"{k}={v}" for k, v in record["thread_variables"].items()
                               if v is not None) or "none set"
-        load = record.get("load_average")
-        load_text = "" if load is None else f"; load average at start {load[0]:.2f}"
+        start, end = record.get("load_average_start"), record.get("load_average")
+        if start is not None and end is not None:
+            load_text = f"; 1-min load average {start[0]:.2f} at start, {end[0]:.2f} at end"
+        else:
+            load_text = "" if end is None else f"; 1-min load average {end[0]:.2f}"
         lines.append(f"- {label}: thread variables {variables}; numpy BLAS threads "
                      f"{blas['threads']} ({blas['source']}, {blas['library']}); torch threads "
                      f"{record['torch_threads']}; onnxruntime intra/inter-op 1/1, no spinning"

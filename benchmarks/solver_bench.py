@@ -10,13 +10,13 @@ DOP853 runs at a fixed tolerance that is reported as not matched.
 from __future__ import annotations
 
 import logging
-import math
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
-from stridecast import crane
 from stridecast.runtime import Stepper
+
+from stridecast import crane
 
 from .timing import Budget, interleaved, summary
 
@@ -73,7 +73,8 @@ def matched_tolerance(stepper: Stepper, t: float, seed: int = 0) -> dict[str, An
 
 
 def run(stepper: Stepper, horizons: Sequence[int], *, trained_on_crane: bool,
-        target_steps: int, quick: bool = False) -> dict[str, Any]:
+        target_steps: int, quick: bool = False, budget: Budget | None = None
+        ) -> dict[str, Any]:
     """Time `stepper.advance` and `solve_ivp` (RK45, DOP853) to the same times.
 
     Parameters
@@ -88,8 +89,11 @@ def run(stepper: Stepper, horizons: Sequence[int], *, trained_on_crane: bool,
         The horizon (base steps) of the solver target and of the tolerance match.
     quick : bool
         Shorter budgets.
+    budget : Budget, optional
+        Overrides the budget `quick` chooses.
     """
-    budget = Budget(seconds=0.3 if quick else 1.0, min_rounds=2 if quick else 3, warmup=1)
+    if budget is None:
+        budget = Budget(seconds=0.3 if quick else 1.0, min_rounds=2 if quick else 3, warmup=1)
     target_t = target_steps * stepper.base_step
     if trained_on_crane:
         match = matched_tolerance(stepper, target_t)
@@ -136,6 +140,3 @@ def speedup_at(result: dict[str, Any], base_steps: int, solver: str) -> float | 
             return row["times"][solver]["p50"] / row["times"]["stridecast"]["p50"]
     return None
 
-
-def is_finite_number(value: Any) -> bool:
-    return isinstance(value, int | float) and math.isfinite(value)

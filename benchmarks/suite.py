@@ -13,6 +13,7 @@ import os
 import subprocess
 import sys
 import tempfile
+import time
 from pathlib import Path
 from typing import Any
 
@@ -29,6 +30,8 @@ SINGLE_THREAD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1",
 # seconds per call and adds nothing the log-log slope does not already show.
 MAX_SOLVER_TIME = 120.0
 QUICK_SOLVER_STEPS = (100, 1_000, 3_000)
+# Installed as `stridecast.benchmarks`; run from a checkout as `benchmarks`.
+PACKAGE = __name__.rsplit(".", 1)[0]
 REPOSITORY = Path(__file__).resolve().parent.parent
 
 
@@ -44,15 +47,23 @@ def measure_pass(bundle: Path, *, quick: bool, modules=None, crane_bundle: Path 
                  solvers: bool = True, system: bool = True,
                  work_dir: Path | None = None) -> dict[str, Any]:
     """One pass in this process: bundle comparisons, and optionally solvers and start-up."""
-    record: dict[str, Any] = {"environment": environment.describe()}
+    record: dict[str, Any] = {"environment": environment.describe(), "durations": {}}
+    begin = time.perf_counter()
     record["bench"] = bundle_bench.run(bundle, quick=quick, torch_modules=modules,
                                        work_dir=work_dir)
+    record["durations"]["bench"] = time.perf_counter() - begin
     if solvers:
+        begin = time.perf_counter()
         record["solvers"] = _solvers(bundle, crane_bundle, quick)
+        record["durations"]["solvers"] = time.perf_counter() - begin
     if system:
         logger.info("start-up and memory (fresh processes)")
+        begin = time.perf_counter()
         record["system"] = system_bench.run(bundle, quick=quick)
-    record["environment"] = environment.describe()  # torch is imported by now: its threads too
+        record["durations"]["system"] = time.perf_counter() - begin
+    # Described again at the end: torch is imported by now, so its thread count is known.
+    record["environment"] = {**environment.describe(),
+                             "load_average_start": record["environment"]["load_average"]}
     return record
 
 
@@ -71,12 +82,13 @@ def _solvers(bundle: Path, crane_bundle: Path | None, quick: bool) -> dict[str, 
 def single_thread_pass(bundle: Path, *, quick: bool, out: Path) -> dict[str, Any]:
     """Run the bundle comparisons in a child with BLAS and OpenMP at one thread."""
     env = dict(os.environ, **SINGLE_THREAD_ENV)
-    command = [sys.executable, "-m", "benchmarks", "--worker", str(out), "--bundle", str(bundle)]
+    command = [sys.executable, "-m", PACKAGE, "--worker", str(out), "--bundle", str(bundle)]
     if quick:
         command.append("--quick")
     logger.info("single-thread pass: %s", " ".join(f"{k}={v}" for k, v in
                                                      SINGLE_THREAD_ENV.items()))
-    subprocess.run(command, cwd=REPOSITORY, env=env, check=True)
+    subprocess.run(command, cwd=REPOSITORY if PACKAGE == "benchmarks" else None, env=env,
+                   check=True)
     return json.loads(out.read_text(encoding="utf-8"))
 
 

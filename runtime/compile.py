@@ -27,6 +27,11 @@ _ACTIVATIONS = {
     "HardSigmoid", "HardSwish", "Identity",
 }
 _BUFFER_CACHE_SIZE = 4
+# Shape-preserving ops that may be fused into one activation stage (with scalar constants).
+_ELEMENTWISE = _ACTIVATIONS | {
+    "Mul", "Add", "Sub", "Div", "Where", "Greater", "Less", "Exp", "Log", "Neg", "Abs", "Erf",
+    "Sqrt", "Pow", "Clip", "Min", "Max", "Reciprocal", "Softsign",
+}
 # Up to this batch size the bias rides inside the matrix product (fewer NumPy calls).
 SMALL_BATCH = 16
 
@@ -200,18 +205,32 @@ def recognise_chain(program: Program) -> list[Stage] | None:
     for bound in program.nodes:
         for name in bound.node.inputs:
             consumers[name] = consumers.get(name, 0) + 1
-    for bound in program.nodes:
+    nodes = program.nodes
+    index = 0
+    while index < len(nodes):
+        bound = nodes[index]
         node = bound.node
-        if len(node.outputs) != 1 or current not in node.inputs[:2]:
-            return None
         if current != program.input_name and consumers.get(current, 0) != 1:
-            return None
-        stage = _stage_of(bound, current, constants, stages)
+            block = _elementwise_block(nodes, index, current, constants, program.output_name)
+            if block is None:
+                return None
+            stages.append(block[0])
+            index, current = block[1], block[2]
+            continue
+        stage = None
+        if len(node.outputs) == 1 and current in node.inputs[:2]:
+            stage = _stage_of(bound, current, constants, stages)
         if stage is None:
-            return None
+            block = _elementwise_block(nodes, index, current, constants, program.output_name)
+            if block is None:
+                return None
+            stages.append(block[0])
+            index, current = block[1], block[2]
+            continue
         if stage != "merged":
             stages.append(stage)
         current = node.outputs[0]
+        index += 1
     if current != program.output_name or not any(isinstance(s, Affine) for s in stages):
         return None
     return stages
@@ -265,6 +284,47 @@ def _stage_of(bound: BoundNode, current: str, constants, stages: list[Stage]):
             return "merged"
         return Activation(node.op_type, function)
     return None
+
+
+def _elementwise_block(nodes: Sequence[BoundNode], start: int, current: str, constants,
+                       output_name: str) -> tuple[Activation, int, str] | None:
+    """Fuse a run of elementwise nodes with one input and one escaping value (e.g. SiLU as
+    Sigmoid then Mul, or a thresholded Softplus) into one activation stage."""
+    produced: set[str] = set()
+    block: list[BoundNode] = []
+    for end in range(start, len(nodes)):
+        bound = nodes[end]
+        node = bound.node
+        if node.op_type not in _ELEMENTWISE or len(node.outputs) != 1:
+            return None
+        for name in node.inputs:
+            if not name or name == current or name in produced:
+                continue
+            if name not in constants or constants[name].size != 1:
+                return None
+        block.append(bound)
+        produced.add(node.outputs[0])
+        later = {name for b in nodes[end + 1:] for name in b.node.inputs}
+        escaping = {name for name in produced if name in later or name == output_name}
+        if current not in later and escaping == {node.outputs[0]}:
+            return Activation("+".join(b.node.op_type for b in block),
+                              _block_function(tuple(block), current, constants)), end + 1, \
+                node.outputs[0]
+    return None
+
+
+def _block_function(block: tuple[BoundNode, ...], input_name: str, constants):
+    result_name = block[-1].node.outputs[0]
+
+    def function(h: np.ndarray) -> None:
+        values = {input_name: h}
+        for bound in block:
+            arguments = [values[n] if n in values else constants.get(n) if n else None
+                         for n in bound.node.inputs]
+            values[bound.node.outputs[0]] = bound.function(*arguments, **bound.attributes)
+        h[...] = values[result_name]
+
+    return function
 
 
 def _bias_vector(value: np.ndarray, width: int) -> np.ndarray | None:

@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import ModelFormatError, UnsupportedOperatorError
+from .errors import ModelFormatError, StridecastError, UnsupportedOperatorError
 from .onnx_model import NUMPY_DTYPES, Attribute, Function, Model, Node
 from .ops import resolve
 
@@ -101,6 +101,8 @@ def _execute(bound: BoundNode, values: dict[str, Any]) -> None:
             from error
     try:
         result = bound.function(*arguments, **bound.attributes)
+    except StridecastError as error:
+        raise ModelFormatError(f"{node.describe()}: {error}") from error
     except (ValueError, TypeError, IndexError) as error:
         shapes = [None if a is None else getattr(a, "shape", None) for a in arguments]
         raise ModelFormatError(

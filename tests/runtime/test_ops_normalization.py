@@ -1,5 +1,6 @@
 """LayerNormalization, BatchNormalization and Dropout (inference) against onnxruntime and onnx's
-ReferenceEvaluator (the expected values of every case come from those two; see test_ops.py).
+ReferenceEvaluator (the table's expected values come from those two; see test_ops.py), and the
+corners neither reference covers against the spec's formulas.
 """
 
 from __future__ import annotations

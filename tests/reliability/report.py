@@ -1,0 +1,153 @@
+"""The reliability table: rows recorded by the tests, rendered as docs/reliability.md.
+
+Tests call `Collector.record`; rows with the same area and description merge (their case counts
+add up), so each parametrized case can record itself. Rendering is a pure function of the rows.
+"""
+
+from __future__ import annotations
+
+import platform
+import re
+import threading
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+# The table reports what was refused or survived; words for the opposite would mean a test
+# passed while something broke, so they are refused outright (500 as a lone number, not 1,500).
+FORBIDDEN = re.compile(r"crash|\bhung\b|\bhang|(?<![\d.,])500(?![\d.,])", re.IGNORECASE)
+
+HEADER = """# Reliability
+
+<!-- Written by tests/reliability/conftest.py after a complete, passing run of
+     `python -m pytest tests/reliability`; hand edits are overwritten. -->
+"""
+
+METHOD = """## How the figures are made
+
+- Every row is recorded by a test in `tests/reliability/` while it runs; the table is written
+  only when all of those tests ran and passed (a partial run, `-k`, `-m` or a failure leaves
+  the previous file alone). Regenerate with `python -m pytest tests/reliability -q`.
+- "Nothing outside the bundle is opened": `builtins.open` and `os.open` are recorded during
+  `load`, and a valid, checksum-matching model placed beside the bundle is watched through its
+  access time (set to 2001 first; a control read proves the file system updates it).
+- Memory of the reader: `tracemalloc` peak during `read_model`, bounded by a small multiple of
+  the file size plus a constant. Memory of the service: `VmRSS` of the uvicorn process from
+  `/proc/PID/status`, before and after.
+- Latencies are wall-clock times seen by the client, on the machine named above, with the
+  server and its clients sharing the same CPUs; they describe this run, not a guarantee.
+- Batch invariance: float32 results may differ in the last bits between batch sizes because
+  BLAS picks different kernels (and summation orders) for different matrix shapes; the
+  tolerance is a few float32 ulps, and the table says how many rows were bitwise equal.
+"""
+
+FUZZING = """## Longer fuzzing
+
+`fuzz/fuzz_onnx_reader.py` is an [atheris](https://github.com/google/atheris) harness for the
+same reader (atheris is not needed for CI):
+
+```bash
+pip install atheris
+python fuzz/fuzz_onnx_reader.py --write-seeds fuzz/corpus   # torch exports, both exporters
+python fuzz/fuzz_onnx_reader.py fuzz/corpus -max_total_time=3600 -rss_limit_mb=2048
+```
+
+Any exception other than `ModelFormatError` (including `UnsupportedOperatorError`), and any
+input whose traced peak memory exceeds the bound above, stops the run with the input saved.
+"""
+
+
+@dataclass(frozen=True)
+class Row:
+    """One line of the table."""
+
+    area: str
+    tried: str
+    cases: int
+    outcome: str
+    summary: str = ""
+
+
+class Collector:
+    """Rows recorded during a test session, in first-recorded order."""
+
+    def __init__(self) -> None:
+        self._rows: dict[tuple[str, str], Row] = {}
+        self._lock = threading.Lock()
+
+    def record(self, area: str, tried: str, cases: int, outcome: str, *,
+               summary: str = "") -> None:
+        """Add a row, or add `cases` to the row with the same area and description.
+
+        Parameters
+        ----------
+        area : str
+            Part of the system, e.g. "Bundle paths".
+        tried : str
+            What was tried, in a phrase.
+        cases : int
+            How many cases this call covers.
+        outcome : str
+            What happened; rows that merge must report the same outcome.
+        summary : str, optional
+            A phrase for the summary at the top of the document.
+        """
+        for text in (area, tried, outcome, summary):
+            if FORBIDDEN.search(text):
+                raise ValueError(f"reliability row {text!r} reports a failure; the table only "
+                                 "records behaviour that passed.")
+        if isinstance(cases, bool) or not isinstance(cases, int) or cases < 1:
+            raise ValueError(f"`cases` is {cases!r}; expected a positive integer.")
+        key = (area, tried)
+        with self._lock:
+            previous = self._rows.get(key)
+            if previous is None:
+                self._rows[key] = Row(area, tried, cases, outcome, summary)
+                return
+            if previous.outcome != outcome:
+                raise ValueError(f"row {key} was recorded with outcome {previous.outcome!r} "
+                                 f"and now {outcome!r}; merged rows must agree.")
+            self._rows[key] = replace(previous, cases=previous.cases + cases,
+                                      summary=previous.summary or summary)
+
+    @property
+    def rows(self) -> tuple[Row, ...]:
+        with self._lock:
+            return tuple(self._rows.values())
+
+
+def _cell(text: str) -> str:
+    return text.replace("|", "\\|").replace("\n", " ")
+
+
+def machine_line() -> str:
+    """Where the figures were measured (Python, NumPy, OS, CPUs)."""
+    import os
+
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):
+        cpus = os.cpu_count() or 1
+    return (f"Measured with Python {platform.python_version()}, NumPy {np.__version__}, "
+            f"{platform.system()} {platform.machine()}, {cpus} CPUs.")
+
+
+def render(rows: tuple[Row, ...], *, machine: str, date: str) -> str:
+    """The whole of docs/reliability.md for `rows`."""
+    total = sum(row.cases for row in rows)
+    areas = sorted({row.area.split(":")[0] for row in rows})
+    phrases = [row.summary for row in rows if row.summary]
+    summary = (
+        f"**Summary.** {total:,} hostile or concurrent cases in {len(rows)} kinds "
+        f"({', '.join(areas)}) were tried by the test suite on every CI run. Every malformed "
+        "bundle, model file and request was refused with the documented error (`BundleError`, "
+        "`ModelFormatError`, `NonFiniteError`, HTTP 4xx) and every valid one answered as "
+        "computed directly by the runtime. " + ("; ".join(phrases) + "." if phrases else "")
+    )
+    lines = [HEADER, summary, "", f"{machine} Last written {date}.", "",
+             "## What was tried", "",
+             "| Area | What was tried | Cases | Outcome |", "|---|---|---:|---|"]
+    lines += [f"| {_cell(row.area)} | {_cell(row.tried)} | {row.cases:,} | {_cell(row.outcome)} |"
+              for row in rows]
+    lines += ["", METHOD, FUZZING]
+    return "\n".join(lines).rstrip() + "\n"
