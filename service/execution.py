@@ -82,8 +82,12 @@ class Gate:
         self._admitted += 1
         self._task_group.start_soon(self._execute, job)
         remaining = budget - (anyio.current_time() - started)
-        with anyio.move_on_after(max(remaining, 0.0)):
-            await job.done.wait()
+        try:
+            with anyio.move_on_after(max(remaining, 0.0)):
+                await job.done.wait()
+        finally:
+            # Also when the request itself is cancelled (client gone, shutdown).
+            job.abandoned = not job.done.is_set()
         elapsed = anyio.current_time() - started
         # The elapsed check also covers a computation that finished right at the deadline.
         if not job.done.is_set() or elapsed > budget:

@@ -1,0 +1,150 @@
+"""Fuzz the NumPy-only ONNX reader, and the program builder behind it, with atheris.
+
+CI runs the same check (`check_input`) through hypothesis on a few thousand mutated models
+(tests/reliability/test_reader_fuzz.py); this harness is for runs of hours. An input passes when
+it is refused with `ModelFormatError` (or `UnsupportedOperatorError`), or reads, builds and runs;
+any other exception, or a traced peak above `MEMORY_FACTOR` × size + `MEMORY_CONSTANT` during
+`read_model`, stops the fuzzer with the input saved (libFuzzer's crash-* file).
+
+Usage::
+
+    pip install atheris                                   # not needed for CI
+    python fuzz/fuzz_onnx_reader.py --write-seeds fuzz/corpus
+    python fuzz/fuzz_onnx_reader.py fuzz/corpus -max_total_time=3600 -rss_limit_mb=2048
+
+`--write-seeds` exports a small MLP with both torch exporters (TorchScript and dynamo); the other
+arguments go to libFuzzer (see `-help=1`). Run from the repository root.
+"""
+
+from __future__ import annotations
+
+import io
+import sys
+import tracemalloc
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+from stridecast.runtime import ModelFormatError
+from stridecast.runtime.compile import make_kernel
+from stridecast.runtime.graph import build_program
+from stridecast.runtime.onnx_reader import read_model
+
+# Common practice for a reader that never allocates from an unchecked size: a few copies of the
+# input plus the fixed cost of the Python records.
+MEMORY_FACTOR = 4
+MEMORY_CONSTANT = 256 * 1024
+# Batch the built program is run on (two rows: the smallest that is still a batch).
+PROBE_BATCH = 2
+OUTCOMES = ("read-refused", "build-refused", "run-refused", "ran")
+
+
+class MemoryBoundExceeded(AssertionError):
+    """`read_model` allocated more than the bound allows for an input of this size."""
+
+
+def traced_read(data: bytes):
+    """`read_model(data)` and the tracemalloc peak of that call (the model, or the error)."""
+    tracing = tracemalloc.is_tracing()
+    if not tracing:
+        tracemalloc.start()
+    tracemalloc.reset_peak()
+    try:
+        result = read_model(data)
+    except ModelFormatError as error:
+        result = error
+    finally:
+        peak = tracemalloc.get_traced_memory()[1]
+        if not tracing:
+            tracemalloc.stop()
+    return result, peak
+
+
+def check_input(data: bytes) -> tuple[str, int]:
+    """Run one input through reading, building and one probe call.
+
+    Returns
+    -------
+    outcome : str
+        One of `OUTCOMES`.
+    peak : int
+        tracemalloc peak of `read_model` in bytes.
+
+    Raises
+    ------
+    MemoryBoundExceeded
+        The reader's peak exceeded the bound.
+    Exception
+        Anything other than `ModelFormatError` escaping the reader, builder or probe.
+    """
+    model, peak = traced_read(data)
+    if peak > MEMORY_FACTOR * len(data) + MEMORY_CONSTANT:
+        raise MemoryBoundExceeded(f"read_model peaked at {peak} bytes on {len(data)} bytes.")
+    if isinstance(model, ModelFormatError):
+        return "read-refused", peak
+    inputs = [info for info in model.graph.inputs
+              if info.name not in {tensor.name for tensor in model.graph.initializers}]
+    outputs = model.graph.outputs
+    if len(inputs) != 1 or not outputs:
+        return "build-refused", peak
+    shape = inputs[0].shape
+    width = shape[-1] if shape and isinstance(shape[-1], int) and 0 < shape[-1] <= 64 else None
+    if width is None:
+        return "build-refused", peak
+    try:
+        program = build_program(model, input_name=inputs[0].name, output_name=outputs[0].name)
+        kernel = make_kernel(program, mean=[0.0] * width, scale=[1.0] * width, update="replace")
+    except ModelFormatError:
+        return "build-refused", peak
+    try:
+        with np.errstate(all="ignore"):
+            kernel(np.zeros((PROBE_BATCH, width), np.float32))
+    except ModelFormatError:
+        return "run-refused", peak
+    return "ran", peak
+
+
+def seed_models() -> dict[str, bytes]:
+    """A small MLP exported with both torch exporters: real models to mutate."""
+    import torch  # only for seeds; the harness itself needs stridecast and numpy
+
+    torch.manual_seed(0)
+    mlp = torch.nn.Sequential(torch.nn.Linear(3, 16), torch.nn.Tanh(), torch.nn.Linear(16, 16),
+                              torch.nn.GELU(), torch.nn.Linear(16, 3)).eval()
+    example = (torch.zeros(4, 3),)
+    seeds = {}
+    with warnings.catch_warnings():
+        # Deprecation notes and "torchvision is not installed" are irrelevant to seeds.
+        warnings.simplefilter("ignore")
+        buffer = io.BytesIO()
+        torch.onnx.export(mlp, example, buffer, dynamo=False, input_names=["state"],
+                          output_names=["next"],
+                          dynamic_axes={"state": {0: "batch"}, "next": {0: "batch"}})
+        seeds["mlp-torchscript.onnx"] = buffer.getvalue()
+        program = torch.onnx.export(mlp, example, dynamo=True, verbose=False)
+        seeds["mlp-dynamo.onnx"] = program.model_proto.SerializeToString()
+    return seeds
+
+
+def _test_one_input(data: bytes) -> None:
+    check_input(data)
+
+
+def main(argv: list[str]) -> int:
+    if len(argv) >= 3 and argv[1] == "--write-seeds":
+        folder = Path(argv[2])
+        folder.mkdir(parents=True, exist_ok=True)
+        for name, data in seed_models().items():
+            (folder / name).write_bytes(data)
+        return 0
+    import atheris  # optional: only this long-running mode needs it
+
+    atheris.instrument_all()
+    atheris.Setup(argv, _test_one_input)
+    atheris.Fuzz()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv))

@@ -1,0 +1,224 @@
+"""Smoke tests of the benchmark suite: tiny sizes, table structure, equal answers; no timings.
+
+Speed is never asserted here (DEVELOPERS.md: speed belongs in `benchmarks/`); what is checked
+is that every competitor computes the same thing as stridecast, so the timings compare equal
+work, and that the report keeps its shape.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+pytest.importorskip("onnxruntime")
+pytest.importorskip("torch")
+pytest.importorskip("scipy")
+
+from stridecast.benchmarks import (
+    bundle_bench,
+    environment,
+    plot,
+    report,
+    solver_bench,
+    system_bench,
+)
+from stridecast.benchmarks.cli import document
+from stridecast.benchmarks.competitors import (
+    OnnxRuntimeLoop,
+    TorchEagerLoop,
+    plan_steps,
+)
+from stridecast.benchmarks.reference import (
+    build_reference,
+    finest_only_bundle,
+    torch_twins,
+)
+from stridecast.benchmarks.timing import Budget, interleaved, summary
+from stridecast.runtime import load
+
+from stridecast import crane
+
+TINY_STRIDES = (1, 2, 4, 8)
+TINY_HIDDEN = (16, 16)
+# One round after one warm-up call: enough to exercise the code, no timing meaning.
+TINY_BUDGET = Budget(seconds=0.0, min_rounds=2, max_rounds=2, warmup=1)
+TINY_BUDGETS = dict.fromkeys(("latency", "naive", "batch", "dense"), TINY_BUDGET)
+# float32 rounding of the same network evaluated by different libraries, a few steps deep, on
+# states of size ~24 (the reference mean): a few ulps of 24 (ulp ≈ 1.9e-6) per step
+# (common practice for float32 cross-library comparisons).
+FLOAT32_AGREEMENT = 1e-4
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory):
+    directory = tmp_path_factory.mktemp("bench")
+    return build_reference(directory, strides=TINY_STRIDES, hidden=TINY_HIDDEN)
+
+
+@pytest.fixture(scope="module")
+def bench_result(reference, tmp_path_factory):
+    return bundle_bench.run(reference.path, torch_modules=reference.modules, horizons=(4, 12),
+                            batches=(1, 3), batch_base_steps=12, dense_points=40,
+                            naive_target_steps=20, budgets=TINY_BUDGETS,
+                            work_dir=tmp_path_factory.mktemp("work"))
+
+
+@pytest.fixture(scope="module")
+def solver_result(reference):
+    return solver_bench.run(load(reference.path), (4, 20), trained_on_crane=False,
+                            target_steps=20, budget=TINY_BUDGET)
+
+
+def test_onnxruntime_loop_matches_stridecast(reference):
+    stepper = load(reference.path)
+    states = bundle_bench.example_states(stepper, 5)
+    steps = plan_steps(stepper, 27)
+    # Expected: the runtime's own answer; onnxruntime runs the same ONNX files on the same plan.
+    expected = stepper.advance(states, 27 * stepper.base_step)
+    answer = OnnxRuntimeLoop(stepper, reference.path).advance(states, steps)
+    np.testing.assert_allclose(answer, expected, rtol=0, atol=FLOAT32_AGREEMENT)
+
+
+def test_torch_loop_matches_stridecast_with_originals_and_twins(reference):
+    stepper = load(reference.path)
+    states = bundle_bench.example_states(stepper, 5)
+    steps = plan_steps(stepper, 27)
+    expected = stepper.advance(states, 27 * stepper.base_step)
+    # Expected: the runtime's answer; torch runs the modules the ONNX files were written from.
+    original = TorchEagerLoop(stepper, reference.modules).advance(states, steps)
+    np.testing.assert_allclose(original, expected, rtol=0, atol=FLOAT32_AGREEMENT)
+    twins = torch_twins(reference.path)
+    assert sorted(twins) == list(TINY_STRIDES)
+    rebuilt = TorchEagerLoop(stepper, twins).advance(states, steps)
+    np.testing.assert_allclose(rebuilt, original, rtol=0, atol=1e-6)
+
+
+def test_naive_rollout_is_the_finest_level_repeated(reference, tmp_path):
+    stepper = load(reference.path)
+    naive = load(finest_only_bundle(reference.path, tmp_path / "finest.bundle"))
+    assert naive.strides == (1,)
+    state = bundle_bench.example_states(stepper, 1)[0]
+    # Expected: the full bundle's finest level applied 7 times by hand.
+    expected = state
+    for _ in range(7):
+        expected = stepper.step(expected, 1)
+    np.testing.assert_allclose(naive.advance(state, 7 * stepper.base_step), expected,
+                               rtol=0, atol=1e-6)
+    assert naive.plan(7 * stepper.base_step).evaluations == 7
+
+
+def test_solver_matches_the_crane_ground_truth():
+    state = solver_bench.initial_state()
+    # Expected: stridecast.crane.simulate, SciPy DOP853 at rtol = atol = 1e-10.
+    truth = crane.simulate(state, np.array([0.5]))[0]
+    tight = solver_bench.solve(state, 0.5, "DOP853", {"rtol": 1e-10, "atol": 1e-10})
+    np.testing.assert_allclose(tight, truth, rtol=0, atol=1e-7)
+    loose = solver_bench.solve(state, 0.5, "RK45", solver_bench.RK45_DEFAULT)
+    np.testing.assert_allclose(loose, truth, rtol=0, atol=1e-2)
+
+
+def test_bundle_run_structure_and_agreement(bench_result):
+    assert set(bench_result) >= {"bundle", "environment", "settings", "latency", "batch",
+                                 "dense", "agreement"}
+    assert bench_result["settings"]["peers"] == ["onnxruntime", "torch"]
+    assert [row["base_steps"] for row in bench_result["latency"]] == [4, 12, 20]
+    for row in bench_result["latency"]:
+        assert set(row["times"]) >= {"stridecast", "onnxruntime", "torch", "naive"}
+        assert row["evaluations"] == sum(count for _, count in row["steps"])
+        assert {"p50", "p99", "mean", "rounds"} <= set(row["times"]["stridecast"])
+    assert [row["batch"] for row in bench_result["batch"]] == [1, 3]
+    dense = bench_result["dense"]
+    # Powers of two: every target 1..40 is a node of the shared-prefix tree (a plan's prefix
+    # sums are themselves targets), so the tree has exactly 40 non-root nodes.
+    assert dense["points"] == 40 and dense["evaluations"] == 40
+    assert set(bench_result["agreement"]) == {"onnxruntime", "torch"}
+    assert max(bench_result["agreement"].values()) <= FLOAT32_AGREEMENT
+    json.dumps(bench_result)  # JSON-ready as written to bench-results.json
+
+
+def test_solver_run_structure(solver_result):
+    assert solver_result["trained_on_crane"] is False
+    assert solver_result["tolerance_matched"] is False
+    assert [row["base_steps"] for row in solver_result["rows"]] == [4, 20]
+    assert set(solver_result["rows"][0]["times"]) == {"stridecast", "rk45", "dop853"}
+    assert solver_bench.speedup_at(solver_result, 20, "rk45") > 0
+
+
+def _table_rows(text: str) -> list[list[str]]:
+    return [[cell.strip() for cell in line.strip("|").split("|")]
+            for line in text.splitlines() if line.startswith("|")]
+
+
+def _assert_rectangular(text: str) -> list[list[str]]:
+    rows = _table_rows(text)
+    assert len({len(row) for row in rows}) == 1, text
+    assert set(rows[1][0]) == {"-"}  # the Markdown header rule
+    return rows
+
+
+def test_target_table_lists_every_target_with_status(bench_result, solver_result):
+    measured = report.measure_targets(bench_result, solver_result)
+    assert set(measured) == {target.key for target in report.TARGETS}
+    assert measured["import"] is None  # no start-up measurement given
+    rows = _assert_rectangular(report.target_table({"default": measured}))
+    assert len(rows) == 2 + len(report.TARGETS)
+    assert {row[3] for row in rows[2:]} <= {"PASS", "MISS", "n/a"}
+
+
+def test_bundle_tables_are_rectangular(bench_result, solver_result):
+    for table in (report.latency_table(bench_result),
+                  report.batch_table({"default": bench_result}),
+                  report.dense_table({"default": bench_result}),
+                  report.solver_table(solver_result)):
+        rows = _assert_rectangular(table)
+        assert len(rows) > 2
+    assert "Bundle `" in bundle_bench.to_markdown(bench_result)
+
+
+def test_document_and_plot(bench_result, solver_result, tmp_path):
+    system = {"imports": {"numpy": {"seconds": 0.1, "wall": 0.2, "repeats": 1},
+                          "stridecast.runtime": {"seconds": 0.12, "wall": 0.22, "repeats": 1}},
+              "import_and_load": {"seconds": 0.15, "wall": 0.25, "repeats": 1},
+              "peak_rss_kib": {"numpy": 1000.0, "stridecast": 1100.0}}
+    passes = {"default": {"environment": bench_result["environment"], "bench": bench_result,
+                          "solvers": solver_result, "system": system}}
+    results = {"command": "python -m benchmarks --quick", "passes": passes,
+               "targets": {"default": report.measure_targets(bench_result, solver_result,
+                                                             system)}}
+    assert results["targets"]["default"]["import"] == pytest.approx(1.2)
+    text = document(results)
+    for heading in ("## Targets", "## Single-state", "## Batches", "## Dense forecast",
+                    "## Against SciPy", "## Start-up and memory", "## Agreement"):
+        assert heading in text
+    assert "`python -m benchmarks --quick`" in text
+    path = plot.plot_horizon(bench_result, solver_result, tmp_path / "horizon.png")
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    labels = plot.horizon_series(bench_result, solver_result)
+    assert "naive finest-level rollout" in labels and "solve_ivp RK45 (default tol.)" in labels
+
+
+def test_child_process_reports_import_time_and_peak_memory(tmp_path):
+    record = system_bench._run_child(system_bench.import_scripts()["numpy"], str(tmp_path))
+    assert record["seconds"] > 0 and record["wall"] >= record["seconds"]
+    assert record["maxrss_kib"] > 0
+
+
+def test_interleaved_timing_and_summary():
+    calls = []
+    samples = interleaved({"a": lambda: calls.append("a"), "b": lambda: calls.append("b")},
+                          Budget(seconds=0.0, min_rounds=3, max_rounds=3, warmup=1))
+    # One warm-up call each, then three rounds taken in turn.
+    assert calls == ["a", "b", "a", "b", "a", "b", "a", "b"]
+    assert {name: len(values) for name, values in samples.items()} == {"a": 3, "b": 3}
+    assert summary(np.array([1.0, 2.0, 3.0]))["p50"] == 2.0  # median (common practice)
+
+
+def test_environment_record_names_thread_settings():
+    record = environment.describe()
+    assert set(record["thread_variables"]) == set(environment.THREAD_VARIABLES)
+    blas = record["numpy_blas"]
+    assert blas["source"] in {"threadpoolctl", "openblas", "unknown"}
+    assert blas["threads"] is None or blas["threads"] >= 1
+    json.dumps(record)
