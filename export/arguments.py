@@ -100,7 +100,7 @@ def finite_vector(values: Any, where: str, dim: int | None = None) -> tuple[floa
     bad = np.flatnonzero(~np.isfinite(array))
     if bad.size:
         raise BundleError(
-            f"`{where}` must be finite; entry {int(bad[0])} is {array[bad[0]]!r}."
+            f"`{where}` must be finite; entry {int(bad[0])} is {float(array[bad[0]])!r}."
         )
     return tuple(float(v) for v in array)
 

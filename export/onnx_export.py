@@ -96,7 +96,8 @@ def prepare_level(stride: int, level: Any, state_dim: int,
         kind = "script" if isinstance(level, torch.jit.ScriptModule) else "module"
         try:
             # A copy: converting to float32 and eval mode must not change the caller's module.
-            source = copy.deepcopy(level).float().eval()
+            with quiet_torch():
+                source = copy.deepcopy(level).float().eval()
         except (RuntimeError, TypeError) as error:
             raise BundleError(f"{where}: the module cannot be copied for export: {error}.") \
                 from error

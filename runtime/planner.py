@@ -251,6 +251,11 @@ class StridePlanner:
         self._weight, self._small_total, self._small_counts = _residue_plans(self._largest, small)
         # Every n below this may need the table: the Dijkstra plan of its residue overshoots n.
         self._table_bound = max(self._small_total)
+        # The same per-residue plans as arrays, for `count_matrix` (-1 rows: unreachable).
+        self._small_total_array = np.asarray(self._small_total, dtype=np.int64)
+        self._small_count_array = np.asarray(
+            [c if c is not None else (-1,) * len(small) for c in self._small_counts],
+            dtype=np.int64).reshape(self._largest, len(small))
         self._table: np.ndarray | None = None
         self._lock = threading.Lock()
 
@@ -333,6 +338,46 @@ class StridePlanner:
         table = self._table_for(n)
         self._check_count(n, int(table[n]))
         return _plan_from_table(table, self._strides, n)
+
+    def reachable_mask(self, targets: np.ndarray) -> np.ndarray:
+        """`is_reachable` for an array of non-negative integer targets."""
+        values = np.asarray(targets, dtype=np.int64)
+        floors = self._min_value[values % self._largest]
+        return (floors >= 0) & (floors <= values)
+
+    def count_matrix(self, targets: np.ndarray) -> np.ndarray:
+        """Plans of many targets at once: counts of shape (len(targets), len(strides)).
+
+        Columns follow `strides` (largest first); each row is the plan `steps` returns. Targets
+        on the residue shortest path (all but small ones) are planned in one vectorised pass.
+        """
+        values = np.asarray(targets)
+        if values.ndim != 1 or (values.size and values.dtype.kind not in "iu"):
+            raise TimeError("targets must be a 1-D array of integers (base steps).")
+        values = values.astype(np.int64, copy=False)
+        if values.size and (values.min() < 0 or values.max() > MAX_TARGET):
+            bad = values[(values < 0) | (values > MAX_TARGET)][0]
+            _validate_target(int(bad))
+        residues = values % self._largest
+        floors = self._min_value[residues]
+        unreachable = (floors < 0) | (floors > values)
+        if unreachable.any():
+            self.steps(int(values[unreachable][0]))  # raises, naming the nearest targets
+        counts = np.zeros((values.size, len(self._strides)), dtype=np.int64)
+        totals = self._small_total_array[residues]
+        fast = totals <= values
+        if len(self._strides) > 1:
+            counts[fast, 1:] = self._small_count_array[residues[fast]]
+        counts[fast, 0] = (values[fast] - totals[fast]) // self._largest
+        column = {stride: index for index, stride in enumerate(self._strides)}
+        for index in np.flatnonzero(~fast):
+            for stride, count in self.steps(int(values[index])):
+                counts[index, column[stride]] = count
+        steps = counts.sum(axis=1)
+        if steps.size and steps.max() > self._max_steps:
+            worst = int(np.argmax(steps))
+            self._check_count(int(values[worst]), int(steps[worst]))
+        return counts
 
     def step_count(self, n: int) -> int:
         """Number of steps (network evaluations) in the plan for n base steps."""

@@ -100,22 +100,19 @@ def _count_matrix(
 ) -> tuple[tuple[int, ...], np.ndarray, np.ndarray]:
     """Distinct targets' step counts (rows, strides largest first) and each target's row."""
     strides = tuple(sorted(planner.strides, reverse=True))
+    values = np.asarray(targets)
+    if values.ndim != 1 or (values.size and values.dtype.kind not in "iu"):
+        values = np.asarray([operator.index(target) for target in targets], dtype=np.int64)
+    distinct, target_rows = np.unique(values, return_inverse=True)
+    vectorised = getattr(planner, "count_matrix", None)
+    if vectorised is not None:
+        return strides, vectorised(distinct), target_rows.reshape(-1)
     column = {stride: index for index, stride in enumerate(strides)}
-    rows: dict[int, int] = {}
-    plans = []
-    target_rows = np.empty(len(targets), dtype=np.int64)
-    for position, target in enumerate(targets):
-        plan = planner.steps(target)  # validates the target and raises TimeError if bad
-        value = operator.index(target)
-        if value not in rows:
-            rows[value] = len(plans)
-            plans.append(plan)
-        target_rows[position] = rows[value]
-    counts = np.zeros((len(plans), len(strides)), dtype=np.int64)
-    for row, plan in enumerate(plans):
-        for stride, count in plan:
+    counts = np.zeros((len(distinct), len(strides)), dtype=np.int64)
+    for row, target in enumerate(distinct.tolist()):
+        for stride, count in planner.steps(target):  # validates; raises TimeError if bad
             counts[row, column[stride]] = count
-    return strides, counts, target_rows
+    return strides, counts, target_rows.reshape(-1)
 
 
 def build_schedule(targets: Sequence[int], planner: Planner) -> Schedule:

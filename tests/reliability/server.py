@@ -35,6 +35,7 @@ class Server:
     port: int
     process: subprocess.Popen
     log: Path
+    ready_rss: int = 0
 
     def rss_bytes(self) -> int:
         """Resident set size of the server process (VmRSS in /proc/PID/status)."""
@@ -88,6 +89,7 @@ def running_server(models: dict[str, Path], log: Path, **settings) -> Iterator[S
             if time.monotonic() > deadline:
                 pytest.fail("the server did not become ready in time")
             time.sleep(0.1)
+        server.ready_rss = server.rss_bytes()
         yield server
     finally:
         if server.alive():

@@ -239,3 +239,22 @@ def test_bad_targets(target):
 def test_numpy_integer_targets():
     planner = StridePlanner(np.array([1, 4], dtype=np.int64))
     assert planner.steps(np.int64(9)) == ((4, 2), (1, 1))
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    strides=st.lists(st.integers(1, 40), min_size=1, max_size=5, unique=True),
+    targets=st.lists(st.integers(0, 3000), min_size=1, max_size=40),
+)
+def test_count_matrix_equals_steps(strides, targets):
+    # Reference: the scalar `steps`, itself checked against brute force above.
+    planner = StridePlanner(strides)
+    reachable = [n for n in targets if planner.is_reachable(n)]
+    assert planner.reachable_mask(np.asarray(targets)).tolist() == [
+        planner.is_reachable(n) for n in targets]
+    if not reachable:
+        return
+    counts = planner.count_matrix(np.asarray(reachable))
+    for row, target in zip(counts, reachable, strict=True):
+        expected = dict(planner.steps(target))
+        assert {s: int(c) for s, c in zip(planner.strides, row, strict=True) if c} == expected
