@@ -131,6 +131,7 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
         report.latency_table(bench),
         f"## Batches: `advance` to {bench['settings']['batch_base_steps']:,} base steps",
         report.batch_table(benches),
+        *report.threading_notes(benches),
         "## Dense forecast",
         report.dense_table(benches),
     ]
@@ -141,6 +142,11 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
                      f"![advance cost against horizon]({plot_name})"]
     if "system" in default:
         sections += ["## Start-up and memory (fresh processes, medians)",
+                     "Import time is measured inside each child around the import statement "
+                     "alone; bytecode is compiled once into a private cache before timing, as "
+                     "an installed package would have it. Peak RSS is the child's VmHWM after "
+                     "importing, loading the bundle and running `advance` (numpy: after "
+                     "`import numpy` only).",
                      report.system_table(default["system"])]
     agreement = {label: p["bench"]["agreement"] for label, p in passes.items()}
     sections += ["## Agreement",

@@ -169,6 +169,33 @@ def batch_table(passes: Mapping[str, Mapping[str, Any]]) -> str:
     return "\n".join(lines)
 
 
+# A default-thread call this many times slower than the 1-thread call means the BLAS threads
+# were waiting for CPU time (oversubscription), not computing.
+OVERSUBSCRIBED = 3.0
+
+
+def threading_notes(passes: Mapping[str, Mapping[str, Any]]) -> list[str]:
+    """A note for each batch size where default BLAS threading was far slower than 1 thread."""
+    if "default" not in passes or len(passes) < 2:
+        return []
+    single = next(bench for label, bench in passes.items() if label != "default")
+    slow = []
+    for row in passes["default"]["batch"]:
+        other = _row(single["batch"], "batch", row["batch"])
+        if other is None:
+            continue
+        ratio = row["times"]["stridecast"]["p50"] / other["times"]["stridecast"]["p50"]
+        if ratio >= OVERSUBSCRIBED:
+            slow.append(f"batch {row['batch']:,} ({ratio:.3g}× slower)")
+    if not slow:
+        return []
+    return [f"With NumPy's default BLAS threads the runtime was much slower than with one "
+            f"thread at {', '.join(slow)}: OpenBLAS splits these products across threads "
+            "that then wait for CPU time when the machine is busy (the load average above). "
+            "For serving, run with `OPENBLAS_NUM_THREADS=1` (one thread per worker process); "
+            "onnxruntime here runs with one intra-op thread."]
+
+
 def dense_table(passes: Mapping[str, Mapping[str, Any]]) -> str:
     """Dense forecast against one network call at the same batch."""
     lines = ["| Threads | Points | Evaluations / calls / depth | forecast | per point | "
@@ -206,12 +233,17 @@ def solver_note(solvers: Mapping[str, Any]) -> str:
     """One paragraph on what the solver comparison timed and how DOP853's tolerance was set."""
     if solvers["trained_on_crane"]:
         match = solvers["match"]
-        text = (f"Stepper: `{solvers['stepper']}`, trained on the crane. At t = {match['t']:g} "
+        text = (f"Stepper: `{solvers['stepper']}` ({solvers['stepper_source']}), trained on "
+                f"the crane; timed from a 0.15 rad swing with a 2 cm bob. At t = {match['t']:g} "
                 f"its RMS error against the DOP853 ground truth is {match['stepper_error']:.3g}; "
                 f"RK45 at default tolerances: {match['rk45_error']:.3g}.")
         if solvers["tolerance_matched"]:
-            text += (f" DOP853 at the loosest tolerance at least as accurate has error "
-                     f"{match['dop853_error']:.3g}.")
+            loosest = match["dop853_tolerance"]["rtol"] == max(solvers["candidate_rtols"])
+            text += (f" DOP853 at rtol = atol = {match['dop853_tolerance']['rtol']:g} has error "
+                     f"{match['dop853_error']:.3g}" + (
+                         ": even the loosest tolerance tried is at least as accurate as the "
+                         "stepper." if loosest else
+                         ", the loosest tolerance tried that is at least as accurate."))
         else:
             text += " No DOP853 tolerance tried was as loose as the stepper's error allows."
         return text

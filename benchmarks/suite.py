@@ -76,7 +76,7 @@ def _solvers(bundle: Path, crane_bundle: Path | None, quick: bool) -> dict[str, 
     target = bundle_bench.on_grid(stepper, bundle_bench.NAIVE_TARGET_STEPS)
     logger.info("solve_ivp comparison with %s", crane_bundle if trained else bundle)
     return solver_bench.run(stepper, horizons, trained_on_crane=trained, target_steps=target,
-                            quick=quick)
+                            quick=quick, source=str(crane_bundle if trained else bundle))
 
 
 def single_thread_pass(bundle: Path, *, quick: bool, out: Path) -> dict[str, Any]:

@@ -11,6 +11,7 @@ import json
 import logging
 import os
 import shutil
+import sys
 import tempfile
 from collections.abc import Iterable, Mapping
 from pathlib import Path
@@ -21,12 +22,20 @@ import torch
 from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
 from stridecast.runtime.bundle import REPORT_NAME
 from stridecast.runtime.errors import BundleError
+from tqdm.auto import tqdm
 
 import stridecast
 
 from . import plots
-from .arguments import build_spec, check_exporter, declared_state_dim, level_pairs
-from .onnx_export import EXAMPLE_BATCH, export_level, infer_state_dim, prepare_level
+from .arguments import ExportSpec, build_spec, check_exporter, declared_state_dim, level_pairs
+from .onnx_export import (
+    EXAMPLE_BATCH,
+    ExportedLevel,
+    PreparedLevel,
+    export_level,
+    infer_state_dim,
+    prepare_level,
+)
 from .trained import TrainedLevels
 from .verify import DEFAULT_SAMPLES, Tolerance, normalised_example, sample_states, verify_levels
 
@@ -56,6 +65,7 @@ def export_bundle(
     verify_states: Any = None,
     tolerance: Tolerance | None = None,
     seed: int = 0,
+    progress: bool = False,
 ) -> Path:
     """Export one torch network per stride into a verified stridecast bundle.
 
@@ -97,6 +107,8 @@ def export_bundle(
         Float32 tolerance of the comparison (docs/export.md).
     seed : int
         Seed of the verification draw.
+    progress : bool
+        Show a progress bar over the levels on stderr.
 
     Returns
     -------
@@ -142,23 +154,10 @@ def export_bundle(
     example = normalised_example(spec, sample, EXAMPLE_BATCH)
     prepared = {stride: prepare_level(stride, level, state_dim, example)
                 for stride, level in pairs}
-    exported = {}
-    for stride in spec.strides:
-        exported[stride] = export_level(prepared[stride], state_dim=state_dim,
-                                        exporter=exporter, example=example, opset=opset)
-        logger.info("exported stride %d with the %s exporter (opset %d, %d nodes)", stride,
-                    exported[stride].exporter, exported[stride].opset,
-                    len(exported[stride].operators))
+    exported = _export_levels(prepared, exporter=exporter, example=example, opset=opset,
+                              progress=progress)
+    manifest = _manifest(spec, exported)
 
-    manifest = Manifest(
-        state_names=spec.state_names, state_units=spec.state_units, base_step=spec.base_step,
-        mean=spec.mean, scale=spec.scale, update=spec.update, time_unit=spec.time_unit,
-        name=spec.name, description=spec.description, envelope_min=spec.envelope_min,
-        envelope_max=spec.envelope_max, validated_horizon=spec.validated_horizon,
-        levels=tuple(LevelEntry(stride=stride, file="", sha256=_PLACEHOLDER_SHA)
-                     for stride in spec.strides),
-        producer=_producer(exported.values()),
-    )
     target.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.export-", dir=target.parent))
     try:
@@ -167,14 +166,7 @@ def export_bundle(
         stepper = load(staged, dtype="float32", verify=True)
         verification = verify_levels(stepper, prepared, exported, spec, sample,
                                      tolerance or Tolerance())
-        report = {"verification": verification, "validation": validation}
-        if trained is not None:
-            report["training"] = {"settings": dict(trained.settings),
-                                  "history": trained.history_json()}
-            if trained.forecast_example is not None:
-                report["plots"] = plots.write_plots(staged, trained.forecast_example,
-                                                    validation, spec.state_names,
-                                                    time_unit=spec.time_unit)
+        report = _report(staged, spec, verification, validation, trained)
         (staged / REPORT_NAME).write_text(json.dumps(report, indent=2, allow_nan=False) + "\n",
                                           encoding="utf-8")
         _check_target(target, overwrite)
@@ -183,6 +175,48 @@ def export_bundle(
         shutil.rmtree(staging, ignore_errors=True)
     logger.info("wrote bundle %s (strides %s)", target, list(spec.strides))
     return target
+
+
+def _export_levels(prepared: Mapping[int, PreparedLevel], *, exporter: str,
+                   example: torch.Tensor, opset: int | None, progress: bool
+                   ) -> dict[int, ExportedLevel]:
+    exported = {}
+    for stride in tqdm(sorted(prepared), desc="export", unit="level", file=sys.stderr,
+                       disable=not progress, leave=False):
+        level = export_level(prepared[stride], state_dim=example.shape[1], exporter=exporter,
+                             example=example, opset=opset)
+        logger.info("exported stride %d with the %s exporter (opset %d, %d nodes)", stride,
+                    level.exporter, level.opset, len(level.operators))
+        exported[stride] = level
+    return exported
+
+
+def _manifest(spec: ExportSpec, exported: Mapping[int, ExportedLevel]) -> Manifest:
+    """The manifest to write; `write_bundle` fills in files and checksums."""
+    return Manifest(
+        state_names=spec.state_names, state_units=spec.state_units, base_step=spec.base_step,
+        mean=spec.mean, scale=spec.scale, update=spec.update, time_unit=spec.time_unit,
+        name=spec.name, description=spec.description, envelope_min=spec.envelope_min,
+        envelope_max=spec.envelope_max, validated_horizon=spec.validated_horizon,
+        levels=tuple(LevelEntry(stride=stride, file="", sha256=_PLACEHOLDER_SHA)
+                     for stride in spec.strides),
+        producer=_producer(exported.values()),
+    )
+
+
+def _report(staged: Path, spec: ExportSpec, verification: dict[str, Any],
+            validation: dict[str, Any] | None, trained: TrainedLevels | None
+            ) -> dict[str, Any]:
+    """The content of report.json; plots are drawn into `staged` on the way."""
+    report: dict[str, Any] = {"verification": verification, "validation": validation,
+                              "plots": []}
+    if trained is not None:
+        report["training"] = {"settings": dict(trained.settings),
+                              "history": trained.history_json()}
+        if trained.forecast_example is not None:
+            report["plots"] = plots.write_plots(staged, trained.forecast_example, validation,
+                                                spec.state_names, time_unit=spec.time_unit)
+    return report
 
 
 def _from_trained(trained: TrainedLevels, *, base_step, mean, scale, update, envelope,

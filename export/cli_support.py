@@ -7,23 +7,21 @@ TorchScript archives. Nothing is ever unpickled as an arbitrary object.
 from __future__ import annotations
 
 import json
-import logging
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
 import torch
 from stridecast.runtime.errors import BundleError, StateError
 
-from .arguments import check_stride
+from .arguments import check_stride, level_pairs
 from .bundle_export import export_bundle
 from .data import load_trajectories
 from .onnx_export import quiet_torch
 from .trained import TrainedLevels
 from .training import train_levels
 
-logger = logging.getLogger(__name__)
 PROGRAM_SUFFIX = ".pt2"
 NORMALIZATION_KEYS = {"mean", "scale", "state_names", "units", "envelope"}
 
@@ -101,30 +99,38 @@ def read_normalization(path: str | os.PathLike[str]) -> dict[str, Any]:
     return document
 
 
-def export_from_files(levels: Mapping[int, str | os.PathLike[str]],
+def export_from_files(levels: Mapping[int, str | os.PathLike[str]]
+                      | Iterable[tuple[int, str | os.PathLike[str]]],
                       out: str | os.PathLike[str], *, base_step: float,
                       normalization_json: str | os.PathLike[str] | None = None,
                       update: str = "increment", name: str | None = None,
                       overwrite: bool = False, exporter: str = "auto",
-                      description: str | None = None, time_unit: str = "s") -> Path:
+                      description: str | None = None, time_unit: str = "s",
+                      progress: bool = True) -> Path:
     """`stridecast export`: one file per stride to a verified bundle.
 
     Parameters
     ----------
-    levels : mapping of int to path
-        Stride to a `.pt2` (torch.export) or TorchScript file.
+    levels : mapping of int to path, or iterable of (stride, path)
+        Stride to a `.pt2` (torch.export) or TorchScript file. Pass the parsed `--level`
+        options as a list of pairs so a repeated stride is refused rather than overwritten.
     normalization_json : path, optional
         JSON with `mean`, `scale` (and optionally `state_names`, `units`, `envelope`).
     Other parameters are those of `export_bundle`.
     """
-    loaded = {check_stride(stride): load_level_file(path, stride)
-              for stride, path in levels.items()}
+    pairs = level_pairs(levels)
+    target = Path(out)
+    if target.exists() and not overwrite:
+        raise BundleError(
+            f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to replace it."
+        )
     extra = read_normalization(normalization_json) if normalization_json is not None else {}
+    loaded = [(stride, load_level_file(path, stride)) for stride, path in pairs]
     return export_bundle(
         loaded, out, base_step=base_step, mean=extra.get("mean"), scale=extra.get("scale"),
         state_names=extra.get("state_names"), units=extra.get("units"),
         envelope=extra.get("envelope"), update=update, name=name, description=description,
-        time_unit=time_unit, overwrite=overwrite, exporter=exporter,
+        time_unit=time_unit, overwrite=overwrite, exporter=exporter, progress=progress,
     )
 
 
@@ -166,5 +172,6 @@ def train_from_file(data_path: str | os.PathLike[str], out: str | os.PathLike[st
     trained = train_levels(data.trajectories, base_step=step, strides=strides,
                            progress=progress, state_names=data.state_names,
                            state_units=data.units, **training)
-    path = export_bundle(trained, target, name=name, overwrite=overwrite, exporter=exporter)
+    path = export_bundle(trained, target, name=name, overwrite=overwrite, exporter=exporter,
+                         progress=progress)
     return path, trained

@@ -120,6 +120,11 @@ def resolve_exporter(prepared: PreparedLevel, exporter: str) -> str:
                 "exporter cannot trace; use exporter='legacy' or 'auto'."
             )
         return "legacy"
+    if prepared.kind == "program" and exporter == "legacy":
+        raise BundleError(
+            f"level stride {prepared.stride} is a torch.export program, which only the dynamo "
+            "exporter takes; use exporter='dynamo' or 'auto'."
+        )
     return "dynamo" if exporter == "auto" else exporter
 
 
@@ -138,8 +143,7 @@ def export_level(prepared: PreparedLevel, *, state_dim: int, exporter: str, exam
         # keep the original as the cause.
         except Exception as error:
             raise BundleError(
-                f"{where}: the {chosen} exporter failed: {type(error).__name__}: "
-                f"{str(error).strip().splitlines()[0] if str(error).strip() else ''}."
+                f"{where}: the {chosen} exporter failed: {_summary(error)}."
             ) from error
     model = normalise_model(model, where=where, state_dim=state_dim)
     opset_version = next(
@@ -155,6 +159,11 @@ def normalise_model(model: onnx.ModelProto, *, where: str, state_dim: int) -> on
     if len(model.functions):
         model = onnx.inliner.inline_local_functions(model)
         del model.functions[:]
+        # The functions' domains are no longer used; a reader need not know them.
+        used = {node.domain for node in model.graph.node} | {"", "ai.onnx"}
+        kept = [entry for entry in model.opset_import if entry.domain in used]
+        del model.opset_import[:]
+        model.opset_import.extend(kept)
     graph = model.graph
     initializer_names = {tensor.name for tensor in graph.initializer}
     inputs = [value for value in graph.input if value.name not in initializer_names]
@@ -186,11 +195,10 @@ def _export_dynamo(prepared: PreparedLevel, example: torch.Tensor,
 
 def _export_legacy(prepared: PreparedLevel, example: torch.Tensor,
                    opset: int | None) -> onnx.ModelProto:
-    source = prepared.call if prepared.kind == "program" else prepared.source
     buffer = io.BytesIO()
     options: dict[str, Any] = {} if opset is None else {"opset_version": opset}
     torch.onnx.export(
-        source, (example,), buffer, dynamo=False, input_names=[INPUT_NAME],
+        prepared.source, (example,), buffer, dynamo=False, input_names=[INPUT_NAME],
         output_names=[OUTPUT_NAME], dynamic_axes={INPUT_NAME: {0: "batch"},
                                                   OUTPUT_NAME: {0: "batch"}},
         do_constant_folding=True, **options,
@@ -206,7 +214,7 @@ def _check_output(where: str, call: Callable, example: torch.Tensor, state_dim: 
         except Exception as error:
             raise BundleError(
                 f"{where}: calling the module on a float32 batch of shape "
-                f"{tuple(example.shape)} failed: {type(error).__name__}: {error}."
+                f"{tuple(example.shape)} failed: {_summary(error)}."
             ) from error
     if not isinstance(result, torch.Tensor):
         raise BundleError(
@@ -223,6 +231,13 @@ def _check_output(where: str, call: Callable, example: torch.Tensor, state_dim: 
             f"{where}: the module returns {result.dtype} for float32 input; export it in "
             "float32."
         )
+
+
+def _summary(error: BaseException) -> str:
+    """Type and first line of an error from torch (whose messages run to many lines)."""
+    lines = str(error).strip().splitlines()
+    first = lines[0].rstrip(".") if lines else ""
+    return f"{type(error).__name__}: {first}" if first else type(error).__name__
 
 
 def _program_input_shape(program: torch.export.ExportedProgram

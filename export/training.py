@@ -308,7 +308,12 @@ def _check_settings(*, hidden, activation, rollout, epochs, batch_size, learning
                     select_levels) -> TrainingSettings:
     if isinstance(hidden, int) or not isinstance(hidden, Sequence) or not hidden:
         raise TrainingError(f"`hidden` is {hidden!r}; expected a non-empty list of widths.")
-    widths = tuple(_positive_int(width, "hidden") for width in hidden)
+    try:
+        widths = tuple(_positive_int(width, "hidden") for width in hidden)
+    except TrainingError as error:
+        raise TrainingError(
+            f"`hidden` is {list(hidden)!r}; expected positive integer widths."
+        ) from error
     if activation not in ACTIVATIONS:
         raise TrainingError(
             f"`activation` is {activation!r}; expected one of {sorted(ACTIVATIONS)}."

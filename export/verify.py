@@ -39,6 +39,15 @@ class Tolerance:
     relative: float = 1e-4
     rounding_factor: float = 8.0
 
+    def __post_init__(self) -> None:
+        for where, value in (("relative", self.relative),
+                             ("rounding_factor", self.rounding_factor)):
+            if isinstance(value, bool) or not isinstance(value, int | float) \
+                    or not np.isfinite(value) or value < 0:
+                raise BundleError(
+                    f"`Tolerance.{where}` is {value!r}; expected a finite number ≥ 0."
+                )
+
     def bound(self, reference: np.ndarray, states: np.ndarray, next_states: np.ndarray,
               mean: np.ndarray, scale: np.ndarray) -> np.ndarray:
         physical = np.abs(states) + np.abs(next_states) + np.abs(mean)

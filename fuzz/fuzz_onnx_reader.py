@@ -25,7 +25,6 @@ import warnings
 from pathlib import Path
 
 import numpy as np
-
 from stridecast.runtime import ModelFormatError
 from stridecast.runtime.compile import make_kernel
 from stridecast.runtime.graph import build_program

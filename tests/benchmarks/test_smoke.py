@@ -7,7 +7,9 @@ work, and that the report keeps its shape.
 
 from __future__ import annotations
 
+import copy
 import json
+import os
 
 import numpy as np
 import pytest
@@ -200,9 +202,15 @@ def test_document_and_plot(bench_result, solver_result, tmp_path):
 
 
 def test_child_process_reports_import_time_and_peak_memory(tmp_path):
-    record = system_bench._run_child(system_bench.import_scripts()["numpy"], str(tmp_path))
+    before = dict(os.environ)
+    env = system_bench.child_environment(str(tmp_path / "pycache"))
+    assert "PYTHONDONTWRITEBYTECODE" not in env
+    assert env["PYTHONPYCACHEPREFIX"] == str(tmp_path / "pycache")
+    record = system_bench._run_child(system_bench.import_scripts()["numpy"], str(tmp_path),
+                                     env)
     assert record["seconds"] > 0 and record["wall"] >= record["seconds"]
     assert record["maxrss_kib"] > 0
+    assert dict(os.environ) == before  # only the child's environment differs
 
 
 def test_interleaved_timing_and_summary():
@@ -222,3 +230,40 @@ def test_environment_record_names_thread_settings():
     assert blas["source"] in {"threadpoolctl", "openblas", "unknown"}
     assert blas["threads"] is None or blas["threads"] >= 1
     json.dumps(record)
+
+
+def test_threading_note_only_when_default_threads_are_far_slower(bench_result):
+    slow = copy.deepcopy(bench_result)
+    for row in slow["batch"]:
+        row["times"]["stridecast"]["p50"] *= 10
+    passes = {"default": slow, "1 BLAS thread": bench_result}
+    notes = report.threading_notes(passes)
+    assert len(notes) == 1 and "OPENBLAS_NUM_THREADS=1" in notes[0]
+    assert report.threading_notes({"default": bench_result, "1 BLAS thread": bench_result}) == []
+
+
+class _TruthPlusOffset:
+    """A stand-in stepper: the crane ground truth plus a fixed error on every component."""
+
+    def __init__(self, offset: float):
+        self.offset = offset
+
+    def advance(self, states, t):
+        return crane.simulate(states, np.array([t]))[0] + self.offset
+
+
+def test_matched_tolerance_is_no_more_accurate_than_needed():
+    # Expected: the stand-in's RMS error is offset·√4 (4 components, every state alike).
+    match = solver_bench.matched_tolerance(_TruthPlusOffset(1e-4), 0.5)
+    assert match["stepper_error"] == pytest.approx(2e-4, rel=1e-3)
+    assert match["dop853_error"] <= match["stepper_error"]
+    chosen = match["dop853_tolerance"]["rtol"]
+    index = solver_bench.CANDIDATE_RTOLS.index(chosen)
+    assert index > 0  # 1e-2 is far less accurate than 2e-4 over half a second
+    # The next looser tolerance, on the same states, is less accurate than the stepper.
+    looser = solver_bench.CANDIDATE_RTOLS[index - 1]
+    states = crane.sample_initial_states(solver_bench.ERROR_STATES, np.random.default_rng(0))
+    truth = crane.simulate(states, np.array([0.5]))[0]
+    answers = np.stack([solver_bench.solve(s, 0.5, "DOP853", {"rtol": looser, "atol": looser})
+                        for s in states])
+    assert np.sqrt(np.mean(np.sum((answers - truth) ** 2, axis=-1))) > match["stepper_error"]

@@ -9,11 +9,10 @@ import numpy as np
 import onnxruntime
 import pytest
 import torch
-from torch import nn
-
 from stridecast.export import Tolerance, VerificationError, export_bundle
 from stridecast.export import bundle_export as bundle_export_module
 from stridecast.runtime import BundleError, load
+from torch import nn
 
 ACTIVATIONS = {
     "relu": nn.ReLU, "tanh": nn.Tanh, "sigmoid": nn.Sigmoid, "gelu": nn.GELU,
@@ -105,12 +104,14 @@ def test_manifest_fields_and_replace_update(tmp_path):
 
 def test_module_is_not_modified(tmp_path):
     module = mlp("tanh").double().train()
-    export_bundle({1: module}, tmp_path / "b", base_step=1.0, mean=MEAN, scale=SCALE)
+    export_bundle({1: module}, tmp_path / "b", base_step=1.0, mean=MEAN, scale=SCALE,
+                  exporter="legacy")
     assert module.training and next(module.parameters()).dtype == torch.float64
 
 
 def test_state_dimension_inferred_from_module(tmp_path):
-    bundle = export_bundle({2: mlp("tanh", dim=2)}, tmp_path / "b", base_step=1.0)
+    bundle = export_bundle({2: mlp("tanh", dim=2)}, tmp_path / "b", base_step=1.0,
+                           exporter="legacy")
     document = json.loads((bundle / "manifest.json").read_text())
     assert document["state"]["names"] == ["x0", "x1"]
     assert document["normalization"] == {"mean": [0.0, 0.0], "scale": [1.0, 1.0]}
@@ -133,7 +134,9 @@ def test_torchscript_and_program_levels(tmp_path):
 
 # ------------------------------------------------------------------------------ bad arguments
 def export_with(tmp_path, levels=None, **overrides):
-    arguments = {"base_step": 1.0, "mean": [0.0, 0.0, 0.0], "scale": [1.0, 1.0, 1.0]}
+    # The legacy exporter is the fast one; these tests are not about the exporter.
+    arguments = {"base_step": 1.0, "mean": [0.0, 0.0, 0.0], "scale": [1.0, 1.0, 1.0],
+                 "exporter": "legacy"}
     arguments.update(overrides)
     return export_bundle(levels if levels is not None else {1: mlp("tanh")}, tmp_path / "b",
                          **arguments)
@@ -207,12 +210,35 @@ def test_refuses_torchscript_with_dynamo(tmp_path):
         export_with(tmp_path, {1: torch.jit.script(mlp("tanh"))}, exporter="dynamo")
 
 
+def test_refuses_program_with_legacy(tmp_path):
+    program = torch.export.export(mlp("tanh"), (torch.zeros(4, 3),),
+                                  dynamic_shapes=({0: torch.export.Dim("batch")},))
+    with pytest.raises(BundleError, match=r"level stride 1 is a torch\.export program, which "
+                                          r"only the dynamo exporter takes"):
+        export_with(tmp_path, {1: program}, exporter="legacy")
+
+
+def test_refuses_bad_tolerance():
+    with pytest.raises(BundleError, match=r"`Tolerance\.relative` is -1\.0; expected a finite"):
+        Tolerance(relative=-1.0)
+
+
+def test_verifies_on_given_states(tmp_path):
+    states = np.random.default_rng(2).normal(size=(40, 3))
+    bundle = export_with(tmp_path, verify_states=states, verify_samples=16)
+    verification = json.loads((bundle / "report.json").read_text())["verification"]
+    assert verification["states"] == "given states" and verification["samples"] == 16
+    assert verification["box"]["min"] >= list(states.min(axis=0))
+
+
 def test_refuses_existing_target_without_overwrite(tmp_path):
     (tmp_path / "b").mkdir()
     with pytest.raises(BundleError, match=r"already exists; pass overwrite=True"):
         export_with(tmp_path)
 
 
+# The runtime's probe at load divides 0 by 0 too; its NumPy warning is expected here.
+@pytest.mark.filterwarnings("ignore:invalid value encountered:RuntimeWarning")
 def test_refuses_non_finite_module_output(tmp_path):
     class Blows(nn.Module):
         def forward(self, z):

@@ -19,9 +19,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import pytest
-
-from stridecast.runtime import BundleError, Limits, load, sha256_hex
+from stridecast.runtime import DEFAULT_LIMITS, BundleError, Limits, load, sha256_hex
 from stridecast.runtime import loader as loader_module
+
 from tests.builders import linear_bundle, oscillator_matrix
 from tests.runtime.test_bundle import edit_manifest
 
@@ -77,7 +77,8 @@ def watched_load(bundle: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch, 
     outside = (tmp_path / "outside.onnx").resolve()
     atime_works = _atime_is_updated(tmp_path)
 
-    def run(*, limits: Limits = Limits(), block: tuple[Path, ...] = ()) -> tuple[Watch, Exception]:
+    def run(*, limits: Limits = DEFAULT_LIMITS,
+            block: tuple[Path, ...] = ()) -> tuple[Watch, Exception | None]:
         watch = Watch(bundle, outside, blocked={str(path) for path in block})
         os.utime(outside, (OLD_TIME, os.stat(outside).st_mtime))
         real_open, real_io_open, real_os_open = builtins.open, io.open, os.open

@@ -19,8 +19,8 @@ import onnx
 import onnxruntime
 import pytest
 from onnx import TensorProto, helper, numpy_helper
-
 from stridecast.runtime import (
+    DEFAULT_LIMITS,
     LevelEntry,
     Limits,
     Manifest,
@@ -31,6 +31,7 @@ from stridecast.runtime import (
 )
 from stridecast.runtime.graph import build_program
 from stridecast.runtime.onnx_reader import read_model
+
 from tests.runtime.test_onnx_reader import model_bytes, node_model, tensor_model
 from tests.runtime.test_protobuf import length_delimited, tag, varint
 
@@ -43,7 +44,7 @@ AREA_TENSOR = "Model files: tensors"
 AREA_GRAPH = "Model files: graphs"
 
 
-def traced_read(data: bytes, limits: Limits = Limits()) -> tuple[object, int]:
+def traced_read(data: bytes, limits: Limits = DEFAULT_LIMITS) -> tuple[object, int]:
     """`read_model(data)` under tracemalloc: (model or the error raised, peak bytes)."""
     tracemalloc.start()
     try:
@@ -169,7 +170,7 @@ TENSOR_CASES = [
 @pytest.mark.parametrize(("data", "limits", "pattern"), [case[1:] for case in WIRE_CASES],
                          ids=[case[0] for case in WIRE_CASES])
 def test_wire_fault_is_refused_without_allocating(reliability, data, limits, pattern):
-    result, peak = traced_read(data, limits or Limits())
+    result, peak = traced_read(data, limits or DEFAULT_LIMITS)
     assert isinstance(result, ModelFormatError), result
     with pytest.raises(ModelFormatError, match=pattern):
         raise result
@@ -185,7 +186,7 @@ def test_wire_fault_is_refused_without_allocating(reliability, data, limits, pat
 @pytest.mark.parametrize(("data", "limits", "pattern"), [case[1:] for case in TENSOR_CASES],
                          ids=[case[0] for case in TENSOR_CASES])
 def test_impossible_tensor_is_refused_without_allocating(reliability, data, limits, pattern):
-    result, peak = traced_read(data, limits or Limits())
+    result, peak = traced_read(data, limits or DEFAULT_LIMITS)
     assert isinstance(result, ModelFormatError), result
     with pytest.raises(ModelFormatError, match=pattern):
         raise result

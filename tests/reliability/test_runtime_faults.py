@@ -9,6 +9,7 @@ for Log and Div). So which step of a plan fails follows from the signs of cos, c
 
 from __future__ import annotations
 
+import itertools
 import math
 import random
 import threading
@@ -19,7 +20,6 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from onnx import TensorProto, helper, numpy_helper
-
 from stridecast.runtime import LevelEntry, Manifest, NonFiniteError, load, write_bundle
 from stridecast.runtime.compile import SMALL_BATCH
 
@@ -107,7 +107,7 @@ def first_failing_step(base_steps: int, start_angle: float = 0.0) -> tuple[int, 
 @pytest.mark.parametrize("base_steps", [15, 16, 17, 30, 40])
 def test_advance_stops_at_the_step_and_level_that_turned_non_finite(poisoned, reliability,
                                                                      dtype, base_steps):
-    poison, stepper32, stepper64 = poisoned
+    _, stepper32, stepper64 = poisoned
     stepper = stepper32 if dtype == np.float32 else stepper64
     t = base_steps * BASE_STEP
     failing = first_failing_step(base_steps)
@@ -223,7 +223,7 @@ def mlp_level(rng: np.random.Generator, dim: int, hidden: int, dtype=np.float32)
     """Gemm → Tanh → Gemm → Tanh → Gemm with small random weights (increment form)."""
     sizes = [dim, hidden, hidden, dim]
     initializers, nodes, current = [], [], "state"
-    for index, (fan_in, fan_out) in enumerate(zip(sizes[:-1], sizes[1:], strict=True)):
+    for index, (fan_in, fan_out) in enumerate(itertools.pairwise(sizes)):
         weight = rng.normal(0, 0.5 / math.sqrt(fan_in), (fan_out, fan_in)).astype(dtype)
         bias = rng.normal(0, 0.05, fan_out).astype(dtype)
         initializers += [numpy_helper.from_array(weight, f"w{index}"),

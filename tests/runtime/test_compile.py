@@ -16,7 +16,6 @@ import numpy as np
 import onnxruntime
 import pytest
 import torch
-
 from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
 
 ACTIVATIONS = {

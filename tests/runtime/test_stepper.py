@@ -9,8 +9,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.linalg import expm
-
 from stridecast.runtime import NonFiniteError, StateError, TimeError, load
+
 from tests.builders import linear_bundle, oscillator_matrix
 
 RNG = np.random.default_rng(7)
@@ -35,7 +35,7 @@ def linear_stepper(request, tmp_path_factory):
 
 
 def test_advance_matches_matrix_exponential(linear_stepper):
-    stepper, strides = linear_stepper
+    stepper, _ = linear_stepper
     x0 = RNG.normal(size=(5, 3))
     for base_steps in (0, 10, 40, 97, 100, 1234, 5000):
         if not stepper._planner.is_reachable(base_steps):
@@ -49,7 +49,7 @@ def test_advance_matches_matrix_exponential(linear_stepper):
 
 
 def test_forecast_hundreds_of_times(linear_stepper):
-    stepper, strides = linear_stepper
+    stepper, _ = linear_stepper
     x0 = RNG.normal(size=3)
     grid = [n for n in range(0, 3000, 7) if stepper._planner.is_reachable(n)]
     times = np.asarray(grid) * 0.01
@@ -112,7 +112,7 @@ def test_off_grid_policies(tmp_path):
     interpolated = stepper.advance(x0, t)
     # Cubic interpolation error ~ h^4 f''''/24 with h = 0.1 (polynomial interpolation bound).
     assert np.max(np.abs(interpolated - expected)) < 1e-5
-    nearest, plan = stepper.advance_with_plan(x0, t, off_grid="nearest")
+    _, plan = stepper.advance_with_plan(x0, t, off_grid="nearest")
     assert plan.method == "nearest" and plan.base_steps == 12
     with pytest.raises(TimeError, match=r"not a reachable grid time.*1\.2.*1\.3"):
         stepper.advance(x0, t, off_grid="error")

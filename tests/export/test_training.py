@@ -1,0 +1,160 @@
+"""train_levels: argument checks, determinism, history and validation records, and a linear
+system learned to its matrix-exponential flow map."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import torch
+from scipy.linalg import expm
+from stridecast.export import TrainingError, export_bundle, train_levels
+from stridecast.runtime import BundleError, StateError, load
+
+from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
+
+BASE_STEP = 0.1
+TINY = {"hidden": (8,), "epochs": 2, "rollout": 2, "progress": False}
+
+
+@pytest.fixture(scope="module")
+def data() -> np.ndarray:
+    return linear_trajectories(DAMPED_OSCILLATOR, base_step=BASE_STEP, count=16, steps=40,
+                               seed=1)
+
+
+def test_deterministic_for_a_seed_and_leaves_global_state(data):
+    torch.manual_seed(123)
+    rng_state, threads = torch.get_rng_state(), torch.get_num_threads()
+    first = train_levels(data, base_step=BASE_STEP, strides=(1, 4), seed=7, **TINY)
+    second = train_levels(data, base_step=BASE_STEP, strides=(4, 1), seed=7, **TINY)
+    assert torch.equal(torch.get_rng_state(), rng_state)
+    assert torch.get_num_threads() == threads
+    for stride in (1, 4):
+        for (name, a), (_, b) in zip(first.levels[stride].state_dict().items(),
+                                     second.levels[stride].state_dict().items(), strict=True):
+            assert torch.equal(a, b), name
+        assert first.history[stride]["train_loss"] == second.history[stride]["train_loss"]
+    third = train_levels(data, base_step=BASE_STEP, strides=(1, 4), seed=8, **TINY)
+    assert not torch.equal(third.levels[1][0].weight, first.levels[1][0].weight)
+
+
+def test_level_does_not_depend_on_other_strides(data):
+    alone = train_levels(data, base_step=BASE_STEP, strides=(4,), **TINY)
+    together = train_levels(data, base_step=BASE_STEP, strides=(1, 4), **TINY)
+    assert torch.equal(alone.levels[4][0].weight, together.levels[4][0].weight)
+
+
+def test_records(data):
+    trained = train_levels(data, base_step=BASE_STEP, strides=(1, 2, 4), select_levels=True,
+                           state_names=["q", "p"], **TINY)
+    assert trained.update == "increment" and trained.base_step == BASE_STEP
+    assert trained.state_names == ("q", "p")
+    # Normalisation and envelope come from the training split only (split by trajectory).
+    held_out = trained.validation["split"]["held_out_trajectories"]
+    train = np.delete(data, held_out, axis=0)
+    np.testing.assert_allclose(trained.mean, train.reshape(-1, 2).mean(axis=0))
+    np.testing.assert_allclose(trained.scale, train.reshape(-1, 2).std(axis=0))
+    np.testing.assert_allclose(trained.envelope_min, train.min(axis=(0, 1)))
+    assert len(held_out) == 2  # round(0.1 * 16)
+    for stride in (1, 2, 4):
+        entry = trained.history[stride]
+        assert len(entry["train_loss"]) == len(entry["validation_loss"]) == 2
+        assert entry["windows"] == 14 * (40 - 2 * stride)
+        assert entry["train_one_step_mse"] > 0
+    validation = trained.validation
+    assert [row["stride"] for row in validation["one_step"]] == list(trained.strides)
+    horizons = [row["base_steps"] for row in validation["horizons"]]
+    assert horizons == sorted(horizons) and horizons[-1] == 39
+    assert validation["validated_horizon"] == pytest.approx(39 * BASE_STEP)
+    assert trained.validated_horizon == validation["validated_horizon"]
+    decisions = validation["selection"]["decisions"]
+    assert [decision["stride"] for decision in decisions] == [4, 2]
+    assert validation["selection"]["kept"] == list(trained.strides)
+    assert validation["strides"] == list(trained.strides)
+    assert set(trained.history) == {1, 2, 4}
+
+
+def test_progress_bar_on_stderr_only(data, capsys):
+    train_levels(data, base_step=BASE_STEP, strides=(1,), **{**TINY, "progress": True})
+    captured = capsys.readouterr()
+    assert captured.out == "" and "stride 1" in captured.err
+    train_levels(data, base_step=BASE_STEP, strides=(1,), **TINY)
+    assert capsys.readouterr().err == ""
+
+
+def test_single_trajectory_is_split_in_time(data):
+    trained = train_levels(data[0], base_step=BASE_STEP, strides=(1, 2),
+                           validation_fraction=0.25, **TINY)
+    assert trained.validation["split"] == {"method": "time", "train_samples": 30,
+                                           "held_out_samples": 10}
+
+
+def test_without_validation(data):
+    trained = train_levels(data, base_step=BASE_STEP, strides=(1,), validation_fraction=0.0,
+                           **TINY)
+    assert trained.validation is None and trained.validated_horizon is None
+    assert trained.history[1]["validation_loss"] is None
+
+
+@pytest.mark.parametrize(("change", "error", "message"), [
+    ({"trajectories": np.zeros(5)}, StateError,
+     r"`trajectories` has shape \(5,\); expected \(N, T, d\)"),
+    ({"trajectories": np.zeros((2, 10, 2))}, StateError,
+     r"have 10 samples per trajectory; the largest stride 4 with rollout 3 needs at least 13\."),
+    ({"strides": []}, BundleError, r"`strides` is \[\]; expected a non-empty list"),
+    ({"strides": [1, 1]}, BundleError, r"`strides` repeats a stride"),
+    ({"strides": [0, 1]}, BundleError, r"stride 0 must be a positive number of base steps\."),
+    ({"base_step": -1.0}, BundleError, r"`base_step` is -1\.0; expected a finite number > 0\."),
+    ({"hidden": []}, TrainingError, r"`hidden` is \[\]; expected a non-empty list of widths\."),
+    ({"hidden": [16, 0]}, TrainingError, r"`hidden` is \[16, 0\]; expected positive integer"),
+    ({"activation": "swish"}, TrainingError, r"`activation` is 'swish'; expected one of"),
+    ({"epochs": 0}, TrainingError, r"`epochs` is 0; expected a positive integer\."),
+    ({"batch_size": 2.5}, TrainingError, r"`batch_size` is 2\.5; expected a positive integer\."),
+    ({"rollout": 0}, TrainingError, r"`rollout` is 0; expected a positive integer\."),
+    ({"learning_rate": 0.0}, TrainingError, r"`learning_rate` is 0\.0; expected a number > 0\."),
+    ({"validation_fraction": 1.0}, TrainingError,
+     r"`validation_fraction` is 1\.0; expected a number in \[0, 1\)\."),
+    ({"seed": -1}, TrainingError, r"`seed` is -1; expected a non-negative integer\."),
+    ({"threads": 0}, TrainingError, r"`threads` is 0; expected a positive integer\."),
+    ({"state_names": ["a"]}, BundleError, r"`state_names` is \['a'\]; expected a list of 2"),
+])
+def test_refuses_bad_arguments(data, change, error, message):
+    arguments = {"trajectories": data, "base_step": BASE_STEP, "strides": [1, 4],
+                 **TINY, "rollout": 3}
+    arguments.update(change)
+    with pytest.raises(error, match=message):
+        train_levels(arguments.pop("trajectories"), **arguments)
+
+
+def test_refuses_non_finite_data(data):
+    broken = data.copy()
+    broken[0, 3, 1] = np.nan
+    with pytest.raises(StateError, match=r"holds NaN or infinity \(1 values\), first at "
+                                         r"trajectory 0, step 3, component 1\."):
+        train_levels(broken, base_step=BASE_STEP, strides=[1], **TINY)
+
+
+@pytest.mark.slow
+def test_linear_system_reaches_matrix_exponential(tmp_path):
+    trajectories = linear_trajectories(DAMPED_OSCILLATOR, base_step=BASE_STEP, count=64,
+                                       steps=60, seed=3)
+    trained = train_levels(trajectories, base_step=BASE_STEP, strides=(1, 4), hidden=(32, 32),
+                           epochs=30, learning_rate=1e-2, rollout=2, progress=False)
+    stepper = load(export_bundle(trained, tmp_path / "linear.bundle", exporter="legacy"))
+    fresh = linear_trajectories(DAMPED_OSCILLATOR, base_step=BASE_STEP, count=16, steps=60,
+                                seed=4)
+    scale = np.asarray(trained.scale)
+    for stride in (1, 4):
+        mse = trained.history[stride]["train_one_step_mse"]
+        assert mse < 1e-4  # training converged; otherwise the check below says little
+        states = fresh[:, :-stride].reshape(-1, 2)
+        # Expected: the exact flow map over stride·Δt, expm(A k Δt) (scipy.linalg.expm).
+        exact = states @ expm(DAMPED_OSCILLATOR * stride * BASE_STEP).T
+        learned = stepper.step(states.astype(np.float32), stride).astype(np.float64)
+        rmse = np.sqrt(np.mean(((learned - exact) / scale) ** 2))
+        # The data are exact, so the one-step training MSE is the mean squared deviation of
+        # the learned map from expm on the training distribution; fresh trajectories come
+        # from the same distribution. Allow 3x its root (generalisation, common practice)
+        # plus the float32 export tolerance 1e-4 (1 + |z'|) with |z'| ≲ 3 (docs/export.md).
+        tolerance = 3.0 * np.sqrt(mse) + 4e-4
+        assert rmse <= tolerance, (stride, rmse, tolerance)
