@@ -110,12 +110,19 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
         model_text = (f"Bundle `{info['name']}` ({info['path']}): strides {info['strides']}, "
                       f"d = {info['state_dim']}, base step {info['base_step']:g} "
                       f"{info['time_unit']}.")
+    crane_text = ""
+    if "--crane-bundle" in results["command"]:
+        crane_text = (" `--crane-bundle` names a bundle trained on the crane scenario (made "
+                      "with `stridecast demo --quick --out PATH`); without it the bundle shipped "
+                      "as `stridecast/data/crane-demo.bundle` is used when present.")
     sections = [
         "# Benchmarks",
         f"Regenerate with `{results['command']}` from the repository root (about "
-        f"{'a minute' if 'quick' in results['command'] else 'five minutes'}); it also writes "
-        f"`{RESULTS_NAME}` and `{plot_name}`. All numbers below come from one run on one "
-        "machine; ratios are measured in the same run, peers interleaved round by round.",
+        f"{'a minute' if 'quick' in results['command'] else 'three to five minutes'}); it also "
+        f"writes `{RESULTS_NAME}` and `{plot_name}` (in `--out-dir`, default `.`)." + crane_text,
+        "All numbers below come from one run on one machine; ratios are measured in the same "
+        "run, competitors interleaved round by round so that load from elsewhere on the machine "
+        "touches them alike. The Targets table is the summary to quote.",
         model_text,
         environment_section(passes),
         "## Targets",

@@ -35,6 +35,7 @@ from .onnx_export import (
     export_level,
     infer_state_dim,
     prepare_level,
+    resolve_exporter,
 )
 from .trained import TrainedLevels
 from .verify import DEFAULT_SAMPLES, Tolerance, normalised_example, sample_states, verify_levels
@@ -154,6 +155,8 @@ def export_bundle(
     example = normalised_example(spec, sample, EXAMPLE_BATCH)
     prepared = {stride: prepare_level(stride, level, state_dim, example)
                 for stride, level in pairs}
+    for level in prepared.values():
+        resolve_exporter(level, exporter)  # refuse a mismatch before any slow export
     exported = _export_levels(prepared, exporter=exporter, example=example, opset=opset,
                               progress=progress)
     manifest = _manifest(spec, exported)
@@ -215,7 +218,8 @@ def _report(staged: Path, spec: ExportSpec, verification: dict[str, Any],
                               "history": trained.history_json()}
         if trained.forecast_example is not None:
             report["plots"] = plots.write_plots(staged, trained.forecast_example, validation,
-                                                spec.state_names, time_unit=spec.time_unit)
+                                                spec.state_names, state_units=spec.state_units,
+                                                time_unit=spec.time_unit)
     return report
 
 

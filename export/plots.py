@@ -21,13 +21,17 @@ ERROR_PNG = "error-vs-horizon.png"
 
 
 def write_plots(directory: Path, example: ForecastExample, validation: Mapping[str, Any] | None,
-                state_names: Sequence[str], *, time_unit: str = "s") -> list[str]:
+                state_names: Sequence[str], *, state_units: Sequence[str] = (),
+                time_unit: str = "s") -> list[str]:
     """Write the figures into `directory` and return their file names ([] without matplotlib)."""
     figure_class = _figure_class()
     if figure_class is None:
         logger.info("matplotlib is not installed; no plots were written")
         return []
-    written = [_forecast_figure(figure_class, directory, example, state_names, time_unit)]
+    labels = [f"{name} [{unit}]" if unit else name
+              for name, unit in zip(state_names, list(state_units) or [""] * len(state_names),
+                                    strict=True)]
+    written = [_forecast_figure(figure_class, directory, example, labels, time_unit)]
     horizons = (validation or {}).get("horizons") or []
     if horizons:
         written.append(_error_figure(figure_class, directory, horizons, time_unit))
@@ -43,7 +47,7 @@ def _figure_class() -> Any:
 
 
 def _forecast_figure(figure_class: Any, directory: Path, example: ForecastExample,
-                     state_names: Sequence[str], time_unit: str) -> str:
+                     labels: Sequence[str], time_unit: str) -> str:
     dim = example.truth.shape[1]
     figure = figure_class(figsize=(8, 2.2 * dim + 0.6))
     axes = figure.subplots(dim, 1, sharex=True, squeeze=False)
@@ -54,7 +58,7 @@ def _forecast_figure(figure_class: Any, directory: Path, example: ForecastExampl
                   lw=1.1, ls="--", label="hierarchical forecast")
         axis.plot(example.times, example.finest_only[:, component], color="tab:orange",
                   lw=1.0, ls=":", label="finest level only")
-        axis.set_ylabel(state_names[component])
+        axis.set_ylabel(labels[component])
     axes[0, 0].legend(loc="upper right", fontsize="small")
     axes[-1, 0].set_xlabel(f"time [{time_unit}]")
     figure.suptitle("Forecast from the first held-out state")

@@ -152,7 +152,7 @@ def train_levels(
         envelope_max=tuple(map(float, split.train.max(axis=(0, 1)))),
         state_names=names, state_units=units,
         settings={**asdict(settings), "hidden": list(settings.hidden),
-                  "strides": list(strides), "base_step": base_step},
+                  "strides": list(strides), "base_step": base_step, "threads": threads},
         forecast_example=example,
     )
 

@@ -3,8 +3,9 @@
 CI runs the same check (`check_input`) through hypothesis on a few thousand mutated models
 (tests/reliability/test_reader_fuzz.py); this harness is for runs of hours. An input passes when
 it is refused with `ModelFormatError` (or `UnsupportedOperatorError`), or reads, builds and runs;
-any other exception, or a traced peak above `MEMORY_FACTOR` × size + `MEMORY_CONSTANT` during
-`read_model`, stops the fuzzer with the input saved (libFuzzer's crash-* file).
+any other exception (but the `KNOWN_ISSUES`, bugs already reported), or a traced peak above
+`MEMORY_FACTOR` × size + `MEMORY_CONSTANT` during `read_model`, stops the fuzzer with the input
+saved (libFuzzer's crash-* file; reproduce it by passing that file instead of the corpus).
 
 Usage::
 
@@ -19,7 +20,9 @@ arguments go to libFuzzer (see `-help=1`). Run from the repository root.
 from __future__ import annotations
 
 import io
+import re
 import sys
+import traceback
 import tracemalloc
 import warnings
 from pathlib import Path
@@ -37,6 +40,27 @@ MEMORY_CONSTANT = 256 * 1024
 # Batch the built program is run on (two rows: the smallest that is still a batch).
 PROBE_BATCH = 2
 OUTCOMES = ("read-refused", "build-refused", "run-refused", "ran")
+
+
+# Bugs already reported by strict xfail tests in tests/reliability/test_model_files.py: the
+# fuzzers count them instead of stopping at them. Remove an entry once its bug is fixed.
+KNOWN_ISSUES = {
+    # name: (exception type, message pattern, a frame it passes through, the xfail test)
+    "output-not-produced": (KeyError, r".*", ("graph.py", "run"),
+                            "test_output_that_no_node_produces_is_refused"),
+    "fast-path-attribute": (TypeError, r"unexpected keyword argument", ("compile.py", "__call__"),
+                            "test_activation_with_unknown_attribute_is_refused_on_the_fast_path"),
+}
+
+
+def known_issue(error: BaseException) -> str | None:
+    """The name of the known issue `error` is an instance of, or None."""
+    frames = {(Path(frame.f_code.co_filename).name, frame.f_code.co_name)
+              for frame, _ in traceback.walk_tb(error.__traceback__)}
+    for name, (kind, pattern, frame, _) in KNOWN_ISSUES.items():
+        if type(error) is kind and re.search(pattern, str(error)) and frame in frames:
+            return name
+    return None
 
 
 class MemoryBoundExceeded(AssertionError):
@@ -127,7 +151,11 @@ def seed_models() -> dict[str, bytes]:
 
 
 def _test_one_input(data: bytes) -> None:
-    check_input(data)
+    try:
+        check_input(data)
+    except Exception as error:
+        if known_issue(error) is None:
+            raise
 
 
 def main(argv: list[str]) -> int:

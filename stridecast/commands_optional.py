@@ -128,7 +128,8 @@ def train_command(arguments: argparse.Namespace) -> int:
 def export_command(arguments: argparse.Namespace) -> int:
     with _needs("export"):
         from stridecast.export.cli_support import export_from_files, parse_level_option
-    levels = dict(parse_level_option(text) for text in arguments.level)
+    # A list, not a dict: export_from_files refuses a repeated stride instead of dropping it.
+    levels = [parse_level_option(text) for text in arguments.level]
     path = export_from_files(
         levels, arguments.out, base_step=arguments.base_step,
         normalization_json=arguments.normalization, update=arguments.update,

@@ -180,9 +180,12 @@ def test_bundle_tables_are_rectangular(bench_result, solver_result):
 
 
 def test_document_and_plot(bench_result, solver_result, tmp_path):
-    system = {"imports": {"numpy": {"seconds": 0.1, "wall": 0.2, "repeats": 1},
-                          "stridecast.runtime": {"seconds": 0.12, "wall": 0.22, "repeats": 1}},
-              "import_and_load": {"seconds": 0.15, "wall": 0.25, "repeats": 1},
+    system = {"imports": {"numpy": {"seconds": 0.1, "wall": 0.2, "ratio_to_numpy": 1.0,
+                                    "repeats": 1},
+                          "stridecast.runtime": {"seconds": 0.12, "wall": 0.22,
+                                                 "ratio_to_numpy": 1.2, "repeats": 1}},
+              "import_and_load": {"seconds": 0.15, "wall": 0.25, "ratio_to_numpy": 1.5,
+                                  "repeats": 1},
               "peak_rss_kib": {"numpy": 1000.0, "stridecast": 1100.0}}
     passes = {"default": {"environment": bench_result["environment"], "bench": bench_result,
                           "solvers": solver_result, "system": system}}

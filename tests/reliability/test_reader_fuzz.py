@@ -9,9 +9,7 @@ splices from the other seed, and truncation.
 from __future__ import annotations
 
 import importlib.util
-import re
 import time
-import traceback
 from collections import Counter
 from datetime import timedelta
 from pathlib import Path
@@ -35,27 +33,6 @@ def load_harness():
 
 
 harness = load_harness()
-
-# Exceptions of bugs already reported by strict xfail tests in test_model_files.py; the fuzz
-# run counts them in its row instead of failing CI twice for the same bug. Remove an entry
-# when its bug is fixed (the xfail test then fails as XPASS and says so).
-KNOWN_ISSUES = {
-    # name: (exception type, message pattern, a frame it must pass through, the xfail test)
-    "output-not-produced": (KeyError, r".*", ("graph.py", "run"),
-                            "test_output_that_no_node_produces_is_refused"),
-    "fast-path-attribute": (TypeError, r"unexpected keyword argument", ("compile.py", "__call__"),
-                            "test_activation_with_unknown_attribute_is_refused_on_the_fast_path"),
-}
-
-
-def known_issue(error: Exception) -> str | None:
-    frames = {(Path(frame.f_code.co_filename).name, frame.f_code.co_name)
-              for frame, _ in traceback.walk_tb(error.__traceback__)}
-    for name, (kind, pattern, frame, _) in KNOWN_ISSUES.items():
-        if type(error) is kind and re.search(pattern, str(error)) and frame in frames:
-            return name
-    return None
-
 
 @pytest.fixture(scope="module")
 def seeds() -> list[bytes]:
@@ -107,7 +84,7 @@ def test_mutated_exports_are_refused_or_run(seeds, reliability):
         try:
             outcome, _ = harness.check_input(data)  # raises on anything unexpected
         except Exception as error:
-            outcome = known_issue(error)
+            outcome = harness.known_issue(error)
             if outcome is None:
                 raise
         slowest[0] = max(slowest[0], time.perf_counter() - started)
@@ -118,7 +95,8 @@ def test_mutated_exports_are_refused_or_run(seeds, reliability):
     assert total >= EXAMPLES
     refused = outcomes["read-refused"] + outcomes["build-refused"] + outcomes["run-refused"]
     known = "".join(f"; {outcomes[name]:,} hit the known issue of xfail test `{test}`"
-                    for name, (_, _, _, test) in KNOWN_ISSUES.items() if outcomes[name])
+                    for name, (_, _, _, test) in harness.KNOWN_ISSUES.items()
+                    if outcomes[name])
     reliability.record(
         "Model files: fuzzing",
         f"{EXAMPLES:,} mutated torch.onnx.export MLPs (TorchScript and dynamo exporters) and a "

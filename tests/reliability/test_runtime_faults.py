@@ -13,6 +13,7 @@ import itertools
 import math
 import random
 import threading
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -23,6 +24,9 @@ from onnx import TensorProto, helper, numpy_helper
 from stridecast.runtime import LevelEntry, Manifest, NonFiniteError, load, write_bundle
 from stridecast.runtime.compile import SMALL_BATCH
 
+# The Div poison makes NumPy warn "divide by zero" inside `advance`: a known issue, pinned by
+# test_division_by_zero_in_a_level_raises_without_numpy_warnings below.
+pytestmark = pytest.mark.filterwarnings("ignore:divide by zero encountered:RuntimeWarning")
 THETA = 0.1  # rad per base step; base step 0.1 s, so the angular velocity is 1 rad/s
 BASE_STEP = 0.1
 STRIDES = (1, 4)
@@ -168,6 +172,22 @@ def test_forecast_stops_or_returns_finite(poisoned, reliability, times, fails):
         AREA_NONFINITE, "`forecast` over the same levels: times before/after the bad region, "
         "unordered, duplicated, off-grid (interpolation anchors past the region)", 2,
         "NonFiniteError naming step and stride, or a finite answer matching (cos t, sin t)")
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "Stepper._run_sequential and Stepper._apply wrap the kernels in np.errstate(over='ignore', "
+    "invalid='ignore') but not divide='ignore': a level dividing by zero emits NumPy's "
+    "RuntimeWarning on every call, on top of the NonFiniteError that already reports it."))
+def test_division_by_zero_in_a_level_raises_without_numpy_warnings(tmp_path):
+    out = write_bundle(tmp_path / "div", two_state_manifest(STRIDES),
+                       {stride: poisoned_level(stride, "Div") for stride in STRIDES})
+    with np.errstate(divide="ignore", invalid="ignore"):
+        stepper = load(out)  # the load-time probe at (0, 0) divides by zero by design
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        with pytest.raises(NonFiniteError):
+            stepper.advance(np.array([1.0, 0.0]), 3.0)
+    assert [str(w.message) for w in caught if w.category is RuntimeWarning] == []
 
 
 @given(st.floats(0, 2 * math.pi), st.floats(0, 6), st.integers(1, 20),
@@ -333,6 +353,7 @@ def test_batch_rows_match_single_state_results(mlp_bundle, reliability, dtype, f
     # 8 float32 ulps (2^-23 ≈ 1.2e-7), 1e-13 about 450 float64 ulps (common practice).
     rtol = 1e-6 if dtype == "float32" else 1e-13
     bitwise = total = 0
+    worst = 0.0
     for t in (0.01, 0.17, 0.5):
         for batch in (SMALL_BATCH, len(states)):
             rows = stepper.advance(states[:batch], t)
@@ -341,9 +362,12 @@ def test_batch_rows_match_single_state_results(mlp_bundle, reliability, dtype, f
                 np.testing.assert_allclose(rows[index], single, rtol=rtol,
                                            atol=rtol * np.abs(single).max())
                 bitwise += rows[index].tobytes() == single.tobytes()
+                worst = max(worst, float(np.abs(rows[index] - single).max()
+                                         / np.abs(single).max()))
                 total += 1
     path = "affine-chain" if fast_path else "interpreter"
     reliability.record(
         "Runtime: batch invariance", f"row i of a batched `advance` (batches of 16 and 40) vs "
         f"the single state, {dtype}, {path} path", total,
-        f"all within {rtol:g} relative; {bitwise} of {total} bitwise equal")
+        f"all within {rtol:g} relative (largest {worst:.1e}); {bitwise} of {total} bitwise "
+        "equal")
