@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 import logging
+import os
 import sys
 from pathlib import Path
 from typing import Any
@@ -15,7 +16,7 @@ from .suite import measure_pass, run_suite
 
 RESULTS_NAME = "bench-results.json"
 PLOT_NAME = "bench-horizon.png"
-COMMAND = "python -m benchmarks --markdown docs/benchmarks.md"
+COMMAND = "python -m benchmarks --out-dir docs --markdown docs/benchmarks.md"
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -41,6 +42,9 @@ def build_parser() -> argparse.ArgumentParser:
                         help="write the reference bundle with stridecast.export.export_bundle "
                              "(slow: runs torch's exporter and verifies each level)")
     parser.add_argument("--quiet", action="store_true", help="no progress on stderr")
+    parser.add_argument("--render", type=Path, metavar="RESULTS.json",
+                        help=f"measure nothing: redraw the plot beside an earlier "
+                             f"{RESULTS_NAME} and print (with --markdown, write) its report")
     # Internal: the single-thread child measures one pass and writes it as JSON.
     parser.add_argument("--worker", type=Path, help=argparse.SUPPRESS)
     return parser
@@ -50,6 +54,13 @@ def main(argv: list[str] | None = None) -> int:
     arguments = build_parser().parse_args(argv)
     logging.basicConfig(level=logging.WARNING if arguments.quiet else logging.INFO,
                         format="bench: %(message)s", stream=sys.stderr)
+    if arguments.render is not None:
+        results = json.loads(arguments.render.read_text(encoding="utf-8"))
+        default = results["passes"]["default"]
+        plot = plot_horizon(default["bench"], default.get("solvers"),
+                            arguments.render.parent / PLOT_NAME)
+        _print_and_write(results, plot, arguments.markdown)
+        return 0
     if arguments.worker is not None:
         if arguments.bundle is None:
             raise SystemExit("--worker needs --bundle")
@@ -62,6 +73,7 @@ def main(argv: list[str] | None = None) -> int:
                         single_thread=not arguments.no_single_thread,
                         via_export=arguments.via_export)
     results["command"] = _command(arguments)
+    results["quick"] = arguments.quick
     default = results["passes"]["default"]
     plot = plot_horizon(default["bench"], default.get("solvers"),
                         arguments.out_dir / PLOT_NAME)
@@ -70,19 +82,26 @@ def main(argv: list[str] | None = None) -> int:
                           for label, p in results["passes"].items()}
     (arguments.out_dir / RESULTS_NAME).write_text(json.dumps(results, indent=1) + "\n",
                                                   encoding="utf-8")
-    text = document(results, plot_name=plot.name)
-    if arguments.markdown is not None:
-        arguments.markdown.write_text(text, encoding="utf-8")
-    print(text)
+    _print_and_write(results, plot, arguments.markdown)
     return 0
+
+
+def _print_and_write(results: dict[str, Any], plot: Path, markdown: Path | None) -> None:
+    print(document(results, plot_name=plot.name))
+    if markdown is not None:
+        # The image link is relative to the Markdown file, wherever the plot was written.
+        link = os.path.relpath(plot.resolve(), markdown.resolve().parent)
+        markdown.write_text(document(results, plot_name=Path(link).as_posix()),
+                            encoding="utf-8")
 
 
 def _command(arguments: argparse.Namespace) -> str:
     parts = ["python -m benchmarks"]
     if arguments.quick:
         parts.append("--quick")
+    out_dir = None if arguments.out_dir == Path(".") else arguments.out_dir
     for flag, value in (("--bundle", arguments.bundle), ("--crane-bundle", arguments.crane_bundle),
-                        ("--markdown", arguments.markdown)):
+                        ("--out-dir", out_dir), ("--markdown", arguments.markdown)):
         if value is not None:
             parts.append(f"{flag} {value}")
     if arguments.no_single_thread:
@@ -117,9 +136,10 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
                       "as `stridecast/data/crane-demo.bundle` is used when present.")
     sections = [
         "# Benchmarks",
-        f"Regenerate with `{results['command']}` from the repository root (about "
-        f"{'a minute' if 'quick' in results['command'] else 'three to five minutes'}); it also "
-        f"writes `{RESULTS_NAME}` and `{plot_name}` (in `--out-dir`, default `.`)." + crane_text,
+        f"Regenerate with `{results['command']}` from the repository root ("
+        f"{'about a minute' if results.get('quick') else 'a few minutes'}); it also "
+        f"writes `{RESULTS_NAME}` and `{Path(plot_name).name}` (in `--out-dir`, default `.`)."
+        + crane_text,
         "All numbers below come from one run on one machine; ratios are measured in the same "
         "run, competitors interleaved round by round so that load from elsewhere on the machine "
         "touches them alike. The Targets table is the summary to quote.",

@@ -32,6 +32,9 @@ def horizon_series(bench: Mapping[str, Any], solvers: Mapping[str, Any] | None
         tolerance = solvers["dop853_tolerance"]
         for row in solvers["rows"]:
             steps = row["t"] / base_step
+            if solvers["trained_on_crane"]:
+                add(f"stridecast, crane bundle {solvers['stepper']}", steps,
+                    row["times"]["stridecast"]["p50"])
             add("solve_ivp RK45 (default tol.)", steps, row["times"]["rk45"]["p50"])
             add(f"solve_ivp DOP853 (rtol {tolerance['rtol']:g})", steps,
                 row["times"]["dop853"]["p50"])
@@ -49,7 +52,7 @@ def plot_horizon(bench: Mapping[str, Any], solvers: Mapping[str, Any] | None,
     base_step = bench["bundle"]["base_step"]
     unit = bench["bundle"]["time_unit"]
     figure, axes = plt.subplots(figsize=(7.5, 5.0), dpi=120)
-    markers = iter("os^vDx*")
+    markers = iter("os^vDxP*")
     for label, (xs, ys) in horizon_series(bench, solvers).items():
         order = sorted(range(len(xs)), key=xs.__getitem__)
         axes.loglog([xs[i] for i in order], [ys[i] for i in order], marker=next(markers),

@@ -50,6 +50,9 @@ KNOWN_ISSUES = {
                             "test_output_that_no_node_produces_is_refused"),
     "fast-path-attribute": (TypeError, r"unexpected keyword argument", ("compile.py", "__call__"),
                             "test_activation_with_unknown_attribute_is_refused_on_the_fast_path"),
+    "fast-path-width": (ValueError, r"could not be broadcast", ("compile.py",
+                                                               "_fold_normalisation"),
+                        "test_level_with_the_wrong_output_width_is_refused_on_the_fast_path"),
 }
 
 

@@ -25,6 +25,13 @@ MANIFEST_NAME = "manifest.json"
 REPORT_NAME = "report.json"
 
 
+def model_name(folder: str | os.PathLike[str]) -> str:
+    """The name a bundle is served under: its folder name less a `.bundle` suffix."""
+    name = Path(folder).name
+    stem = name[: -len(".bundle")] if name.endswith(".bundle") else name
+    return stem or name
+
+
 def sha256_hex(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
@@ -164,6 +171,9 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
     target.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
     try:
+        # mkdtemp makes the folder private (0700); a bundle is meant to be read by services
+        # running as other users, like any installed data.
+        os.chmod(staging, 0o755)
         (staging / "levels").mkdir()
         for entry in entries:
             (staging / entry.file).write_bytes(level_files[entry.stride])

@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any
 
 import stridecast.runtime as runtime
+from stridecast.runtime.bundle import model_name
 from stridecast.runtime.errors import StridecastError
 
 logger = logging.getLogger("stridecast.service")
@@ -59,6 +60,7 @@ class Registry:
         return self.loaded and bool(self.served)
 
 
+
 def is_bundle(path: Path) -> bool:
     return (path / MANIFEST_NAME).is_file()
 
@@ -66,16 +68,17 @@ def is_bundle(path: Path) -> bool:
 def discover(path: str | os.PathLike[str]) -> list[tuple[str, Path]]:
     """Name the bundles at `path`: the bundle itself, or each bundle folder inside it.
 
-    The name of a model is the name of its bundle folder. A folder that is neither a bundle
-    nor holds one is returned as itself, so that loading reports it.
+    The name of a model is the name of its bundle folder, less a `.bundle` suffix
+    (`crane-demo.bundle` serves as `crane-demo`). A folder that is neither a bundle nor holds
+    one is returned as itself, so that loading reports it.
     """
     root = Path(path)
     if root.is_dir() and not is_bundle(root):
         children = sorted(child for child in root.iterdir()
                           if child.is_dir() and is_bundle(child))
         if children:
-            return [(child.name, child) for child in children]
-    return [(root.resolve().name or str(root), root)]
+            return [(model_name(child), child) for child in children]
+    return [(model_name(root.resolve()) or str(root), root)]
 
 
 def _is_path(source: Any) -> bool:

@@ -29,7 +29,8 @@ def register(subparsers, add) -> None:
     demo.add_argument("--overwrite", action="store_true", help="replace an existing bundle")
     demo.add_argument("--no-progress", action="store_true", help="no progress bars")
     demo.add_argument("--plots-dir", default=None,
-                      help="where forecast.png and error.png go (default: beside the bundle)")
+                      help="where forecast.png and error.png go (default: inside the "
+                      "bundle folder)")
 
     train = add(subparsers, "train", "Train levels from trajectories and export a bundle.",
                 "stridecast train data.npz --base-step 0.05 --strides 1,4,16,64 -o my.bundle",

@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from stridecast import crane
-from stridecast.runtime.bundle import REPORT_NAME
+from stridecast.runtime.bundle import REPORT_NAME, model_name
 
 from .demo_evaluation import Evaluation
 from .demo_settings import (
@@ -108,7 +108,7 @@ def format_commands(bundle: Path, evaluation: Evaluation) -> str:
     horizon = TABLE_HORIZONS[-2]
     where = shlex.quote(str(bundle))
     body = json.dumps({"state": state, "t": horizon})
-    url = f"{SERVICE_URL}/v1/models/{bundle.resolve().name}/advance"
+    url = f"{SERVICE_URL}/v1/models/{model_name(bundle.resolve())}/advance"
     return "\n".join([
         f"6. Query it (the example state: {EXAMPLE_LABEL}):",
         f"   stridecast advance {where} --state={text} --t {horizon:g}",

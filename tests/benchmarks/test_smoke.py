@@ -17,6 +17,7 @@ import pytest
 pytest.importorskip("onnxruntime")
 pytest.importorskip("torch")
 pytest.importorskip("scipy")
+pytest.importorskip("matplotlib")
 
 from stridecast.benchmarks import (
     bundle_bench,
@@ -26,7 +27,7 @@ from stridecast.benchmarks import (
     solver_bench,
     system_bench,
 )
-from stridecast.benchmarks.cli import document
+from stridecast.benchmarks.cli import document, main
 from stridecast.benchmarks.competitors import (
     OnnxRuntimeLoop,
     TorchEagerLoop,
@@ -179,7 +180,8 @@ def test_bundle_tables_are_rectangular(bench_result, solver_result):
     assert "Bundle `" in bundle_bench.to_markdown(bench_result)
 
 
-def test_document_and_plot(bench_result, solver_result, tmp_path):
+@pytest.fixture(scope="module")
+def results(bench_result, solver_result):
     system = {"imports": {"numpy": {"seconds": 0.1, "wall": 0.2, "ratio_to_numpy": 1.0,
                                     "repeats": 1},
                           "stridecast.runtime": {"seconds": 0.12, "wall": 0.22,
@@ -189,9 +191,11 @@ def test_document_and_plot(bench_result, solver_result, tmp_path):
               "peak_rss_kib": {"numpy": 1000.0, "stridecast": 1100.0}}
     passes = {"default": {"environment": bench_result["environment"], "bench": bench_result,
                           "solvers": solver_result, "system": system}}
-    results = {"command": "python -m benchmarks --quick", "passes": passes,
-               "targets": {"default": report.measure_targets(bench_result, solver_result,
-                                                             system)}}
+    return {"command": "python -m benchmarks --quick", "quick": True, "passes": passes,
+            "targets": {"default": report.measure_targets(bench_result, solver_result, system)}}
+
+
+def test_document_and_plot(results, bench_result, solver_result, tmp_path):
     assert results["targets"]["default"]["import"] == pytest.approx(1.2)
     text = document(results)
     for heading in ("## Targets", "## Single-state", "## Batches", "## Dense forecast",
@@ -270,3 +274,16 @@ def test_matched_tolerance_is_no_more_accurate_than_needed():
     answers = np.stack([solver_bench.solve(s, 0.5, "DOP853", {"rtol": looser, "atol": looser})
                         for s in states])
     assert np.sqrt(np.mean(np.sum((answers - truth) ** 2, axis=-1))) > match["stepper_error"]
+
+
+def test_render_redraws_plot_and_writes_markdown_from_json(results, tmp_path, capsys):
+    saved = tmp_path / "out" / "bench-results.json"
+    saved.parent.mkdir()
+    saved.write_text(json.dumps(results), encoding="utf-8")
+    markdown = tmp_path / "docs" / "benchmarks.md"
+    markdown.parent.mkdir()
+    assert main(["--render", str(saved), "--markdown", str(markdown), "--quiet"]) == 0
+    assert (saved.parent / "bench-horizon.png").is_file()
+    # The image link is relative to the Markdown file.
+    assert "](../out/bench-horizon.png)" in markdown.read_text(encoding="utf-8")
+    assert "## Targets" in capsys.readouterr().out

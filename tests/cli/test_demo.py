@@ -16,6 +16,7 @@ import pytest
 from stridecast.runtime import BundleError, StridecastError, load
 
 from stridecast import crane, demo
+from stridecast.cli import main as cli_main
 from stridecast.demo_evaluation import ground_truth, held_out_states, position_errors, round_up
 from stridecast.demo_settings import (
     BASE_STEP,
@@ -71,6 +72,22 @@ def test_a_missing_dependency_is_named_with_the_extras_to_install(monkeypatch, t
                                               r"stridecast\[export,demo\]"):
         demo.run_demo(tmp_path / "out.bundle", quick=True, progress=False,
                       stream=io.StringIO())
+
+
+def test_ship_refuses_the_quick_settings(capsys):
+    with pytest.raises(SystemExit) as stopped:
+        demo._module_main(["--ship", "--quick"])
+    assert stopped.value.code == 2
+    assert "--ship uses the full settings; drop --quick." in capsys.readouterr().err
+
+
+def test_importing_the_demo_loads_no_heavy_module():
+    # `stridecast --help` builds the demo's parser; torch and friends load only when it runs.
+    code = ("import json, sys, stridecast.demo\n"
+            "print(json.dumps(sorted({m.split('.')[0] for m in sys.modules})))")
+    output = subprocess.run([sys.executable, "-c", code], check=True, capture_output=True,
+                            text=True).stdout
+    assert not set(json.loads(output)) & set(HEAVY)
 
 
 def test_settings_fit_the_strides_and_horizons():
@@ -157,10 +174,11 @@ def test_shipped_bundle_runs_without_torch_or_scipy():
 # ------------------------------------------------------------------------------ end to end
 @pytest.mark.slow
 def test_quick_demo_end_to_end(tmp_path, capsys):
+    # `stridecast demo --quick`, as a user types it.
     out = tmp_path / "crane-demo.bundle"
     plots = tmp_path / "plots"
-    assert demo.main(_arguments("--out", str(out), "--quick", "--no-progress",
-                                "--plots-dir", str(plots))) == 0
+    assert cli_main(["demo", "--out", str(out), "--quick", "--no-progress",
+                     "--plots-dir", str(plots)]) == 0
     text = capsys.readouterr().out
 
     stepper = load(out)
@@ -169,7 +187,7 @@ def test_quick_demo_end_to_end(tmp_path, capsys):
         assert (plots / name).read_bytes()[:8] == PNG_SIGNATURE
         assert str(plots / name) in text
     assert "QUICK MODE" in text and "not a safety function" in text
-    assert f"curl -s -X POST http://127.0.0.1:8000/v1/models/{out.name}/advance" in text
+    assert f"curl -s -X POST http://127.0.0.1:8000/v1/models/crane-demo/advance" in text
     assert f"stridecast serve {out}" in text and f"stridecast advance {out}" in text
     figures = _report(out)["demo"]
     assert figures["mode"] == "quick"

@@ -147,8 +147,9 @@ def render(rows: tuple[Row, ...], *, machine: str, date: str,
         "computed directly by the runtime. " + ("; ".join(phrases) + "." if phrases else "")
     )
     if known:
-        summary += (f" {len(known)} issues these tests found are listed under Known issues "
-                    "below.")
+        plural = "s" if len(known) != 1 else ""
+        summary += (f" {len(known)} issue{plural} these tests found are listed under Known "
+                    "issues below.")
     lines = [HEADER, summary, "", f"{machine} Last written {date}.", "",
              "## What was tried", "",
              "| Area | What was tried | Cases | Outcome |", "|---|---|---:|---|"]

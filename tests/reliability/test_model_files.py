@@ -410,3 +410,20 @@ def test_activation_with_unknown_attribute_is_refused_on_the_fast_path(tmp_path)
         load(bundle, fast_path=False)
     with pytest.raises(ModelFormatError, match=r"LeakyRelu.*bogus"):
         load(bundle)
+
+
+@pytest.mark.xfail(strict=True, raises=ValueError, reason=(
+    "compile._fold_normalisation multiplies the last affine layer by the manifest scale "
+    "before the output width is checked: a level mapping (batch, 2) to (batch, 3) makes "
+    "load() raise NumPy's broadcast ValueError (not ModelFormatError; found by the atheris "
+    "harness); with fast_path=False the probe refuses it with ModelFormatError."))
+def test_level_with_the_wrong_output_width_is_refused_on_the_fast_path(tmp_path):
+    wide = numpy_helper.from_array(np.ones((2, 3), np.float32), "weight")
+    data = level_model([helper.make_node("MatMul", ["state", "weight"], ["next"])],
+                       initializers=[wide])
+    bundle = write_level_bundle(tmp_path / "bundle", data)
+    pattern = r"maps a batch of shape \(2, 2\) to shape \(2, 3\)"
+    with pytest.raises(ModelFormatError, match=pattern):
+        load(bundle, fast_path=False)
+    with pytest.raises(ModelFormatError, match=pattern):
+        load(bundle)

@@ -41,8 +41,11 @@ def test_numbers_that_merely_contain_500_are_allowed(text):
 def test_render_writes_summary_table_and_method():
     collector = Collector()
     collector.record("Bundles: paths", "a | b", 1_234, "all refused", summary="x refused")
-    text = render(collector.rows, machine="Measured on a test.", date="2001-01-01")
+    text = render(collector.rows, machine="Measured on a test.", date="2001-01-01",
+                  known=(("test_thing", "the thing is not refused yet."),))
     assert text.startswith("# Reliability\n")
+    assert "1 issue these tests found are listed under Known issues" in text
+    assert "## Known issues" in text and "- `test_thing`: the thing is not refused yet." in text
     assert "**Summary.** 1,234 hostile or concurrent cases in 1 kinds (Bundles)" in text
     assert "x refused." in text
     assert "| Bundles: paths | a \\| b | 1,234 | all refused |" in text
