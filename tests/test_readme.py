@@ -1,0 +1,104 @@
+"""Every command and code block in README.md runs as printed.
+
+The set-up commands at the top are not re-run here: the test command is what `.ci/run`
+executes, and `stridecast demo` is exercised end to end by tests/cli/test_demo.py (`--quick`,
+the same code path at smaller size). Commands that use `crane-demo.bundle` run against a copy
+of the bundle shipped in the package, which the demo's own code made.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+README = (ROOT / "README.md").read_text(encoding="utf-8")
+SHIPPED = ROOT / "stridecast" / "data" / "crane-demo.bundle"
+BLOCK = re.compile(r"```(python|bash)\n(.*?)```", re.DOTALL)
+# Lines of the two set-up commands (covered by .ci/run and tests/cli/test_demo.py).
+SETUP = ("python3 -m venv",)
+
+
+def blocks() -> list[tuple[str, str]]:
+    return [(kind, body) for kind, body in BLOCK.findall(README)]
+
+
+def shell_lines(body: str) -> list[str]:
+    return [line.strip() for line in body.splitlines()
+            if line.strip() and not line.strip().startswith("#")]
+
+
+@pytest.fixture
+def workdir(tmp_path, monkeypatch):
+    shutil.copytree(SHIPPED, tmp_path / "crane-demo.bundle")
+    monkeypatch.chdir(tmp_path)
+    return tmp_path
+
+
+def run_shell(line: str, cwd: Path) -> subprocess.CompletedProcess:
+    environment = dict(os.environ)
+    environment["PATH"] = f"{Path(sys.executable).parent}{os.pathsep}{environment['PATH']}"
+    return subprocess.run(line, shell=True, cwd=cwd, capture_output=True, text=True,
+                          timeout=600, env=environment)
+
+
+@pytest.mark.slow
+def test_readme_blocks_run_in_order(workdir):
+    ran = 0
+    for kind, body in blocks():
+        if kind == "python":
+            exec(compile(body, "README.md", "exec"), {"__name__": "readme"})
+            ran += 1
+            continue
+        for line in shell_lines(body):
+            if line.startswith(SETUP) or line.startswith(("stridecast serve", "curl ")):
+                continue
+            result = run_shell(line, workdir)
+            assert result.returncode == 0, f"{line}\n{result.stdout}\n{result.stderr}"
+            ran += 1
+    assert ran >= 8
+    assert (workdir / "forecast.csv").is_file()
+    assert (workdir / "my-model.bundle" / "manifest.json").is_file()
+    assert (workdir / "crane-trained.bundle" / "manifest.json").is_file()
+
+
+def free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return probe.getsockname()[1]
+
+
+def test_readme_serve_and_curl(workdir):
+    http = next(body for kind, body in blocks()
+                if kind == "bash" and "stridecast serve" in body and "curl" in body)
+    serve_line, curl_line = shell_lines(http)
+    port = str(free_port())
+    serve_line, curl_line = serve_line.replace("8000", port), curl_line.replace("8000", port)
+    environment = dict(os.environ)
+    environment["PATH"] = f"{Path(sys.executable).parent}{os.pathsep}{environment['PATH']}"
+    server = subprocess.Popen(serve_line, shell=True, cwd=workdir, env=environment,
+                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                              start_new_session=True)
+    try:
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline:
+            probe = run_shell(f"curl -sf http://127.0.0.1:{port}/readyz", workdir)
+            if probe.returncode == 0:
+                break
+            time.sleep(0.3)
+        result = run_shell(curl_line, workdir)
+        assert result.returncode == 0, result.stderr
+        answer = json.loads(result.stdout)
+        assert len(answer["state"]) == 4 and answer["t"] == 12.5
+    finally:
+        os.killpg(server.pid, 15)
+        server.wait(timeout=30)
