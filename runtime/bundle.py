@@ -10,9 +10,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import shutil
 import stat
-import tempfile
 from collections.abc import Mapping
 from dataclasses import replace
 from pathlib import Path, PurePosixPath
@@ -87,9 +85,11 @@ def read_bundle_file(root: Path, relative: str, where: str, *, max_bytes: int) -
         raise BundleError(f"`{where}` names {relative!r}, which cannot be opened: {error}.") \
             from error
     with os.fdopen(descriptor, "rb") as handle:
-        data = handle.read(max_bytes + 1)
-    if len(data) > max_bytes:
-        raise BundleError(f"`{where}` names {relative!r}, which grew beyond {max_bytes} bytes.")
+        # Ask for the size lstat gave plus one byte, not for the limit: `read(n)` allocates
+        # n bytes up front (256 MiB by default, for every level file).
+        data = handle.read(info.st_size + 1)
+    if len(data) > info.st_size:
+        raise BundleError(f"`{where}` names {relative!r}, which grew while being read.")
     return data
 
 
@@ -168,6 +168,10 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
     text = json.dumps(final_manifest.to_dict(), indent=2, allow_nan=False)
     parse_manifest_text(text)  # never write a manifest this reader would refuse
 
+    # Imported here: only writers need them, and they cost readers import time and memory.
+    import shutil
+    import tempfile
+
     target.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
     try:
@@ -189,6 +193,9 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
 
 
 def _move_into_place(staging: Path, target: Path) -> None:
+    import shutil
+    import tempfile
+
     if not target.exists():
         os.rename(staging, target)
         return

@@ -86,20 +86,27 @@ class ChainKernel:
 
     def __init__(self, stages: Sequence[Stage], *, residual: bool,
                  input_shift: np.ndarray | None, input_scale: np.ndarray | None):
-        self.stages = tuple(stages)
         self.residual = residual
         # Only set when the first stage is not affine, so the normalisation cannot be folded.
         self.input_shift = input_shift
         self.input_scale = input_scale
-        self.leading, self.layers = _group_layers(self.stages)
+        leading, layers = _group_layers(tuple(stages))
         self.augmented = tuple(
             np.ascontiguousarray(np.vstack([
                 layer.weight,
                 (np.zeros(layer.weight.shape[1], layer.weight.dtype) if layer.bias is None
                  else layer.bias)[None, :],
             ]))
-            for layer, _ in self.layers
+            for layer, _ in layers
         )
+        # One copy of the weights: the large-batch path reads views of the augmented
+        # matrices (the first rows are the weight, C-contiguous; the last row is the bias).
+        self.leading = leading
+        self.layers = tuple(
+            (Affine(weights[:-1], None if layer.bias is None else weights[-1]), activations)
+            for weights, (layer, activations) in zip(self.augmented, layers, strict=True))
+        self.stages = (*leading, *(stage for layer, activations in self.layers
+                                   for stage in (layer, *activations)))
         self._local = threading.local()
 
     def _cache(self) -> OrderedDict:
@@ -128,7 +135,47 @@ class ChainKernel:
             cache.move_to_end(batch)
         return buffers
 
+    def _vectors(self) -> tuple[tuple[np.ndarray, ...], ...]:
+        """Per-thread 1-D buffers (width + 1, last entry 1), views of their first `width`
+        entries, and the same views as (1, width) rows for the activations."""
+        vectors = getattr(self._local, "vectors", None)
+        if vectors is None:
+            first = self.augmented[0].shape[0] - 1
+            widths = [first] + [w.shape[1] for w in self.augmented[:-1]]
+            buffers = tuple(np.ones(width + 1, dtype=self.augmented[0].dtype)
+                            for width in widths)
+            views = tuple(b[:-1] for b in buffers)
+            vectors = self._local.vectors = (buffers, views, tuple(v[None, :] for v in views))
+        return vectors
+
+    def _single(self, state: np.ndarray) -> np.ndarray:
+        """One state: 1-D products (matrix-vector, gemv) with the bias row folded in.
+
+        At batch 1 the cost is NumPy call overhead, not arithmetic; vectors avoid the 2-D
+        slicing and let BLAS use its matrix-vector kernel.
+        """
+        buffers, views, rows = self._vectors()
+        row = state[0]
+        views[0][...] = row
+        hidden = buffers[0]
+        last = len(self.augmented) - 1
+        for index, weights in enumerate(self.augmented):
+            if index == last:
+                hidden = np.dot(hidden, weights)  # fresh: the result leaves the kernel
+                target = hidden[None, :]
+            else:
+                np.dot(hidden, weights, out=views[index + 1])
+                hidden = buffers[index + 1]
+                target = rows[index + 1]
+            for activation in self.layers[index][1]:
+                activation.function(target)  # activations see (1, width), as at any batch
+        if self.residual:
+            hidden += row
+        return hidden[None, :]
+
     def __call__(self, state: np.ndarray) -> np.ndarray:
+        if state.shape[0] == 1 and self.input_shift is None and not self.leading:
+            return self._single(state)
         hidden = state
         if self.input_shift is not None:
             hidden = (state - self.input_shift) / self.input_scale

@@ -142,8 +142,11 @@ def load_model_file(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LI
                     f"ONNX file {source!r} holds {size} bytes; the limit `max_model_bytes` is "
                     f"{limits.max_model_bytes}."
                 )
-            # Read one byte past the limit so a file that grew since fstat is still caught.
-            data = stream.read(limits.max_model_bytes + 1)
+            # One byte past the size fstat gave, so a file that grew since is caught without
+            # allocating the whole limit up front (`read(n)` allocates n bytes).
+            data = stream.read(size + 1)
+            if len(data) > size:
+                raise ModelFormatError(f"ONNX file {source!r} grew while being read.")
     except OSError as error:
         raise ModelFormatError(f"Cannot read ONNX file {source!r}: {error}.") from error
     return read_model(data, limits=limits, source=source)

@@ -13,6 +13,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from .anchors import grid_positions, interpolation_rows, walk_to_reachable
 from .errors import NonFiniteError, StateError, TimeError
 from .integrate import integrate
 from .interpolate import interpolate_states
@@ -20,9 +21,14 @@ from .limits import DEFAULT_LIMITS, Limits
 from .manifest import Manifest
 from .plan import Plan
 from .planner import StridePlanner
+from .validation import (
+    check_off_grid,
+    check_state,
+    check_time,
+    check_times,
+)
 from .waves import build_schedule, run_schedule
 
-OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
 _PLAN_CACHE_SIZE = 4096
 VectorField = Callable[[np.ndarray], np.ndarray]
 Kernel = Callable[[np.ndarray], np.ndarray]
@@ -126,7 +132,8 @@ class Stepper:
     def _planned(self, t: float, off_grid: str, vector_field: VectorField | None,
                  hybrid_below: int | None) -> tuple[_Resolution, Plan, object]:
         """Resolution, plan and (for several anchors) schedule of one time, memoised."""
-        key = (self._check_time(t), off_grid, hybrid_below, vector_field is None)
+        time = check_time(t, unit=self._manifest.time_unit)
+        key = (time, off_grid, hybrid_below, vector_field is None)
         cached = self._plan_cache.get(key)
         if cached is None:
             resolution = self._resolve(t, off_grid, vector_field, hybrid_below)
@@ -143,7 +150,7 @@ class Stepper:
 
     def step(self, state: np.ndarray, stride: int) -> np.ndarray:
         """Apply the network of one level once (one stride) to `state`."""
-        states, single = self._check_state(state)
+        states, single = self._states(state)
         if stride not in self._kernels:
             raise TimeError(f"`stride` is {stride!r}; this bundle has strides {self.strides}.")
         result = self._apply(stride, states, depth=0)
@@ -180,7 +187,7 @@ class Stepper:
                           vector_field: VectorField | None = None,
                           hybrid_below: int | None = None) -> tuple[np.ndarray, Plan]:
         """`advance`, also returning the `Plan` that says how the answer was produced."""
-        states, single = self._check_state(state)
+        states, single = self._states(state)
         resolution, plan, schedule = self._planned(t, off_grid, vector_field, hybrid_below)
         if schedule is None:
             anchor_states = self._run_sequential(states, plan.steps)[None]
@@ -207,8 +214,8 @@ class Stepper:
                            off_grid: str = "interpolate", vector_field: VectorField | None = None,
                            hybrid_below: int | None = None) -> tuple[np.ndarray, ForecastInfo]:
         """`forecast`, also returning what it cost."""
-        states, single = self._check_state(state)
-        requested = self._check_times(times)
+        states, single = self._states(state)
+        requested = check_times(times, max_points=self._limits.max_forecast_points)
         distinct, inverse = np.unique(requested, return_inverse=True)
         if vector_field is None and hybrid_below is None:
             output, info = self._forecast_on_grid(states, distinct, off_grid)
@@ -242,17 +249,11 @@ class Stepper:
     def _forecast_on_grid(self, states: np.ndarray, times: np.ndarray, off_grid: str
                           ) -> tuple[np.ndarray, ForecastInfo]:
         """Vectorised `forecast` for the network-only methods (grid, nearest, interpolate)."""
-        if off_grid not in OFF_GRID_POLICIES:
-            raise TimeError(
-                f"`off_grid` is {off_grid!r}; expected one of {list(OFF_GRID_POLICIES)}."
-            )
+        check_off_grid(off_grid)
         planner = self._planner
-        positions = times / self.base_step
-        if positions.max() > 2.0**52:
+        if times.max() / self.base_step > 2.0**52:
             raise TimeError(f"`times` reach {times.max()!r}, more than 2**52 base steps.")
-        nearest = np.rint(positions)
-        on_grid = np.abs(positions - nearest) <= np.maximum(1e-9, 1e-12 * positions)
-        nearest = nearest.astype(np.int64)
+        positions, nearest, on_grid = grid_positions(times, self.base_step)
         exact = on_grid & planner.reachable_mask(nearest)
         anchors = nearest[:, None]
         weights = None
@@ -262,16 +263,16 @@ class Stepper:
             if off_grid == "error":
                 self._resolve(float(times[off][0]), "error", None, None)  # raises
             floor = np.where(on_grid, nearest, np.floor(positions).astype(np.int64))[off]
-            below = self._walk_to_reachable(floor, -1)
-            above = self._walk_to_reachable(floor + 1, +1)
+            below = walk_to_reachable(planner, floor, -1)
+            above = walk_to_reachable(planner, floor + 1, +1)
             if off_grid == "nearest":
                 position = positions[off]
                 anchors = anchors.copy()
                 anchors[off, 0] = np.where(position - below <= above - position, below, above)
                 methods.add("nearest")
             else:
-                anchors, weights = self._interpolation_rows(positions, nearest, off, below,
-                                                            above)
+                anchors, weights = interpolation_rows(planner, positions, nearest, off, below,
+                                                      above)
                 methods.add("interpolate")
         distinct = np.unique(anchors)
         schedule = self._schedule(planner, distinct)
@@ -291,49 +292,13 @@ class Stepper:
         )
         return results, info
 
-    def _walk_to_reachable(self, targets: np.ndarray, direction: int) -> np.ndarray:
-        """Nearest reachable targets at or beyond `targets` in `direction` (−1 or +1).
-
-        Gaps between reachable targets are shorter than the largest stride, so the walk ends
-        after at most that many vectorised passes; 0 is always reachable going down.
-        """
-        values = np.maximum(targets.astype(np.int64), 0)
-        pending = ~self._planner.reachable_mask(values)
-        while pending.any():
-            values[pending] += direction
-            pending[pending] = ~self._planner.reachable_mask(values[pending])
-        return values
-
-    def _interpolation_rows(self, positions: np.ndarray, nearest: np.ndarray, off: np.ndarray,
-                            below: np.ndarray, above: np.ndarray
-                            ) -> tuple[np.ndarray, np.ndarray]:
-        """Four anchors and cubic Lagrange weights per time (exact rows: one anchor, weight 1)."""
-        count = positions.size
-        anchors = np.repeat(nearest[:, None], 4, axis=1)
-        weights = np.zeros((count, 4))
-        weights[:, 0] = 1.0
-        second_below = self._walk_to_reachable(np.maximum(below - 1, 0), -1)
-        second_above = self._walk_to_reachable(above + 1, +1)
-        third_above = self._walk_to_reachable(second_above + 1, +1)
-        two_below = below > 0
-        chosen = np.where(two_below[:, None],
-                          np.column_stack([second_below, below, above, second_above]),
-                          np.column_stack([below, above, second_above, third_above]))
-        anchors[off] = chosen
-        # Lagrange basis on offsets from the lower anchor (small numbers: accurate at large t).
-        nodes = (chosen - below[:, None]).astype(np.float64)
-        where = positions[off] - below
-        basis = np.ones_like(nodes)
-        for j in range(4):
-            for k in range(4):
-                if j != k:
-                    basis[:, j] *= (where - nodes[:, k]) / (nodes[:, j] - nodes[:, k])
-        weights[off] = basis
-        return anchors, weights
+    def _states(self, state) -> tuple[np.ndarray, bool]:
+        return check_state(state, names=self.state_names, dtype=self._dtype,
+                           max_batch=self._limits.max_batch)
 
     def outside_envelope(self, state: np.ndarray) -> np.ndarray:
         """Per state, whether any component lies outside the training envelope."""
-        states, single = self._check_state(state)
+        states, single = self._states(state)
         if self._envelope is None:
             flags = np.zeros(states.shape[0], dtype=bool)
         else:
@@ -342,86 +307,16 @@ class Stepper:
         return flags[0] if single else flags
 
     # ------------------------------------------------------------------------------ internals
-    def _check_state(self, state: np.ndarray) -> tuple[np.ndarray, bool]:
-        try:
-            array = np.asarray(state)
-        except (ValueError, TypeError) as error:
-            raise StateError(f"`state` is not a numeric array: {error}.") from error
-        if array.dtype.kind not in "fiu" or array.dtype == np.bool_:
-            raise StateError(
-                f"`state` has dtype {array.dtype}; expected real numbers (float or integer)."
-            )
-        dim = self.state_dim
-        if array.ndim == 1:
-            single, array = True, array[None, :]
-        elif array.ndim == 2:
-            single = False
-        else:
-            raise StateError(
-                f"`state` has shape {array.shape}; expected ({dim},) or (batch, {dim})."
-            )
-        if array.shape[1] != dim:
-            raise StateError(
-                f"`state` has shape {np.shape(state)}; this bundle's state has {dim} components "
-                f"{list(self.state_names)}, so expected ({dim},) or (batch, {dim})."
-            )
-        if array.shape[0] == 0:
-            raise StateError("`state` is an empty batch; expected at least one state.")
-        if array.shape[0] > self._limits.max_batch:
-            raise StateError(
-                f"`state` holds {array.shape[0]} states; the limit is {self._limits.max_batch}."
-            )
-        with np.errstate(over="ignore"):
-            array = np.ascontiguousarray(array, dtype=self._dtype)
-        if not np.isfinite(array).all():
-            bad = int(np.argwhere(~np.isfinite(array))[0][0])
-            raise StateError(
-                f"`state` row {bad} holds a non-finite value (or one too large for "
-                f"{self._dtype}); expected finite numbers."
-            )
-        return array, single
-
-    def _check_times(self, times: Sequence[float]) -> np.ndarray:
-        try:
-            array = np.asarray(times, dtype=np.float64)
-        except (ValueError, TypeError) as error:
-            raise TimeError(f"`times` must be a list of numbers: {error}.") from error
-        if array.ndim != 1 or array.size == 0:
-            raise TimeError(
-                f"`times` has shape {array.shape}; expected a non-empty 1-D list of times."
-            )
-        if array.size > self._limits.max_forecast_points:
-            raise TimeError(
-                f"`times` holds {array.size} times; the limit is "
-                f"{self._limits.max_forecast_points} per forecast."
-            )
-        for t in array[~np.isfinite(array) | (array < 0)][:1]:
-            raise TimeError(f"`times` contains {float(t)!r}; expected finite times ≥ 0.")
-        return array
-
-    def _check_time(self, t: float) -> float:
-        if isinstance(t, bool) or not isinstance(t, int | float | np.integer | np.floating):
-            raise TimeError(f"`t` is {t!r}; expected a finite number of "
-                            f"{self._manifest.time_unit or 'time units'} ≥ 0.")
-        value = float(t)
-        if not math.isfinite(value) or value < 0:
-            raise TimeError(f"`t` is {value!r}; expected a finite time ≥ 0.")
-        return value
-
     def _resolve(self, t: float, off_grid: str, vector_field: VectorField | None,
                  hybrid_below: int | None) -> _Resolution:
-        t = self._check_time(t)
-        if off_grid not in OFF_GRID_POLICIES:
-            raise TimeError(
-                f"`off_grid` is {off_grid!r}; expected one of {list(OFF_GRID_POLICIES)}."
-            )
+        t = check_time(t, unit=self._manifest.time_unit)
+        check_off_grid(off_grid)
         if vector_field is not None and not callable(vector_field):
             raise TimeError("`vector_field` must be a callable f(states) -> derivatives.")
-        position = t / self.base_step
-        if position > 2.0**52:
+        if t / self.base_step > 2.0**52:
             raise TimeError(f"`t` is {t!r}, more than 2**52 base steps; refused.")
-        nearest = round(position)
-        on_grid = abs(position - nearest) <= max(1e-9, 1e-12 * position)
+        positions, nearests, on_grids = grid_positions(np.array([t]), self.base_step)
+        position, nearest, on_grid = float(positions[0]), int(nearests[0]), bool(on_grids[0])
         if hybrid_below is not None:
             return self._resolve_hybrid(t, position, nearest if on_grid else None,
                                         vector_field, hybrid_below)
@@ -507,8 +402,28 @@ class Stepper:
 
     def _run_sequential(self, states: np.ndarray, steps: tuple[tuple[int, int], ...]
                         ) -> np.ndarray:
-        # The hot path of `advance`: one error-state context for the whole plan, and a
-        # finiteness check after every step so a failure names its step and level.
+        # The hot path of `advance`. Under the increment update x' = x + f(x) a non-finite
+        # state never becomes finite again (NaN propagates; ±inf plus anything is ±inf or NaN),
+        # so one check after the whole plan finds every failure; the plan is then replayed
+        # with a check after each step, only to name the failing step and level.
+        if self._manifest.update != "increment":
+            return self._run_checked(states, steps)
+        shape = states.shape
+        result = states
+        with np.errstate(over="ignore", invalid="ignore"):
+            for stride, count in steps:
+                kernel = self._kernels[stride]
+                for _ in range(count):
+                    result = kernel(result)
+                    if result.shape != shape:
+                        return self._run_checked(states, steps)
+        if not np.isfinite(result).all():
+            return self._run_checked(states, steps)
+        return result
+
+    def _run_checked(self, states: np.ndarray, steps: tuple[tuple[int, int], ...]
+                     ) -> np.ndarray:
+        """Run a plan with a shape and finiteness check after every step."""
         depth = 0
         shape = states.shape
         with np.errstate(over="ignore", invalid="ignore"):

@@ -1,0 +1,91 @@
+"""Validation of what callers pass to a `Stepper`: states, times and options.
+
+Every message names the parameter, the value received and what was expected.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+
+from .errors import StateError, TimeError
+
+OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
+
+
+def check_state(state, *, names: Sequence[str], dtype: np.dtype, max_batch: int
+                ) -> tuple[np.ndarray, bool]:
+    """Return `state` as a C-contiguous (B, d) array of `dtype`, and whether it was 1-D."""
+    # Fast path for what callers usually pass: a contiguous, finite array of the compute dtype.
+    if (type(state) is np.ndarray and state.dtype == dtype and 1 <= state.ndim <= 2
+            and state.flags.c_contiguous and state.size > 0 and state.shape[-1] == len(names)
+            and state.shape[0] <= max_batch and np.isfinite(state).all()):
+        return (state[None, :], True) if state.ndim == 1 else (state, False)
+    try:
+        array = np.asarray(state)
+    except (ValueError, TypeError) as error:
+        raise StateError(f"`state` is not a numeric array: {error}.") from error
+    if array.dtype.kind not in "fiu" or array.dtype == np.bool_:
+        raise StateError(
+            f"`state` has dtype {array.dtype}; expected real numbers (float or integer)."
+        )
+    dim = len(names)
+    if array.ndim == 1:
+        single, array = True, array[None, :]
+    elif array.ndim == 2:
+        single = False
+    else:
+        raise StateError(f"`state` has shape {array.shape}; expected ({dim},) or (batch, {dim}).")
+    if array.shape[1] != dim:
+        raise StateError(
+            f"`state` has shape {np.shape(state)}; this bundle's state has {dim} components "
+            f"{list(names)}, so expected ({dim},) or (batch, {dim})."
+        )
+    if array.shape[0] == 0:
+        raise StateError("`state` is an empty batch; expected at least one state.")
+    if array.shape[0] > max_batch:
+        raise StateError(f"`state` holds {array.shape[0]} states; the limit is {max_batch}.")
+    with np.errstate(over="ignore"):
+        array = np.ascontiguousarray(array, dtype=dtype)
+    if not np.isfinite(array).all():
+        bad = int(np.argwhere(~np.isfinite(array))[0][0])
+        raise StateError(
+            f"`state` row {bad} holds a non-finite value (or one too large for {dtype}); "
+            "expected finite numbers."
+        )
+    return array, single
+
+
+def check_times(times, *, max_points: int) -> np.ndarray:
+    """Return `times` as a 1-D float64 array of finite, non-negative times."""
+    try:
+        array = np.asarray(times, dtype=np.float64)
+    except (ValueError, TypeError) as error:
+        raise TimeError(f"`times` must be a list of numbers: {error}.") from error
+    if array.ndim != 1 or array.size == 0:
+        raise TimeError(f"`times` has shape {array.shape}; expected a non-empty 1-D list of times.")
+    if array.size > max_points:
+        raise TimeError(
+            f"`times` holds {array.size} times; the limit is {max_points} per forecast."
+        )
+    for t in array[~np.isfinite(array) | (array < 0)][:1]:
+        raise TimeError(f"`times` contains {float(t)!r}; expected finite times ≥ 0.")
+    return array
+
+
+def check_time(t, *, unit: str) -> float:
+    """Return `t` as a float, refusing non-numbers, booleans, negatives and non-finite values."""
+    if isinstance(t, bool) or not isinstance(t, int | float | np.integer | np.floating):
+        raise TimeError(f"`t` is {t!r}; expected a finite number of {unit or 'time units'} ≥ 0.")
+    value = float(t)
+    if not math.isfinite(value) or value < 0:
+        raise TimeError(f"`t` is {value!r}; expected a finite time ≥ 0.")
+    return value
+
+
+def check_off_grid(off_grid) -> str:
+    if off_grid not in OFF_GRID_POLICIES:
+        raise TimeError(f"`off_grid` is {off_grid!r}; expected one of {list(OFF_GRID_POLICIES)}.")
+    return off_grid
