@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+
 from stridecast.runtime import Stepper, load
 
 from . import environment

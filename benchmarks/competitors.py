@@ -13,6 +13,7 @@ from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
+
 from stridecast.runtime import Stepper
 
 Steps = tuple[tuple[int, int], ...]

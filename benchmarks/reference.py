@@ -18,8 +18,9 @@ import numpy as np
 import onnx
 import torch
 from onnx import TensorProto, helper, numpy_helper
-from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
 from torch import nn
+
+from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
 
 REFERENCE_STRIDES = tuple(2**power for power in range(11))
 REFERENCE_HIDDEN = (128, 128, 128)

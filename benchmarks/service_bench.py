@@ -22,6 +22,7 @@ from typing import Any
 import httpx
 import msgpack
 import numpy as np
+
 from stridecast.runtime import load
 
 from .timing import Budget, format_rate, format_seconds, interleaved, summary

@@ -14,9 +14,9 @@ from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
-from stridecast.runtime import Stepper
 
 from stridecast import crane
+from stridecast.runtime import Stepper
 
 from .timing import Budget, interleaved, summary
 

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+
 from stridecast.runtime.errors import BundleError
 from stridecast.runtime.manifest import UPDATE_FORMS
 

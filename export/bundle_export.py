@@ -19,12 +19,12 @@ from typing import Any
 
 import onnx
 import torch
-from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
-from stridecast.runtime.bundle import REPORT_NAME
-from stridecast.runtime.errors import BundleError
 from tqdm.auto import tqdm
 
 import stridecast
+from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
+from stridecast.runtime.bundle import REPORT_NAME
+from stridecast.runtime.errors import BundleError
 
 from . import plots
 from .arguments import ExportSpec, build_spec, check_exporter, declared_state_dim, level_pairs

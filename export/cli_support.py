@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any
 
 import torch
+
 from stridecast.runtime.errors import BundleError, StateError
 
 from .arguments import check_stride, level_pairs

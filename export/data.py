@@ -13,6 +13,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+
 from stridecast.runtime.errors import StateError
 
 logger = logging.getLogger(__name__)

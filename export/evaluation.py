@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 import torch
+
 from stridecast.runtime.planner import StridePlanner
 
 from .trained import ForecastExample

@@ -19,6 +19,7 @@ from typing import Any
 import onnx
 import onnx.inliner
 import torch
+
 from stridecast.runtime.errors import BundleError
 
 logger = logging.getLogger(__name__)

@@ -19,9 +19,10 @@ from typing import Any
 
 import numpy as np
 import torch
-from stridecast.runtime.errors import BundleError
 from torch import nn
 from tqdm.auto import tqdm
+
+from stridecast.runtime.errors import BundleError
 
 from . import evaluation
 from .arguments import check_base_step, check_stride, check_strings

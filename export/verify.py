@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 import torch
+
 from stridecast.runtime.errors import BundleError
 
 from .arguments import ExportSpec

@@ -13,6 +13,7 @@ import numpy as np
 import onnx
 from onnx import TensorProto, helper, numpy_helper
 from scipy.linalg import expm
+
 from stridecast.runtime import LevelEntry, Manifest, write_bundle
 
 PLACEHOLDER_SHA = "0" * 64

@@ -19,6 +19,7 @@ pytest.importorskip("torch")
 pytest.importorskip("scipy")
 pytest.importorskip("matplotlib")
 
+from stridecast import crane
 from stridecast.benchmarks import (
     bundle_bench,
     environment,
@@ -40,8 +41,6 @@ from stridecast.benchmarks.reference import (
 )
 from stridecast.benchmarks.timing import Budget, interleaved, summary
 from stridecast.runtime import load
-
-from stridecast import crane
 
 TINY_STRIDES = (1, 2, 4, 8)
 TINY_HIDDEN = (16, 16)

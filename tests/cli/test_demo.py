@@ -13,7 +13,6 @@ import sys
 
 import numpy as np
 import pytest
-from stridecast.runtime import BundleError, StridecastError, load
 
 from stridecast import crane, demo
 from stridecast.cli import main as cli_main
@@ -27,6 +26,7 @@ from stridecast.demo_settings import (
     STRIDES,
     TABLE_HORIZONS,
 )
+from stridecast.runtime import BundleError, StridecastError, load
 
 HEAVY = ("torch", "onnx", "onnxruntime", "scipy", "matplotlib", "fastapi")
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # the PNG specification's file signature
@@ -187,7 +187,7 @@ def test_quick_demo_end_to_end(tmp_path, capsys):
         assert (plots / name).read_bytes()[:8] == PNG_SIGNATURE
         assert str(plots / name) in text
     assert "QUICK MODE" in text and "not a safety function" in text
-    assert f"curl -s -X POST http://127.0.0.1:8000/v1/models/crane-demo/advance" in text
+    assert "curl -s -X POST http://127.0.0.1:8000/v1/models/crane-demo/advance" in text
     assert f"stridecast serve {out}" in text and f"stridecast advance {out}" in text
     figures = _report(out)["demo"]
     assert figures["mode"] == "quick"

@@ -9,10 +9,11 @@ import numpy as np
 import onnxruntime
 import pytest
 import torch
+from torch import nn
+
 from stridecast.export import Tolerance, VerificationError, export_bundle
 from stridecast.export import bundle_export as bundle_export_module
 from stridecast.runtime import BundleError, load
-from torch import nn
 
 ACTIVATIONS = {
     "relu": nn.ReLU, "tanh": nn.Tanh, "sigmoid": nn.Sigmoid, "gelu": nn.GELU,

@@ -9,6 +9,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import torch
+from torch import nn
+
 from stridecast.export.cli_support import (
     export_from_files,
     parse_level_option,
@@ -17,8 +19,6 @@ from stridecast.export.cli_support import (
     train_from_file,
 )
 from stridecast.runtime import BundleError, StateError, load
-from torch import nn
-
 from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 MEAN, SCALE = [0.5, -1.0], [2.0, 4.0]

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+
 from stridecast.export import load_trajectories
 from stridecast.runtime import StateError
 

@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import torch
 from scipy.linalg import expm
-from stridecast.export.evaluation import advance, held_out_figures, horizons, select_levels
 from torch import nn
 
+from stridecast.export.evaluation import advance, held_out_figures, horizons, select_levels
 from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 BASE_STEP = 0.1

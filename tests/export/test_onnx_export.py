@@ -7,6 +7,7 @@ import onnx
 import onnxruntime
 import pytest
 from onnx import TensorProto, helper, numpy_helper
+
 from stridecast.export.onnx_export import normalise_model
 from stridecast.runtime import BundleError
 

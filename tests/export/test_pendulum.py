@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.special import ellipk
+
 from stridecast.export import export_bundle, train_levels
 from stridecast.runtime import load
 

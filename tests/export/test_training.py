@@ -7,9 +7,9 @@ import numpy as np
 import pytest
 import torch
 from scipy.linalg import expm
+
 from stridecast.export import TrainingError, export_bundle, train_levels
 from stridecast.runtime import BundleError, StateError, load
-
 from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 BASE_STEP = 0.1

@@ -427,3 +427,22 @@ def test_level_with_the_wrong_output_width_is_refused_on_the_fast_path(tmp_path)
         load(bundle, fast_path=False)
     with pytest.raises(ModelFormatError, match=pattern):
         load(bundle)
+
+
+@pytest.mark.xfail(strict=True, raises=ValueError, reason=(
+    "compile.ChainKernel multiplies consecutive affine layers without checking that their "
+    "widths chain: a level MatMul(2→4) → Tanh → MatMul(3→2) makes load() raise NumPy's matmul "
+    "ValueError (not ModelFormatError; found by the atheris harness); the interpreter path "
+    "(fast_path=False) wraps the same failure in ModelFormatError."))
+def test_layers_whose_widths_do_not_chain_are_refused_on_the_fast_path(tmp_path):
+    first = numpy_helper.from_array(np.ones((2, 4), np.float32), "first")
+    second = numpy_helper.from_array(np.ones((3, 2), np.float32), "second")
+    data = level_model([helper.make_node("MatMul", ["state", "first"], ["hidden"]),
+                        helper.make_node("Tanh", ["hidden"], ["active"]),
+                        helper.make_node("MatMul", ["active", "second"], ["next"])],
+                       initializers=[first, second])
+    bundle = write_level_bundle(tmp_path / "bundle", data)
+    with pytest.raises(ModelFormatError, match=r"MatMul"):
+        load(bundle, fast_path=False)
+    with pytest.raises(ModelFormatError, match=r"MatMul"):
+        load(bundle)

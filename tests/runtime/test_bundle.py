@@ -8,9 +8,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+
 from stridecast.runtime import BundleError, Limits, load
 from stridecast.runtime import bundle as bundle_module
-
 from tests.builders import linear_bundle, oscillator_matrix
 
 

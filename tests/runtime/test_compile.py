@@ -16,6 +16,7 @@ import numpy as np
 import onnxruntime
 import pytest
 import torch
+
 from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
 
 ACTIVATIONS = {

@@ -11,8 +11,8 @@ import numpy as np
 import onnxruntime
 import pytest
 from onnx import TensorProto, helper, numpy_helper
-from stridecast.runtime import LevelEntry, Manifest, NonFiniteError, load, write_bundle
 
+from stridecast.runtime import LevelEntry, Manifest, NonFiniteError, load, write_bundle
 from tests.builders import linear_bundle
 
 

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.linalg import expm
+
 from stridecast.runtime.errors import NonFiniteError, StateError, TimeError
 from stridecast.runtime.integrate import DormandPrince54, integrate
 

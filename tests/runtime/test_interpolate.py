@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
 from stridecast.runtime.errors import StateError, TimeError
 from stridecast.runtime.interpolate import interpolate_states, lagrange_weights
 

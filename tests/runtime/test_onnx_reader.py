@@ -19,6 +19,7 @@ from google.protobuf.message import DecodeError
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from onnx import AttributeProto, TensorProto, helper, numpy_helper
+
 from stridecast.runtime.errors import ModelFormatError
 from stridecast.runtime.limits import Limits
 from stridecast.runtime.onnx_model import Attribute, Model

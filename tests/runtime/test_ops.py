@@ -19,6 +19,7 @@ import onnxruntime
 import pytest
 from onnx import helper, numpy_helper
 from onnx.reference import ReferenceEvaluator
+
 from stridecast.runtime.errors import UnsupportedOperatorError
 from stridecast.runtime.ops import register, resolve, supported_operators
 

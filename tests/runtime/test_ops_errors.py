@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+
 from stridecast.runtime.errors import ModelFormatError, UnsupportedOperatorError
 from stridecast.runtime.ops import resolve
 

@@ -7,8 +7,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from stridecast.runtime.ops import resolve
 
+from stridecast.runtime.ops import resolve
 from tests.runtime.test_ops import (
     FLOATS,
     TOLERANCES,

@@ -11,6 +11,7 @@ import math
 import numpy as np
 import pytest
 from scipy import special as scipy_special
+
 from stridecast.runtime.ops import resolve
 from stridecast.runtime.ops.special import erf, erfc
 

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
 from stridecast.runtime.errors import BundleError, TimeError
 from stridecast.runtime.planner import StridePlanner, _count_table, _plan_from_table
 

@@ -11,6 +11,7 @@ import onnx
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
 from stridecast.runtime import protobuf
 from stridecast.runtime.errors import ModelFormatError
 from stridecast.runtime.protobuf import FieldSpec, MessageSchema, read_message, read_varint

@@ -9,8 +9,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.linalg import expm
-from stridecast.runtime import NonFiniteError, StateError, TimeError, load
 
+from stridecast.runtime import NonFiniteError, StateError, TimeError, load
 from tests.builders import linear_bundle, oscillator_matrix
 
 RNG = np.random.default_rng(7)

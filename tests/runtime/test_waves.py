@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
 from stridecast.runtime.errors import StateError, TimeError
 from stridecast.runtime.planner import StridePlanner
 from stridecast.runtime.waves import build_schedule, run_schedule

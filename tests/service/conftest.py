@@ -18,6 +18,7 @@ import pytest
 import scipy.linalg
 from fastapi.testclient import TestClient
 from onnx import TensorProto, helper, numpy_helper
+
 from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
 from stridecast.service import Settings, create_app
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import pytest
+
 from stridecast.service import Settings
 
 ADVANCE = "/v1/models/oscillator/advance"

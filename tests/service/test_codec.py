@@ -5,6 +5,7 @@ from __future__ import annotations
 import msgpack
 import numpy as np
 import pytest
+
 from stridecast.service.codec import (
     DecodeError,
     check_structure,

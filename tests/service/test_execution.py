@@ -8,6 +8,7 @@ from functools import partial
 
 import anyio
 import pytest
+
 from stridecast.service import ApiError
 from stridecast.service.execution import Gate
 

@@ -18,6 +18,7 @@ from schemathesis.specs.openapi.checks import (
     response_schema_conformance,
     status_code_conformance,
 )
+
 from stridecast.service import Settings, create_app
 
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,

@@ -6,6 +6,7 @@ import logging
 import shutil
 
 import pytest
+
 from stridecast.service import create_app
 from stridecast.service.registry import discover, load_registry, named_sources
 

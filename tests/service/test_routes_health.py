@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from fastapi.testclient import TestClient
 from prometheus_client.parser import text_string_to_metric_families
+
 from stridecast.service import create_app
 
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import pytest
 from pydantic import ValidationError
+
 from stridecast.service import Settings, create_app, get_settings
 from stridecast.service.server import effective_settings, environment_for
 
