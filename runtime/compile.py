@@ -238,9 +238,20 @@ def make_kernel(program: Program, *, mean: Sequence[float], scale: Sequence[floa
     scale_array = np.asarray(scale, dtype=dtype)
     if fast_path:
         stages = recognise_chain(program)
-        if stages is not None:
+        if stages is not None and _widths_chain(stages, mean_array.size):
             return _fold_normalisation(stages, mean_array, scale_array, update, dtype)
     return GenericKernel(program, mean_array, scale_array, update)
+
+
+def _widths_chain(stages: Sequence[Stage], dim: int) -> bool:
+    """Whether the affine layers map dim → … → dim; if not, the interpreter reports it."""
+    width = dim
+    for stage in stages:
+        if isinstance(stage, Affine):
+            if stage.weight.shape[0] != width:
+                return False
+            width = stage.weight.shape[1]
+    return width == dim
 
 
 def recognise_chain(program: Program) -> list[Stage] | None:

@@ -52,8 +52,13 @@ class Program:
 
 
 def build_program(model: Model, *, input_name: str, output_name: str,
-                  dtype: np.dtype | str = "float32", fold_constants: bool = True) -> Program:
-    """Turn a parsed model into a `Program` computing `output_name` from `input_name`."""
+                  dtype: np.dtype | str = "float32", fold_constants: bool = True,
+                  max_nodes: int = 100_000) -> Program:
+    """Turn a parsed model into a `Program` computing `output_name` from `input_name`.
+
+    `max_nodes` bounds the graph after local functions are inlined, so a small file cannot
+    expand into millions of nodes.
+    """
     dtype = np.dtype(dtype)
     graph = model.graph
     graph_inputs = [info.name for info in graph.inputs]
@@ -70,8 +75,14 @@ def build_program(model: Model, *, input_name: str, output_name: str,
             f"the graph's outputs are {output_names}; the manifest expects {output_name!r}."
         )
 
-    nodes = _inline_functions(graph.nodes, model)
+    nodes = _inline_functions(graph.nodes, model, budget=_Budget(max_nodes))
     nodes = _topological_order(nodes, initializer_names | {input_name})
+    produced = {name for node in nodes for name in node.outputs if name}
+    if output_name not in produced | initializer_names | {input_name}:
+        raise ModelFormatError(
+            f"the graph declares the output {output_name!r} but no node, initializer or input "
+            "produces it."
+        )
     nodes = _needed_nodes(nodes, output_name)
     constants = {tensor.name: _as_compute(tensor.array, dtype) for tensor in graph.initializers}
     bound = [_bind(node, model, dtype) for node in nodes]
@@ -224,22 +235,43 @@ def _needed_nodes(nodes: tuple[Node, ...], output_name: str) -> tuple[Node, ...]
     return tuple(reversed(kept))
 
 
-def _inline_functions(nodes: tuple[Node, ...], model: Model, depth: int = 0) -> tuple[Node, ...]:
+class _Budget:
+    """How many more nodes inlining may produce."""
+
+    def __init__(self, limit: int):
+        self.limit = limit
+        self.left = limit
+
+    def spend(self, count: int) -> None:
+        self.left -= count
+        if self.left < 0:
+            raise ModelFormatError(
+                f"the graph has more than {self.limit} nodes once local functions are inlined "
+                "(`max_graph_nodes`)."
+            )
+
+
+def _inline_functions(nodes: tuple[Node, ...], model: Model, depth: int = 0, prefix: str = "",
+                      *, budget: _Budget) -> tuple[Node, ...]:
     functions = {(function.domain, function.name): function for function in model.functions}
     if not functions:
+        budget.spend(len(nodes))
         return nodes
     inlined: list[Node] = []
     for index, node in enumerate(nodes):
         function = functions.get((node.domain, node.op_type))
         if function is None:
+            budget.spend(1)
             inlined.append(node)
             continue
         if depth >= _MAX_INLINE_DEPTH:
             raise ModelFormatError(
                 f"local functions nest deeper than {_MAX_INLINE_DEPTH} at {node.describe()}."
             )
-        body = _instantiate(function, node, prefix=f"{node.name or node.op_type}__{index}__")
-        inlined.extend(_inline_functions(body, model, depth + 1))
+        # The prefix carries the whole call path, so every instance gets its own value names.
+        call_prefix = f"{prefix}{node.op_type}__{index}__"
+        body = _instantiate(function, node, prefix=call_prefix)
+        inlined.extend(_inline_functions(body, model, depth + 1, call_prefix, budget=budget))
     return tuple(inlined)
 
 

@@ -17,6 +17,8 @@ class Limits:
     max_protobuf_depth: int = 16
     max_tensor_elements: int = 2**28
     max_graph_nodes: int = 100_000
+    # The planner's tables grow with the largest stride (about 0.25 s to build at 10^5).
+    max_stride: int = 100_000
     # Network evaluations (planned steps) one query may need, per state.
     max_steps_per_query: int = 1_000_000
     max_batch: int = 65_536

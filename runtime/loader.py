@@ -8,7 +8,7 @@ import numpy as np
 
 from .bundle import open_bundle_root, read_levels, read_manifest
 from .compile import make_kernel
-from .errors import BundleError, ModelFormatError
+from .errors import BundleError, ModelFormatError, StridecastError
 from .graph import build_program
 from .limits import DEFAULT_LIMITS, Limits
 from .onnx_reader import read_model
@@ -42,6 +42,12 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
     compute = np.dtype(dtype)
     root = open_bundle_root(path)
     manifest = read_manifest(root, limits=limits)
+    too_large = [entry.stride for entry in manifest.levels if entry.stride > limits.max_stride]
+    if too_large:
+        raise BundleError(
+            f"`levels` strides {too_large} exceed the limit of {limits.max_stride} base steps "
+            "(`Limits.max_stride`)."
+        )
     contents = read_levels(root, manifest, verify=verify, limits=limits)
     kernels = {}
     for entry in manifest.levels:
@@ -49,12 +55,17 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
         try:
             model = read_model(contents[entry.stride], limits=limits, source=entry.file)
             program = build_program(model, input_name=entry.input, output_name=entry.output,
-                                    dtype=compute)
+                                    dtype=compute, max_nodes=limits.max_graph_nodes)
             kernel = make_kernel(program, mean=manifest.mean, scale=manifest.scale,
                                  update=manifest.update, fast_path=fast_path)
             _probe(kernel, manifest.mean, compute, where)
         except ModelFormatError as error:
             raise type(error)(f"{where}: {error}") from error
+        except StridecastError:
+            raise
+        except (ValueError, TypeError, IndexError, KeyError) as error:
+            raise ModelFormatError(f"{where}: the network cannot be prepared: {error}.") \
+                from error
         kernels[entry.stride] = kernel
     return Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root))
 
@@ -62,7 +73,14 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
 def _probe(kernel, mean, dtype: np.dtype, where: str) -> None:
     """Run the level once on two copies of the mean state to check its output shape."""
     states = np.tile(np.asarray(mean, dtype=dtype), (2, 1))
-    result = np.asarray(kernel(states))
+    try:
+        with np.errstate(all="ignore"):
+            result = np.asarray(kernel(states))
+    except ModelFormatError:
+        raise
+    except (ValueError, TypeError, IndexError, KeyError) as error:
+        raise ModelFormatError(f"the network cannot run on a batch of states: {error}.") \
+            from error
     if result.shape != states.shape:
         raise ModelFormatError(
             f"the network maps a batch of shape {states.shape} to shape {result.shape}; "

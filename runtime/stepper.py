@@ -394,7 +394,7 @@ class Stepper:
 
     def _apply(self, stride: int, states: np.ndarray, *, depth: int) -> np.ndarray:
         # Overflow shows up as inf below and is reported with the step and level.
-        with np.errstate(over="ignore", invalid="ignore"):
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             result = self._kernels[stride](states)
         if result.shape != states.shape or not np.isfinite(result).all():
             self._report_bad_step(stride, result, states.shape, depth)
@@ -410,7 +410,7 @@ class Stepper:
             return self._run_checked(states, steps)
         shape = states.shape
         result = states
-        with np.errstate(over="ignore", invalid="ignore"):
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             for stride, count in steps:
                 kernel = self._kernels[stride]
                 for _ in range(count):
@@ -426,7 +426,7 @@ class Stepper:
         """Run a plan with a shape and finiteness check after every step."""
         depth = 0
         shape = states.shape
-        with np.errstate(over="ignore", invalid="ignore"):
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             for stride, count in steps:
                 kernel = self._kernels[stride]
                 for _ in range(count):

@@ -369,10 +369,10 @@ def test_control_the_watch_sees_a_read_of_the_outside_file(tmp_path, bundle, wat
     assert (os.stat(outside).st_atime > OLD_TIME) == watched_load.atime_works
 
 
-@pytest.mark.xfail(strict=True, raises=MemoryError, reason=(
-    "runtime/manifest.py accepts any positive stride and StridePlanner allocates Python lists "
-    "of the largest stride's length at load: stride 2**40 raises MemoryError instead of "
-    "BundleError; stride 4,000,000 takes ~50 s and ~1.5 GB (measured). Needs a stride limit."))
+# Regression (found by this suite, fixed): runtime/manifest.py accepts any positive stride and
+# StridePlanner allocates Python lists of the largest stride's length at load: stride 2**40 raises
+# MemoryError instead of BundleError; stride 4,000,000 takes ~50 s and ~1.5 GB (measured). Needs a
+# stride limit.
 def test_huge_stride_is_refused_with_bundle_error(bundle):
     data = (bundle / "levels/stride-00004.onnx").read_bytes()
     (bundle / "levels/stride-00004.onnx").unlink()

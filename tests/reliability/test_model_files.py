@@ -298,10 +298,10 @@ def test_faulty_level_in_a_bundle_is_refused_by_load_naming_the_level(tmp_path, 
 
 # --- found while writing these tests: marked so they stay visible until fixed ---------------
 
-@pytest.mark.xfail(strict=True, raises=KeyError, reason=(
-    "graph.build_program accepts a graph whose declared output no node produces; load() then "
-    "raises KeyError('next') from Program.run in loader._probe instead of ModelFormatError "
-    "(and service.registry, which catches StridecastError, lets it stop the whole service)."))
+# Regression (found by this suite, fixed): graph.build_program accepts a graph whose declared
+# output no node produces; load() then raises KeyError('next') from Program.run in loader._probe
+# instead of ModelFormatError (and service.registry, which catches StridecastError, lets it stop
+# the whole service).
 def test_output_that_no_node_produces_is_refused(tmp_path):
     data = level_model([helper.make_node("Relu", ["state"], ["other"])])
     bundle = write_level_bundle(tmp_path / "bundle", data)
@@ -330,10 +330,9 @@ def nested_function_model() -> onnx.ModelProto:
     return model
 
 
-@pytest.mark.xfail(strict=True, raises=ModelFormatError, reason=(
-    "graph._inline_functions names the values of a nested call by its position in the "
-    "enclosing body only ('B__0__t'), so two instances of a function that calls another "
-    "produce the same names: a valid model is refused with 'produced twice'."))
+# Regression (found by this suite, fixed): graph._inline_functions names the values of a nested
+# call by its position in the enclosing body only ('B__0__t'), so two instances of a function that
+# calls another produce the same names: a valid model is refused with 'produced twice'.
 def test_nested_local_functions_called_twice_run_like_onnxruntime():
     model = nested_function_model()
     state = np.array([[1.0, -2.0], [0.5, 3.0]], np.float32)
@@ -367,11 +366,10 @@ def inlining_bomb(fan_out: int, depth: int) -> bytes:
 BOMB_SECONDS = 10
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "graph._inline_functions bounds the nesting depth (8) but not the number of inlined "
-    "nodes: a 1.5 KB level (fan-out 8, depth 8) expands to millions of nodes; measured: "
-    "fan-out 8, depth 7 took 92 s and 690 MB before failing. Inlining should stop at "
-    "Limits.max_graph_nodes with ModelFormatError."))
+# Regression (found by this suite, fixed): graph._inline_functions bounds the nesting depth (8) but
+# not the number of inlined nodes: a 1.5 KB level (fan-out 8, depth 8) expands to millions of
+# nodes; measured: fan-out 8, depth 7 took 92 s and 690 MB before failing. Inlining should stop at
+# Limits.max_graph_nodes with ModelFormatError.
 def test_function_inlining_bomb_is_refused_quickly(tmp_path):
     path = tmp_path / "bomb.onnx"
     path.write_bytes(inlining_bomb(8, 8))
@@ -396,11 +394,11 @@ def test_function_inlining_bomb_is_refused_quickly(tmp_path):
     assert "refused:" in done.stdout and "nodes" in done.stdout, done.stdout + done.stderr
 
 
-@pytest.mark.xfail(strict=True, raises=TypeError, reason=(
-    "compile.py's affine-chain kernel calls activation operators with the node's attributes "
-    "outside graph._execute's error wrapping: an activation with an unknown attribute (found by "
-    "the fuzzer: 'approximate' mutated to 'a.proximate') makes load() raise TypeError instead "
-    "of ModelFormatError; the interpreter path (fast_path=False) refuses it properly."))
+# Regression (found by this suite, fixed): compile.py's affine-chain kernel calls activation
+# operators with the node's attributes outside graph._execute's error wrapping: an activation with
+# an unknown attribute (found by the fuzzer: 'approximate' mutated to 'a.proximate') makes load()
+# raise TypeError instead of ModelFormatError; the interpreter path (fast_path=False) refuses it
+# properly.
 def test_activation_with_unknown_attribute_is_refused_on_the_fast_path(tmp_path):
     data = level_model([helper.make_node("MatMul", ["state", "weight"], ["hidden"]),
                         helper.make_node("LeakyRelu", ["hidden"], ["next"], bogus=0.5)],
@@ -412,11 +410,10 @@ def test_activation_with_unknown_attribute_is_refused_on_the_fast_path(tmp_path)
         load(bundle)
 
 
-@pytest.mark.xfail(strict=True, raises=ValueError, reason=(
-    "compile._fold_normalisation multiplies the last affine layer by the manifest scale "
-    "before the output width is checked: a level mapping (batch, 2) to (batch, 3) makes "
-    "load() raise NumPy's broadcast ValueError (not ModelFormatError; found by the atheris "
-    "harness); with fast_path=False the probe refuses it with ModelFormatError."))
+# Regression (found by this suite, fixed): compile._fold_normalisation multiplies the last affine
+# layer by the manifest scale before the output width is checked: a level mapping (batch, 2) to
+# (batch, 3) makes load() raise NumPy's broadcast ValueError (not ModelFormatError; found by the
+# atheris harness); with fast_path=False the probe refuses it with ModelFormatError.
 def test_level_with_the_wrong_output_width_is_refused_on_the_fast_path(tmp_path):
     wide = numpy_helper.from_array(np.ones((2, 3), np.float32), "weight")
     data = level_model([helper.make_node("MatMul", ["state", "weight"], ["next"])],
@@ -429,11 +426,10 @@ def test_level_with_the_wrong_output_width_is_refused_on_the_fast_path(tmp_path)
         load(bundle)
 
 
-@pytest.mark.xfail(strict=True, raises=ValueError, reason=(
-    "compile.ChainKernel multiplies consecutive affine layers without checking that their "
-    "widths chain: a level MatMul(2→4) → Tanh → MatMul(3→2) makes load() raise NumPy's matmul "
-    "ValueError (not ModelFormatError; found by the atheris harness); the interpreter path "
-    "(fast_path=False) wraps the same failure in ModelFormatError."))
+# Regression (found by this suite, fixed): compile.ChainKernel multiplies consecutive affine layers
+# without checking that their widths chain: a level MatMul(2→4) → Tanh → MatMul(3→2) makes load()
+# raise NumPy's matmul ValueError (not ModelFormatError; found by the atheris harness); the
+# interpreter path (fast_path=False) wraps the same failure in ModelFormatError.
 def test_layers_whose_widths_do_not_chain_are_refused_on_the_fast_path(tmp_path):
     first = numpy_helper.from_array(np.ones((2, 4), np.float32), "first")
     second = numpy_helper.from_array(np.ones((3, 2), np.float32), "second")

@@ -174,10 +174,10 @@ def test_forecast_stops_or_returns_finite(poisoned, reliability, times, fails):
         "NonFiniteError naming step and stride, or a finite answer matching (cos t, sin t)")
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "Stepper._run_sequential and Stepper._apply wrap the kernels in np.errstate(over='ignore', "
-    "invalid='ignore') but not divide='ignore': a level dividing by zero emits NumPy's "
-    "RuntimeWarning on every call, on top of the NonFiniteError that already reports it."))
+# Regression (found by this suite, fixed): Stepper._run_sequential and Stepper._apply wrap the
+# kernels in np.errstate(over='ignore', invalid='ignore') but not divide='ignore': a level dividing
+# by zero emits NumPy's RuntimeWarning on every call, on top of the NonFiniteError that already
+# reports it.
 def test_division_by_zero_in_a_level_raises_without_numpy_warnings(tmp_path):
     out = write_bundle(tmp_path / "div", two_state_manifest(STRIDES),
                        {stride: poisoned_level(stride, "Div") for stride in STRIDES})
