@@ -6,13 +6,20 @@ it arrives, so a chunked (or lying) upload is cut off as soon as it passes the l
 
 from __future__ import annotations
 
+import anyio
 from fastapi import Request
+from starlette.requests import ClientDisconnect
 
 from .errors import ApiError
 
 
-async def read_body(request: Request, *, max_bytes: int) -> bytes:
-    """Return the whole body of `request`, or raise `ApiError` 413 once it exceeds `max_bytes`."""
+async def read_body(request: Request, *, max_bytes: int, timeout: float | None = None) -> bytes:
+    """Return the whole body of `request`, or raise `ApiError`.
+
+    413 once it exceeds `max_bytes`; 408 when it has not fully arrived within `timeout`
+    seconds (a trickling client must not hold a connection past the request budget); 400 when
+    the client goes away mid-body (not a server error, and nothing worth a traceback).
+    """
     declared = request.headers.get("content-length")
     if declared is not None:
         if not declared.isdigit():
@@ -23,10 +30,18 @@ async def read_body(request: Request, *, max_bytes: int) -> bytes:
                                 f"is {max_bytes} bytes.")
     chunks: list[bytes] = []
     received = 0
-    async for chunk in request.stream():
-        received += len(chunk)
-        if received > max_bytes:
-            raise ApiError(413, f"the body exceeds the limit of {max_bytes} bytes (stopped "
-                                f"reading after {received} bytes).")
-        chunks.append(chunk)
+    try:
+        with anyio.fail_after(timeout):
+            async for chunk in request.stream():
+                received += len(chunk)
+                if received > max_bytes:
+                    raise ApiError(413, f"the body exceeds the limit of {max_bytes} bytes "
+                                        f"(stopped reading after {received} bytes).")
+                chunks.append(chunk)
+    except TimeoutError as error:
+        raise ApiError(408, f"the body did not arrive within {timeout:g} s (received "
+                            f"{received} bytes); send it at once.") from error
+    except ClientDisconnect as error:
+        raise ApiError(400, f"the client disconnected after {received} bytes of its body.") \
+            from error
     return b"".join(chunks)

@@ -56,7 +56,8 @@ def served_stepper(request: Request, name: str) -> Any:
 
 async def read_document(request: Request, settings: Settings) -> Any:
     """Read (size-limited) and decode (safely) the request body."""
-    body = await read_body(request, max_bytes=settings.max_body_bytes)
+    body = await read_body(request, max_bytes=settings.max_body_bytes,
+                           timeout=settings.request_timeout)
     try:
         return decode_body(request.headers.get("content-type"), body,
                            max_depth=settings.max_depth)

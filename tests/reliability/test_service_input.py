@@ -373,11 +373,10 @@ def test_server_survived_with_bounded_memory(limited, roomy, reliability):
     )
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "service/body.py reads the body without a deadline and the request budget is checked only "
-    "when the computation starts: a client trickling its body past `request_timeout` holds the "
-    "connection until it has sent everything and then gets 504 (a server error) instead of a "
-    "4xx (408) when the budget runs out."))
+# Regression (found by this suite, fixed): service/body.py reads the body without a deadline and
+# the request budget is checked only when the computation starts: a client trickling its body past
+# `request_timeout` holds the connection until it has sent everything and then gets 504 (a server
+# error) instead of a 4xx (408) when the budget runs out.
 def test_body_trickling_past_the_budget_is_cut_off_with_a_4xx(models, tmp_path):
     with running_server(models, tmp_path / "log", request_timeout=1) as server:
         connection = server.connect(timeout=30)
@@ -397,11 +396,10 @@ def test_body_trickling_past_the_budget_is_cut_off_with_a_4xx(models, tmp_path):
     assert status is not None and 400 <= status < 500, status
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "service/body.py lets starlette's ClientDisconnect escape when a client goes away in the "
-    "middle of its body: uvicorn logs 'Exception in ASGI application' with a traceback for each "
-    "such client (log flooding), and MetricsMiddleware labels the request with a server-error "
-    "status in /metrics."))
+# Regression (found by this suite, fixed): service/body.py lets starlette's ClientDisconnect escape
+# when a client goes away in the middle of its body: uvicorn logs 'Exception in ASGI application'
+# with a traceback for each such client (log flooding), and MetricsMiddleware labels the request
+# with a server-error status in /metrics.
 def test_abandoned_uploads_are_not_logged_or_counted_as_server_errors(models, tmp_path):
     with running_server(models, tmp_path / "log") as server:
         for _ in range(3):
