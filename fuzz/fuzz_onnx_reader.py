@@ -28,6 +28,7 @@ import warnings
 from pathlib import Path
 
 import numpy as np
+
 from stridecast.runtime import ModelFormatError
 from stridecast.runtime.compile import make_kernel
 from stridecast.runtime.graph import build_program
@@ -42,20 +43,12 @@ PROBE_BATCH = 2
 OUTCOMES = ("read-refused", "build-refused", "run-refused", "ran")
 
 
-# Bugs already reported by strict xfail tests in tests/reliability/test_model_files.py: the
-# fuzzers count them instead of stopping at them. Remove an entry once its bug is fixed.
-KNOWN_ISSUES = {
-    # name: (exception type, message pattern, a frame it passes through, the xfail test)
-    "output-not-produced": (KeyError, r".*", ("graph.py", "run"),
-                            "test_output_that_no_node_produces_is_refused"),
-    "fast-path-attribute": (TypeError, r"unexpected keyword argument", ("compile.py", "__call__"),
-                            "test_activation_with_unknown_attribute_is_refused_on_the_fast_path"),
-    "fast-path-width": (ValueError, r"could not be broadcast", ("compile.py",
-                                                               "_fold_normalisation"),
-                        "test_level_with_the_wrong_output_width_is_refused_on_the_fast_path"),
-    "fast-path-chain": (ValueError, r"mismatch in its core dimension", ("compile.py", "__call__"),
-                        "test_layers_whose_widths_do_not_chain_are_refused_on_the_fast_path"),
-}
+# Bugs already reported by strict xfail tests in tests/reliability/: the fuzzers count them
+# instead of stopping at them. Each entry is name: (exception type, message pattern, a frame
+# (file name, function) the exception passes through, the xfail test); remove it once fixed.
+# Empty: the four found so far (a KeyError for outputs no node produces, and a TypeError and
+# two ValueErrors escaping the fast path) are fixed and pinned by regression tests.
+KNOWN_ISSUES: dict[str, tuple[type[BaseException], str, tuple[str, str], str]] = {}
 
 
 def known_issue(error: BaseException) -> str | None:

@@ -19,9 +19,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import pytest
+
 from stridecast.runtime import DEFAULT_LIMITS, BundleError, Limits, load, sha256_hex
 from stridecast.runtime import loader as loader_module
-
 from tests.builders import linear_bundle, oscillator_matrix
 from tests.runtime.test_bundle import edit_manifest
 

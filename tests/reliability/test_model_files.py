@@ -19,6 +19,7 @@ import onnx
 import onnxruntime
 import pytest
 from onnx import TensorProto, helper, numpy_helper
+
 from stridecast.runtime import (
     DEFAULT_LIMITS,
     LevelEntry,
@@ -31,7 +32,6 @@ from stridecast.runtime import (
 )
 from stridecast.runtime.graph import build_program
 from stridecast.runtime.onnx_reader import read_model
-
 from tests.runtime.test_onnx_reader import model_bytes, node_model, tensor_model
 from tests.runtime.test_protobuf import length_delimited, tag, varint
 

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 
 from tests.reliability.conftest import OUTPUT_VARIABLE
-from tests.reliability.report import Collector, render
+from tests.reliability.report import FORBIDDEN, FOUND, Collector, render
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -50,6 +50,12 @@ def test_render_writes_summary_table_and_method():
     assert "x refused." in text
     assert "| Bundles: paths | a \\| b | 1,234 | all refused |" in text
     assert "## How the figures are made" in text and "## Longer fuzzing" in text
+
+
+def test_the_fixed_text_of_the_document_reports_no_failure():
+    text = render((), machine="Measured on a test.", date="2001-01-01")
+    assert FORBIDDEN.search(text) is None
+    assert f"found {len(FOUND)} groups of bugs, all fixed" in text
 
 
 def test_a_partial_run_does_not_write_the_document(tmp_path):

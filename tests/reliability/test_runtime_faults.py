@@ -21,6 +21,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from onnx import TensorProto, helper, numpy_helper
+
 from stridecast.runtime import LevelEntry, Manifest, NonFiniteError, load, write_bundle
 from stridecast.runtime.compile import SMALL_BATCH
 

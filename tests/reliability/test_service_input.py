@@ -19,8 +19,8 @@ from pathlib import Path
 import httpx
 import numpy as np
 import pytest
-from stridecast.runtime import load
 
+from stridecast.runtime import load
 from tests.reliability.server import read_response, request_head, running_server
 from tests.service.conftest import write_oscillator
 from tests.service.test_bad_input import ADVANCE, CASES, JSON_TYPE, LIMITS, MSGPACK_TYPE
@@ -347,27 +347,18 @@ def logged_exceptions(log: str) -> list[str]:
     return found
 
 
-# The exception of the known issue of test_abandoned_uploads_are_not_logged_or_counted_as_
-# server_errors (below); remove once fixed.
-KNOWN_LOGGED = {"starlette.requests.ClientDisconnect"}
-
-
 def test_server_survived_with_bounded_memory(limited, roomy, reliability):
     # Runs after the batteries above (pytest keeps file order): both servers still answer,
-    # logged no traceback (but the known issue's), and grew by less than the bound since ready.
-    growth, known = {}, 0
+    # logged no traceback, and grew by less than the bound since they became ready.
+    growth = {}
     for name, server in (("limited", limited), ("roomy", roomy)):
         assert server.alive() and server.healthy()
-        exceptions = logged_exceptions(server.errors_logged())
-        assert set(exceptions) <= KNOWN_LOGGED, exceptions
-        known += len(exceptions)
+        assert logged_exceptions(server.errors_logged()) == []
         growth[name] = server.rss_bytes() - server.ready_rss
     assert all(value <= RSS_GROWTH_BOUND for value in growth.values()), growth
-    note = (f"; {known} ClientDisconnect traceback(s) logged for a malformed chunk (known "
-            "issue: the xfail test on abandoned uploads)" if known else "; no traceback logged")
     reliability.record(
         AREA, "after all of the above: both uvicorn processes", 2,
-        "still up and healthy" + note + "; RSS growth since ready "
+        "still up and healthy; no traceback logged; RSS growth since ready "
         + ", ".join(f"{name} {value / 2**20:+.1f} MiB" for name, value in growth.items())
         + f" (bound {RSS_GROWTH_BOUND // 2**20} MiB)",
     )

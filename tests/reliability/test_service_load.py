@@ -16,8 +16,8 @@ import httpx
 import msgpack
 import numpy as np
 import pytest
-from stridecast.runtime import load
 
+from stridecast.runtime import load
 from tests.reliability.server import running_server
 from tests.service.conftest import write_oscillator
 

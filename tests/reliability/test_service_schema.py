@@ -15,8 +15,8 @@ from hypothesis import HealthCheck, Phase, given, settings
 from schemathesis import GenerationMode
 from schemathesis.checks import CHECKS as REGISTERED_CHECKS
 from schemathesis.checks import load_all_checks
-from stridecast.service import Settings, create_app
 
+from stridecast.service import Settings, create_app
 from tests.service.conftest import write_oscillator
 from tests.service.test_openapi import OPERATIONS
 

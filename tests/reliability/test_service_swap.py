@@ -16,9 +16,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 from fastapi.testclient import TestClient
+
 from stridecast.runtime import BundleError, load, sha256_hex
 from stridecast.service import Settings, create_app
-
 from tests.service.conftest import write_oscillator
 
 STATE = [[1.0, 0.0], [0.2, -0.4]]
