@@ -1,8 +1,9 @@
-"""Fuzz the NumPy-only ONNX reader, and the program builder behind it, with atheris.
+"""Fuzz the NumPy-only ONNX reader, and `load` and the stepper behind it, with atheris.
 
 CI runs the same check (`check_input`) through hypothesis on a few thousand mutated models
-(tests/reliability/test_reader_fuzz.py); this harness is for runs of hours. An input passes when
-it is refused with `ModelFormatError` (or `UnsupportedOperatorError`), or reads, builds and runs;
+(tests/reliability/test_reader_fuzz.py); this harness is for runs of hours. Each input is read,
+then loaded as the level of a one-level bundle and stepped. It passes when it is refused with
+`ModelFormatError` (or `UnsupportedOperatorError`), a call stops with `StridecastError`, or it runs;
 any other exception (but the `KNOWN_ISSUES`, bugs already reported), or a traced peak above
 `MEMORY_FACTOR` × size + `MEMORY_CONSTANT` during `read_model`, stops the fuzzer with the input
 saved (libFuzzer's crash-* file; reproduce it by passing that file instead of the corpus).
@@ -22,6 +23,7 @@ from __future__ import annotations
 import io
 import re
 import sys
+import tempfile
 import traceback
 import tracemalloc
 import warnings
@@ -29,18 +31,21 @@ from pathlib import Path
 
 import numpy as np
 
-from stridecast.runtime import ModelFormatError
-from stridecast.runtime.compile import make_kernel
-from stridecast.runtime.graph import build_program
+from stridecast.runtime import (
+    LevelEntry,
+    Manifest,
+    ModelFormatError,
+    StridecastError,
+    load,
+    write_bundle,
+)
 from stridecast.runtime.onnx_reader import read_model
 
 # Common practice for a reader that never allocates from an unchecked size: a few copies of the
 # input plus the fixed cost of the Python records.
 MEMORY_FACTOR = 4
 MEMORY_CONSTANT = 256 * 1024
-# Batch the built program is run on (two rows: the smallest that is still a batch).
-PROBE_BATCH = 2
-OUTCOMES = ("read-refused", "build-refused", "run-refused", "ran")
+OUTCOMES = ("read-refused", "load-refused", "run-refused", "ran")
 
 
 # Bugs already reported by strict xfail tests in tests/reliability/: the fuzzers count them
@@ -82,13 +87,29 @@ def traced_read(data: bytes):
     return result, peak
 
 
+def level_bundle(folder: Path, data: bytes, model) -> Path:
+    """A one-level bundle around `data`, named after the model's first input and output."""
+    initializers = {tensor.name for tensor in model.graph.initializers}
+    inputs = [info for info in model.graph.inputs if info.name not in initializers]
+    shape = inputs[0].shape if inputs else None
+    width = shape[-1] if shape and isinstance(shape[-1], int) and 0 < shape[-1] <= 64 else 3
+    entry = LevelEntry(1, file="", sha256="0" * 64,
+                       input=inputs[0].name if inputs else "state",
+                       output=model.graph.outputs[0].name if model.graph.outputs else "next")
+    manifest = Manifest(state_names=tuple(f"x{i}" for i in range(width)),
+                        state_units=("",) * width, base_step=1.0, mean=(0.0,) * width,
+                        scale=(1.0,) * width, update="replace", levels=(entry,))
+    return write_bundle(folder / "bundle", manifest, {1: data})
+
+
 def check_input(data: bytes) -> tuple[str, int]:
-    """Run one input through reading, building and one probe call.
+    """Run one input through `read_model`, then as a bundle's level through `load` and calls.
 
     Returns
     -------
     outcome : str
-        One of `OUTCOMES`.
+        One of `OUTCOMES`: refused by the reader, refused by `load`, refused by a call
+        (`StridecastError`, e.g. NonFiniteError), or ran.
     peak : int
         tracemalloc peak of `read_model` in bytes.
 
@@ -97,31 +118,24 @@ def check_input(data: bytes) -> tuple[str, int]:
     MemoryBoundExceeded
         The reader's peak exceeded the bound.
     Exception
-        Anything other than `ModelFormatError` escaping the reader, builder or probe.
+        Anything other than the documented errors escaping the reader, `load` or a call.
     """
     model, peak = traced_read(data)
     if peak > MEMORY_FACTOR * len(data) + MEMORY_CONSTANT:
         raise MemoryBoundExceeded(f"read_model peaked at {peak} bytes on {len(data)} bytes.")
     if isinstance(model, ModelFormatError):
         return "read-refused", peak
-    inputs = [info for info in model.graph.inputs
-              if info.name not in {tensor.name for tensor in model.graph.initializers}]
-    outputs = model.graph.outputs
-    if len(inputs) != 1 or not outputs:
-        return "build-refused", peak
-    shape = inputs[0].shape
-    width = shape[-1] if shape and isinstance(shape[-1], int) and 0 < shape[-1] <= 64 else None
-    if width is None:
-        return "build-refused", peak
+    with tempfile.TemporaryDirectory(prefix="fuzz-level-") as folder:
+        try:
+            stepper = load(level_bundle(Path(folder), data, model))
+        except ModelFormatError:
+            return "load-refused", peak
     try:
-        program = build_program(model, input_name=inputs[0].name, output_name=outputs[0].name)
-        kernel = make_kernel(program, mean=[0.0] * width, scale=[1.0] * width, update="replace")
-    except ModelFormatError:
-        return "build-refused", peak
-    try:
-        with np.errstate(all="ignore"):
-            kernel(np.zeros((PROBE_BATCH, width), np.float32))
-    except ModelFormatError:
+        # A single state, a small batch and one past the fast path's small-batch branch.
+        for shape in ((stepper.state_dim,), (2, stepper.state_dim), (20, stepper.state_dim)):
+            stepper.advance(np.full(shape, 0.5), 3.0)
+            stepper.forecast(np.full(shape, 0.5), [1.0, 2.5])
+    except StridecastError:
         return "run-refused", peak
     return "ran", peak
 

@@ -40,7 +40,7 @@ def seeds() -> list[bytes]:
     return [*exported.values(), SMALL]
 
 
-def test_seeds_read_build_and_run(seeds):
+def test_seeds_read_load_and_run(seeds):
     # The unmutated seeds must pass all the way, or the fuzz run would test only refusals.
     assert [harness.check_input(seed)[0] for seed in seeds] == ["ran"] * len(seeds)
 
@@ -93,7 +93,7 @@ def test_mutated_exports_are_refused_or_run(seeds, reliability):
     run()
     total = sum(outcomes.values())
     assert total >= EXAMPLES
-    refused = outcomes["read-refused"] + outcomes["build-refused"] + outcomes["run-refused"]
+    refused = outcomes["read-refused"] + outcomes["load-refused"]
     known = "".join(f"; {outcomes[name]:,} hit the known issue of xfail test `{test}`"
                     for name, (_, _, _, test) in harness.KNOWN_ISSUES.items()
                     if outcomes[name])
@@ -101,11 +101,13 @@ def test_mutated_exports_are_refused_or_run(seeds, reliability):
         "Model files: fuzzing",
         f"{EXAMPLES:,} mutated torch.onnx.export MLPs (TorchScript and dynamo exporters) and a "
         "hand-built model: bit flips, inserts, deletes, 2^64 − 1 and ~2^62 varints, splices, "
-        "truncation; read, build, one probe call",
+        "truncation; each read, loaded as a bundle's level, then advanced and forecast "
+        "(batches of 1, 2 and 20)",
         total,
-        f"{refused:,} refused with ModelFormatError ({outcomes['read-refused']:,} at read, "
-        f"{outcomes['build-refused'] + outcomes['run-refused']:,} at build/run), "
-        f"{outcomes['ran']:,} ran{known}; 0 other exceptions; slowest case "
+        f"{refused:,} refused with ModelFormatError ({outcomes['read-refused']:,} by the "
+        f"reader, {outcomes['load-refused']:,} by load), {outcomes['run-refused']:,} stopped "
+        f"with another StridecastError, {outcomes['ran']:,} ran{known}; 0 other exceptions; "
+        "slowest case "
         f"{slowest[0] * 1000:.0f} ms (deadline {DEADLINE.total_seconds():.0f} s); reader "
         f"peak ≤ {harness.MEMORY_FACTOR} × size + {harness.MEMORY_CONSTANT // 1024} KiB",
         summary=f"{total:,} fuzzed model files: 0 unexpected exceptions" + (
