@@ -75,6 +75,9 @@ def register(subparsers, add) -> None:
                        help="file holding the bearer token POST routes require")
     serve.add_argument("--limit-concurrency", type=int, default=None,
                        help="requests computing at once (default: CPU count)")
+    serve.add_argument("--blas-threads", type=int, default=None,
+                       help="BLAS threads per worker process (default: 1, unless "
+                       "OPENBLAS_NUM_THREADS/OMP_NUM_THREADS are already set)")
 
     bench = add(subparsers, "bench", "Benchmark a bundle against onnxruntime, torch and the "
                 "naive rollout.", "stridecast bench crane-demo.bundle --quick",

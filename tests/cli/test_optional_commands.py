@@ -77,3 +77,27 @@ def test_help_has_example(command, capsys):
         main([command, "--help"])
     assert exit_info.value.code == 0
     assert "example:" in capsys.readouterr().out
+
+
+def test_serve_limits_blas_threads_before_numpy_loads():
+    # In a fresh interpreter: parse `serve` the way main() does, without starting a server.
+    code = (
+        "import os, sys\n"
+        "for name in ('OPENBLAS_NUM_THREADS', 'OMP_NUM_THREADS', 'MKL_NUM_THREADS'):\n"
+        "    os.environ.pop(name, None)\n"
+        "from stridecast import cli\n"
+        "assert 'numpy' not in sys.modules\n"
+        "cli._limit_blas_threads(None)\n"
+        "print(os.environ['OPENBLAS_NUM_THREADS'], os.environ['OMP_NUM_THREADS'])\n"
+        "os.environ['OPENBLAS_NUM_THREADS'] = '3'\n"
+        "cli._limit_blas_threads(None)\n"
+        "print(os.environ['OPENBLAS_NUM_THREADS'])\n"
+        "cli._limit_blas_threads(2)\n"
+        "print(os.environ['OPENBLAS_NUM_THREADS'])\n"
+    )
+    import subprocess
+    import sys
+
+    output = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                            check=True).stdout.split()
+    assert output == ["1", "1", "3", "2"]
