@@ -229,11 +229,14 @@ class Stepper:
         anchor_states = self._run_schedule(schedule, states)
         position = {anchor: index for index, anchor in enumerate(anchors)}
         results = np.empty((len(distinct), *states.shape), dtype=self._dtype)
-        rk_total = 0
+        jobs = []  # (result index, anchor row, remainder) of the times the integrator finishes
         for index, resolution in enumerate(resolutions):
+            if resolution.method in ("integrate", "hybrid") and resolution.remainder > 0:
+                jobs.append((index, position[resolution.anchors[0]], resolution.remainder))
+                continue
             rows = anchor_states[[position[a] for a in resolution.anchors]]
-            results[index], rk = self._finish(resolution, resolution.anchors, rows, vector_field)
-            rk_total += rk
+            results[index], _ = self._finish(resolution, resolution.anchors, rows, vector_field)
+        rk_total = self._integrate_jobs(jobs, anchor_states, vector_field, results)
         output = results[inverse.reshape(-1)]
         if single:
             output = output[:, 0, :]
@@ -452,6 +455,39 @@ class Stepper:
     def _run_schedule(self, schedule, states: np.ndarray) -> np.ndarray:
         return run_schedule(schedule, states,
                             lambda stride, batch, depth: self._apply(stride, batch, depth=depth))
+
+    def _integrate_jobs(self, jobs: list[tuple[int, int, float]], anchor_states: np.ndarray,
+                        vector_field: VectorField | None, results: np.ndarray) -> int:
+        """Finish many times with one Runge–Kutta sweep over all the anchors they start from.
+
+        All anchor states are integrated together through the sorted remainders, and each time
+        takes its anchor's row when the sweep passes its remainder: the cost is one integration
+        over the longest remainder instead of one per requested time.
+        """
+        if not jobs:
+            return 0
+        indices = np.asarray([job[0] for job in jobs])
+        rows = np.asarray([job[1] for job in jobs])
+        remainders = np.asarray([job[2] for job in jobs])
+        used, local = np.unique(rows, return_inverse=True)
+        current = anchor_states[used].astype(np.float64)  # (anchors, B, d)
+        shape = current.shape
+        elapsed, evaluations = 0.0, 0
+        order = np.argsort(remainders, kind="stable")
+        distinct, starts = np.unique(remainders[order], return_index=True)
+        ends = np.append(starts[1:], order.size)
+        for remainder, start, end in zip(distinct, starts, ends, strict=True):
+            if remainder > elapsed:
+                flat, spent = integrate(vector_field, current.reshape(-1, shape[-1]),
+                                        float(remainder - elapsed))
+                current = np.asarray(flat).reshape(shape)
+                evaluations += int(spent)
+                elapsed = float(remainder)
+            chosen = order[start:end]
+            results[indices[chosen]] = current[local[chosen]].astype(self._dtype)
+        if not np.isfinite(current).all():
+            raise NonFiniteError("the Runge–Kutta finish produced non-finite values.")
+        return evaluations
 
     def _finish(self, resolution: _Resolution, anchors: Sequence[int], anchor_states: np.ndarray,
                 vector_field: VectorField | None) -> tuple[np.ndarray, int]:

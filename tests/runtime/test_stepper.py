@@ -201,3 +201,18 @@ def test_fast_path_matches_interpreter(tmp_path):
     assert set(slow.kernel_paths.values()) == {"interpreter"}
     x0 = RNG.normal(size=(4, 3))
     assert np.allclose(fast.advance(x0, 5.0), slow.advance(x0, 5.0), rtol=1e-12, atol=1e-12)
+
+
+def test_forecast_with_vector_field_and_hybrid(tmp_path):
+    system = oscillator_matrix(1.5, 0.05)
+    out = linear_bundle(tmp_path / "osc.bundle", system, base_step=0.1, strides=(1, 10, 100))
+    stepper = load(out, dtype="float64")
+    x0 = np.array([[0.5, 0.2], [-0.1, 0.4]])
+    times = np.concatenate([np.arange(0, 30, 0.37), np.arange(0, 30, 0.5)])
+    field = lambda x: x @ system.T  # noqa: E731
+    for options in ({}, {"hybrid_below": 10}, {"hybrid_below": 100}):
+        result, info = stepper.forecast_with_info(x0, times, vector_field=field, **options)
+        assert info.integrator_evaluations > 0
+        for t, states in zip(times, result, strict=True):
+            # Reference: scipy.linalg.expm; tolerance from the integrator's rtol 1e-8.
+            assert np.max(np.abs(states - x0 @ expm(system * t).T)) < 1e-7
