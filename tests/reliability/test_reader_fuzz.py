@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import importlib.util
 import time
+import tracemalloc
 from collections import Counter
 from datetime import timedelta
 from pathlib import Path
@@ -90,7 +91,11 @@ def test_mutated_exports_are_refused_or_run(seeds, reliability):
         slowest[0] = max(slowest[0], time.perf_counter() - started)
         outcomes[outcome] += 1
 
-    run()
+    tracemalloc.start()  # once for the run rather than once per case (see traced_read)
+    try:
+        run()
+    finally:
+        tracemalloc.stop()
     total = sum(outcomes.values())
     assert total >= EXAMPLES
     refused = outcomes["read-refused"] + outcomes["load-refused"]

@@ -46,7 +46,7 @@ def test_render_writes_summary_table_and_method():
     assert text.startswith("# Reliability\n")
     assert "1 issue these tests found are listed under Known issues" in text
     assert "## Known issues" in text and "- `test_thing`: the thing is not refused yet." in text
-    assert "**Summary.** 1,234 hostile or concurrent cases in 1 kinds (Bundles)" in text
+    assert "**Summary.** 1,234 hostile or concurrent cases of 1 kinds, in 1 areas (Bundles)" in text
     assert "x refused." in text
     assert "| Bundles: paths | a \\| b | 1,234 | all refused |" in text
     assert "## How the figures are made" in text and "## Longer fuzzing" in text
