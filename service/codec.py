@@ -119,7 +119,9 @@ def _decode_msgpack(body: bytes) -> Any:
         raise DecodeError(400, "the MessagePack body has trailing bytes after the first "
                                "object; send exactly one object.") from error
     except (msgpack.UnpackException, ValueError, TypeError, RecursionError) as error:
-        raise DecodeError(400, f"the body is not valid MessagePack: {error}.") from error
+        # Some decoder errors carry no text (e.g. the C decoder's own nesting limit).
+        detail = str(error) or f"{type(error).__name__} (nested too deeply or malformed)"
+        raise DecodeError(400, f"the body is not valid MessagePack: {detail}.") from error
 
 
 def check_structure(document: Any, *, max_depth: int) -> None:
