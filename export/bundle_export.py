@@ -23,7 +23,7 @@ from tqdm.auto import tqdm
 
 import stridecast
 from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
-from stridecast.runtime.bundle import REPORT_NAME
+from stridecast.runtime.bundle import REPORT_NAME, move_into_place
 from stridecast.runtime.errors import BundleError
 
 from . import plots
@@ -173,7 +173,7 @@ def export_bundle(
         (staged / REPORT_NAME).write_text(json.dumps(report, indent=2, allow_nan=False) + "\n",
                                           encoding="utf-8")
         _check_target(target, overwrite)
-        _move_into_place(staged, target)
+        move_into_place(staged, target)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     logger.info("wrote bundle %s (strides %s)", target, list(spec.strides))
@@ -271,22 +271,6 @@ def _check_target(target: Path, overwrite: bool) -> None:
             raise BundleError(
                 f"{str(target)!r} exists and is not a directory; refusing to replace it."
             )
-
-
-def _move_into_place(staged: Path, target: Path) -> None:
-    """Rename the verified bundle into place; an existing one is moved aside, then removed."""
-    if not target.exists():
-        os.rename(staged, target)
-        return
-    aside = Path(tempfile.mkdtemp(prefix=f".{target.name}.old-", dir=target.parent))
-    os.rmdir(aside)
-    os.rename(target, aside)
-    try:
-        os.rename(staged, target)
-    except BaseException:
-        os.rename(aside, target)
-        raise
-    shutil.rmtree(aside, ignore_errors=True)
 
 
 def _default_name(target: Path) -> str:

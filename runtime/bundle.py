@@ -185,14 +185,16 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
             (staging / REPORT_NAME).write_text(
                 json.dumps(report, indent=2, allow_nan=False) + "\n", encoding="utf-8")
         (staging / MANIFEST_NAME).write_text(text + "\n", encoding="utf-8")
-        _move_into_place(staging, target)
+        move_into_place(staging, target)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
     return target
 
 
-def _move_into_place(staging: Path, target: Path) -> None:
+def move_into_place(staging: Path, target: Path) -> None:
+    """Rename a finished bundle folder to `target`; an existing one is moved aside first and
+    put back if the rename fails, then removed."""
     import shutil
     import tempfile
 

@@ -151,7 +151,7 @@ def test_interrupted_write_leaves_nothing(tmp_path, monkeypatch, bundle):
     def fail(*args, **kwargs):
         raise OSError("disk full (simulated)")
 
-    monkeypatch.setattr(bundle_module, "_move_into_place", fail)
+    monkeypatch.setattr(bundle_module, "move_into_place", fail)
     with pytest.raises(OSError, match="simulated"):
         linear_bundle(tmp_path / "new.bundle", oscillator_matrix(), base_step=0.1, strides=(1,))
     with pytest.raises(OSError, match="simulated"):
