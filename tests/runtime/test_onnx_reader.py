@@ -24,25 +24,9 @@ from stridecast.runtime.errors import ModelFormatError
 from stridecast.runtime.limits import Limits
 from stridecast.runtime.onnx_model import Attribute, Model
 from stridecast.runtime.onnx_reader import load_model_file, read_model
+from tests.runtime.test_protobuf import length_delimited, tag, varint
 
 # --- crafting bytes (protobuf encoding guide) ---------------------------------------------
-
-def varint(value: int) -> bytes:
-    value &= (1 << 64) - 1
-    out = bytearray()
-    while True:
-        low, value = value & 0x7F, value >> 7
-        out.append(low | (0x80 if value else 0))
-        if not value:
-            return bytes(out)
-
-
-def tag(number: int, wire: int) -> bytes:
-    return varint(number << 3 | wire)
-
-
-def length_delimited(number: int, payload: bytes) -> bytes:
-    return tag(number, 2) + varint(len(payload)) + payload
 
 
 def model_bytes(graph_extra: bytes = b"", *, nodes=(), initializers=()) -> bytes:
