@@ -38,23 +38,29 @@ def walk_to_reachable(planner: StridePlanner, targets: np.ndarray, direction: in
     return values
 
 
-def interpolation_rows(planner: StridePlanner, positions: np.ndarray, nearest: np.ndarray,
-                       off: np.ndarray, below: np.ndarray, above: np.ndarray
-                       ) -> tuple[np.ndarray, np.ndarray]:
-    """Four anchors and cubic Lagrange weights per time (exact rows: one anchor, weight 1).
+def interpolation_anchors(planner: StridePlanner, below: np.ndarray, above: np.ndarray
+                          ) -> np.ndarray:
+    """The four grid anchors, ascending, of times between reachable `below` and `above`.
 
-    Off-grid rows use the two reachable grid times below and the two above (three above when
-    only time 0 lies below).
+    The two reachable grid times below and the two above (three above when only time 0 lies
+    below); shape (len(below), 4).
     """
-    anchors = np.repeat(nearest[:, None], 4, axis=1)
-    weights = np.zeros((positions.size, 4))
-    weights[:, 0] = 1.0
     second_below = walk_to_reachable(planner, np.maximum(below - 1, 0), -1)
     second_above = walk_to_reachable(planner, above + 1, +1)
     third_above = walk_to_reachable(planner, second_above + 1, +1)
-    chosen = np.where((below > 0)[:, None],
-                      np.column_stack([second_below, below, above, second_above]),
-                      np.column_stack([below, above, second_above, third_above]))
+    return np.where((below > 0)[:, None],
+                    np.column_stack([second_below, below, above, second_above]),
+                    np.column_stack([below, above, second_above, third_above]))
+
+
+def interpolation_rows(planner: StridePlanner, positions: np.ndarray, nearest: np.ndarray,
+                       off: np.ndarray, below: np.ndarray, above: np.ndarray
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Four anchors and cubic Lagrange weights per time (exact rows: one anchor, weight 1)."""
+    anchors = np.repeat(nearest[:, None], 4, axis=1)
+    weights = np.zeros((positions.size, 4))
+    weights[:, 0] = 1.0
+    chosen = interpolation_anchors(planner, below, above)
     anchors[off] = chosen
     # Lagrange basis on offsets from the lower anchor (small numbers: accurate at large t).
     nodes = (chosen - below[:, None]).astype(np.float64)

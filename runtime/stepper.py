@@ -13,7 +13,12 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from .anchors import grid_positions, interpolation_rows, walk_to_reachable
+from .anchors import (
+    grid_positions,
+    interpolation_anchors,
+    interpolation_rows,
+    walk_to_reachable,
+)
 from .errors import NonFiniteError, StateError, TimeError
 from .integrate import integrate
 from .interpolate import interpolate_states
@@ -345,16 +350,9 @@ class Stepper:
                            remainder=t - below * self.base_step)
 
     def _interpolation_anchors(self, below: int, above: int) -> tuple[int, ...]:
-        planner = self._planner
-        lower = [below]
-        if below > 0:
-            second = planner.floor_reachable(below - 1)
-            if second is not None:
-                lower.append(second)
-        upper = [above]
-        while len(lower) + len(upper) < 4:
-            upper.append(planner.nearest_reachable(upper[-1] + 1)[1])
-        return tuple(sorted(lower + upper))
+        # The same choice `forecast` makes for many times at once.
+        chosen = interpolation_anchors(self._planner, np.array([below]), np.array([above]))
+        return tuple(int(anchor) for anchor in chosen[0])
 
     def _resolve_hybrid(self, t: float, position: float, grid: int | None,
                         vector_field: VectorField | None, hybrid_below: int) -> _Resolution:
