@@ -14,7 +14,6 @@ from torch import nn
 from stridecast.export.cli_support import (
     export_from_files,
     parse_level_option,
-    parse_strides,
     read_normalization,
     train_from_file,
 )
@@ -50,12 +49,6 @@ def test_parse_level_option():
                           ("0=a.pt2", r"stride 0 must be a positive")]:
         with pytest.raises(BundleError, match=message):
             parse_level_option(text)
-
-
-def test_parse_strides():
-    assert parse_strides("1, 4,16,64") == (1, 4, 16, 64)
-    with pytest.raises(BundleError, match=r"`--strides` is '1,a'; expected comma-separated"):
-        parse_strides("1,a")
 
 
 def test_export_from_files(tmp_path, level_files):

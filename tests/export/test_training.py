@@ -100,7 +100,8 @@ def test_without_validation(data):
     ({"trajectories": np.zeros(5)}, StateError,
      r"`trajectories` has shape \(5,\); expected \(N, T, d\)"),
     ({"trajectories": np.zeros((2, 10, 2))}, StateError,
-     r"have 10 samples per trajectory; the largest stride 4 with rollout 3 needs at least 13\."),
+     r"have at most 10 samples per trajectory; the largest stride 4 with rollout 3 needs at "
+     r"least 13\.$"),
     ({"strides": []}, BundleError, r"`strides` is \[\]; expected a non-empty list"),
     ({"strides": [1, 1]}, BundleError, r"`strides` repeats a stride"),
     ({"strides": [0, 1]}, BundleError, r"stride 0 must be a positive number of base steps\."),
