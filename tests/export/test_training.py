@@ -9,6 +9,8 @@ import torch
 from scipy.linalg import expm
 
 from stridecast.export import TrainingError, export_bundle, train_levels
+from stridecast.export.training import window_loss
+from stridecast.export.windows import Ragged, gather_windows, window_starts
 from stridecast.runtime import BundleError, StateError, load
 from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
 
@@ -118,6 +120,19 @@ def test_without_validation(data):
     ({"seed": -1}, TrainingError, r"`seed` is -1; expected a non-negative integer\."),
     ({"threads": 0}, TrainingError, r"`threads` is 0; expected a positive integer\."),
     ({"state_names": ["a"]}, BundleError, r"`state_names` is \['a'\]; expected a list of 2"),
+    ({"patience": 0}, TrainingError, r"`patience` is 0; expected a positive integer\."),
+    ({"tolerance": -0.1}, TrainingError, r"`tolerance` is -0\.1; expected a number > 0\."),
+    ({"horizon": float("inf")}, TrainingError, r"`horizon` is inf; expected a number > 0\."),
+    ({"keep_all_levels": "yes"}, TrainingError,
+     r"`keep_all_levels` is 'yes'; expected True or False\."),
+    ({"trajectories": [np.zeros((20, 2)), np.zeros((20, 3))]}, StateError,
+     r"`trajectories` mixes state sizes: trajectory 0 has 2 components, trajectory 1 has 3;"),
+    # (d, T) = (2, 400) passed as (T, d): too short, and more components than samples.
+    ({"trajectories": np.zeros((3, 2, 400))}, StateError,
+     r"have at most 2 samples per trajectory; .* needs at least 13\. The states have 400 "
+     r"components but only 2 samples: the data look like \(d, T\); transpose them"),
+    ({"trajectories": np.zeros((2, 400)), "state_names": ["a", "b"]}, StateError,
+     r"has shape \(2, 400\) per trajectory but 2 state names, matching its first axis"),
 ])
 def test_refuses_bad_arguments(data, change, error, message):
     arguments = {"trajectories": data, "base_step": BASE_STEP, "strides": [1, 4],
@@ -125,6 +140,50 @@ def test_refuses_bad_arguments(data, change, error, message):
     arguments.update(change)
     with pytest.raises(error, match=message):
         train_levels(arguments.pop("trajectories"), **arguments)
+
+
+def test_ragged_trajectories(data):
+    # Lengths 40, 25, 13, 9 (the last too short for stride 4 with rollout 2: it trains only
+    # the finer stride), plus whole equal-length ones.
+    ragged = [data[0], data[1, :25], data[2, :13], data[3, :9], *data[4:]]
+    trained = train_levels(ragged, base_step=BASE_STEP, strides=(1, 4), seed=2, **TINY)
+    held_out = trained.validation["split"]["held_out_trajectories"]
+    train = Ragged.from_arrays([ragged[i] for i in range(len(ragged)) if i not in held_out])
+    # The training windows are exactly those that fit inside each training trajectory.
+    expected = {stride: int(np.maximum(train.lengths - 2 * stride, 0).sum()) for stride in (1, 4)}
+    assert {stride: trained.history[stride]["windows"] for stride in (1, 4)} == expected
+    np.testing.assert_allclose(trained.mean, train.values.mean(axis=0))
+
+
+def test_float32_base_step_is_kept_as_intended(data):
+    trained = train_levels(data, base_step=np.float32(0.1), strides=(1,), **TINY)
+    # float32(0.1) = 0.10000000149...; the shortest decimal rounding to it is 0.1.
+    assert trained.base_step == 0.1
+
+
+def test_early_stopping_restores_the_best_epoch(data):
+    # A high learning rate makes the held-out loss stall; patience 3 stops the level.
+    trained = train_levels(data, base_step=BASE_STEP, strides=(1,), hidden=(8,), epochs=30,
+                           rollout=2, learning_rate=0.1, patience=3, batch_size=64,
+                           validation_fraction=0.25, progress=False)
+    entry = trained.history[1]
+    losses = entry["validation_loss"]
+    assert entry["stop_reason"] == "patience" and entry["epochs_run"] < 30
+    assert len(losses) == len(entry["train_loss"]) == entry["epochs_run"]
+    assert entry["best_epoch"] == int(np.argmin(losses)) + 1 < entry["epochs_run"]
+    assert entry["epochs_run"] - entry["best_epoch"] == 3
+    assert entry["best_validation_loss"] == min(losses)
+    # The restored weights give the recorded best loss: recompute it from the returned
+    # network on every held-out window (all of them fit under the evaluation cap).
+    held_out = trained.validation["split"]["held_out_trajectories"]
+    normalised = Ragged.from_arrays(
+        [((data[i] - trained.mean) / trained.scale).astype(np.float32) for i in held_out])
+    starts = torch.from_numpy(window_starts(normalised, 1, 2))
+    windows = gather_windows(torch.from_numpy(normalised.values), starts, 1, 2)
+    with torch.no_grad():
+        recomputed = float(window_loss(trained.levels[1], windows)[0])
+    assert recomputed == pytest.approx(entry["best_validation_loss"], rel=1e-5)
+    assert recomputed < losses[-1]
 
 
 def test_refuses_non_finite_data(data):
