@@ -37,12 +37,18 @@ class DenseRun:
     jump, reference_jump : ndarray, shape (M,)
         Largest jump, over the start states, between the forecasts at steps − finest and steps
         (RMS over components), and the same for the held-out truth on the same states.
+    excess : ndarray, shape (M,)
+        Largest, over the start states, of the part of the forecast's jump the truth does not
+        make: |Δforecast − Δtruth| = |error(steps) − error(steps − finest)|, RMS over
+        components. Where the plans of neighbouring times differ, this is the mismatch of the
+        two plans.
     """
 
     steps: np.ndarray
     errors: np.ndarray
     jump: np.ndarray
     reference_jump: np.ndarray
+    excess: np.ndarray
 
 
 def dense_grid(longest: int, finest: int) -> np.ndarray:
@@ -60,7 +66,7 @@ def dense_run(levels: Levels, held_out: HeldOut, steps: np.ndarray) -> DenseRun:
     """Forecast the held-out start states at `steps` and one finest stride before each."""
     finest = min(levels)
     targets = [int(n) for pair in zip(steps - finest, steps, strict=True) for n in pair]
-    errors, jump, reference = [], [], []
+    errors, jump, reference, excess = [], [], [], []
     previous = None
     for chunk, states in forecasts(levels, held_out.initial, targets):
         for steps_here, predicted in zip(chunk, states, strict=True):
@@ -72,9 +78,13 @@ def dense_run(levels: Levels, held_out: HeldOut, steps: np.ndarray) -> DenseRun:
             errors.append(normalised_rms(predicted, truth, valid))
             jump.append(_largest_jump(predicted, previous[1], valid))
             reference.append(_largest_jump(truth, earlier_truth, valid))
+            with np.errstate(over="ignore", invalid="ignore"):
+                excess.append(_largest_jump(predicted - truth, previous[1] - earlier_truth,
+                                            valid))
             previous = None
     return DenseRun(steps=np.asarray(steps, dtype=np.int64), errors=np.asarray(errors),
-                    jump=np.asarray(jump), reference_jump=np.asarray(reference))
+                    jump=np.asarray(jump), reference_jump=np.asarray(reference),
+                    excess=np.asarray(excess))
 
 
 def _largest_jump(later: np.ndarray, earlier: np.ndarray, valid: np.ndarray) -> float:
@@ -145,7 +155,8 @@ def roughness(run: DenseRun, horizon_steps: float) -> dict[str, Any]:
             return None
         jumps, reference = jumps[known], reference[known]
         steps = run.steps[mask][known]
-        worst = int(np.argmax(np.where(np.isfinite(jumps), jumps, np.inf)))
+        excess = run.excess[mask][known]
+        worst = int(np.argmax(np.where(np.isnan(jumps), np.inf, jumps)))
         largest, reference_largest = float(jumps[worst]), float(reference.max())
         return {
             "largest_jump": json_number(largest),
@@ -153,6 +164,8 @@ def roughness(run: DenseRun, horizon_steps: float) -> dict[str, Any]:
             "reference_largest_jump": json_number(reference_largest),
             "ratio": json_number(largest / reference_largest) if reference_largest > 0
             else None,
+            "largest_excess": json_number(float(np.max(np.where(np.isnan(excess), np.inf,
+                                                                excess)))),
             "pairs": int(known.sum()),
         }
 
