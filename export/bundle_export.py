@@ -210,6 +210,9 @@ def export_bundle(
         verification = verify_levels(stepper, prepared, exported, spec, sample,
                                      tolerance or Tolerance())
         report = _report(staged, spec, verification, validation, trained)
+        if samples is not None:
+            report["envelope"] = {"samples": len(samples[0]), "radius": samples[1],
+                                  "file": SAMPLES_FILE, "units": "normalised"}
         (staged / REPORT_NAME).write_text(json.dumps(report, indent=2, allow_nan=False) + "\n",
                                           encoding="utf-8")
         _check_target(target, overwrite)
