@@ -229,3 +229,29 @@ def build_spec(*, strides: Sequence[int], state_dim: int, base_step: Any, mean: 
         state_units=state_units, time_unit=time_unit, name=name, description=description,
         envelope_min=lower, envelope_max=upper, validated_horizon=horizon,
     )
+
+
+def check_envelope_samples(samples: Any, dim: int) -> np.ndarray:
+    """Physical states (M, d) for the data envelope: finite real numbers, M ≥ 1."""
+    try:
+        array = np.asarray(samples, dtype=np.float64)
+    except (TypeError, ValueError) as error:
+        raise BundleError(
+            f"`envelope_samples` could not be read as numbers: {error}; expected an array "
+            f"(M, {dim})."
+        ) from error
+    if array.ndim != 2 or array.shape[0] == 0 or array.shape[1] != dim:
+        raise BundleError(
+            f"`envelope_samples` has shape {array.shape}; expected (M, {dim}) with M ≥ 1."
+        )
+    if not np.isfinite(array).all():
+        raise BundleError("`envelope_samples` holds NaN or infinity; expected finite states.")
+    return array
+
+
+def check_radius(radius: Any) -> float:
+    """A positive finite envelope radius (normalised units)."""
+    value = float(radius) if isinstance(radius, int | float) else math.nan
+    if isinstance(radius, bool) or not math.isfinite(value) or value <= 0:
+        raise BundleError(f"`envelope_radius` is {radius!r}; expected a finite number > 0.")
+    return value

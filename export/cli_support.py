@@ -180,33 +180,27 @@ def _reconcile(given: Any, from_data: Any, key: str, data_path: Any, *,
 
 def training_summary(trained: TrainedLevels, *, time_unit: str = "") -> list[str]:
     """Lines `stridecast train` prints at the end: levels kept and why, the validated horizon
-    at the tolerance, and hierarchy against finest-only at the horizon."""
-    validation = trained.validation or {}
+    at the tolerance, and hierarchy against finest-only at the horizon.
+
+    Reads `trained.validation["summary"]` (written by `held_out.validate`).
+    """
     unit = f" {time_unit}" if time_unit else ""
+    trained_strides = ", ".join(map(str, sorted(trained.history)))
+    summary = (trained.validation or {}).get("summary")
     kept = ", ".join(map(str, trained.strides))
-    lines = [f"levels kept: {kept} (of {', '.join(map(str, sorted(trained.history)))} trained)"]
-    if not validation:
-        lines.append("no held-out data (validation fraction 0): nothing validated, levels kept "
-                     "as trained")
-        return lines
-    selection = validation.get("selection") or {}
-    for decision in selection.get("decisions", []):
-        verdict = "kept" if decision["kept"] else "dropped"
-        lines.append(f"  stride {decision['stride']} {verdict}: mean held-out error "
-                     f"{_figure(decision['mean_rmse_with'])} with it, "
-                     f"{_figure(decision['mean_rmse_without'])} without")
-    if not selection:
-        lines.append("  every trained level kept (no selection)")
-    horizon = validation.get("validated_horizon")
-    lines.append("validated horizon: " + ("none" if horizon is None else f"{horizon:g}{unit}"))
-    rows = [row for row in validation.get("horizons", []) if horizon is not None
-            and row["time"] <= horizon] or validation.get("horizons", [])[:1]
-    if rows:
-        row = rows[-1]
-        lines.append(f"at {row['time']:g}{unit}: hierarchy error "
-                     f"{_figure(row['hierarchical_rmse'])} ({row['evaluations']} network calls), "
-                     f"finest-only {_figure(row['finest_only_rmse'])} "
-                     f"({row['finest_only_evaluations']} calls)")
+    if not summary:
+        return [f"levels kept: {kept} (all trained; no held-out data, so no selection and no "
+                "validated horizon)"]
+    lines = [f"levels kept: {kept} of {trained_strides}: {summary['why']}"]
+    horizon = summary["validated_horizon"]
+    tolerance = f"normalised RMS error ≤ {summary['tolerance']:g}"
+    lines.append("validated horizon: " + (f"none ({tolerance} fails at the first check)"
+                                          if not horizon else f"{horizon:g}{unit} ({tolerance})"))
+    at = summary.get("at_horizon")
+    if at:
+        lines.append(f"at {at['time']:g}{unit} (the horizon levels were chosen for): hierarchy "
+                     f"error {_figure(at['hierarchical'])}, finest-only "
+                     f"{_figure(at['finest_only'])}")
     return lines
 
 

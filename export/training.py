@@ -25,10 +25,11 @@ from tqdm.auto import tqdm
 
 from stridecast.runtime.errors import BundleError
 
-from . import evaluation
 from .arguments import check_base_step, check_stride, check_strings
 from .data import check_length, check_trajectories
+from .envelope import data_envelope
 from .errors import TrainingError
+from .held_out import Validation, validate
 from .networks import ACTIVATIONS, increment_mlp, parameter_count
 from .trained import TrainedLevels
 from .windows import (
@@ -60,7 +61,6 @@ class TrainingSettings:
     validation_fraction: float
     max_windows_per_epoch: int | None
     seed: int
-    select_levels: bool
     patience: int | None
     tolerance: float
     horizon: float | None
@@ -81,15 +81,14 @@ def train_levels(
     seed: int = 0,
     progress: bool = True,
     learning_rate: float = 1e-3,
-    select_levels: bool = False,
+    tolerance: float = 0.1,
+    horizon: float | None = None,
+    keep_all_levels: bool = False,
     max_windows_per_epoch: int | None = 65536,
     threads: int | None = 1,
     state_names: Sequence[str] | None = None,
     state_units: Sequence[str] | None = None,
     patience: int | None = 10,
-    tolerance: float = 0.1,
-    horizon: float | None = None,
-    keep_all_levels: bool = False,
 ) -> TrainedLevels:
     """Train one network per stride on trajectories sampled every `base_step`.
 
@@ -116,8 +115,14 @@ def train_levels(
         machine and thread count. The global torch RNG is left as it was.
     progress : bool
         Show a progress bar on stderr.
-    select_levels : bool
-        Drop coarse levels whose inclusion worsens the held-out hierarchical error.
+    tolerance : float
+        Held-out normalised RMS error (per component over its training standard deviation,
+        RMS over components and start states) that the validated horizon keeps to.
+    horizon : float or None
+        Longest forecast horizon (time units) level selection scores; None: the held-out span.
+    keep_all_levels : bool
+        Deploy every trained level instead of the subset (always with the finest) that
+        minimises the held-out error up to `horizon` (docs/export.md, "Level selection").
     max_windows_per_epoch : int or None
         Cap on the windows one epoch visits (a fresh random subset each epoch).
     threads : int or None
@@ -131,14 +136,6 @@ def train_levels(
         Stop a level when its held-out validation loss has not improved for this many epochs.
         Whenever there is a validation loss, the weights of the best epoch are restored at the
         end (`history[stride]["best_epoch"]`, `"stop_reason"`). None never stops early.
-    tolerance : float
-        Normalised RMS error (per component over its training standard deviation) up to which
-        a horizon counts as validated.
-    horizon : float or None
-        Longest forecast time (time units) level selection optimises for; None: the
-        held-out length.
-    keep_all_levels : bool
-        Keep every trained level instead of selecting a subset on held-out data.
 
     Returns
     -------
@@ -151,11 +148,12 @@ def train_levels(
                                epochs=epochs, batch_size=batch_size, learning_rate=learning_rate,
                                validation_fraction=validation_fraction,
                                max_windows_per_epoch=max_windows_per_epoch, seed=seed,
-                               select_levels=select_levels, patience=patience,
+                               patience=patience,
                                tolerance=tolerance, horizon=horizon,
                                keep_all_levels=keep_all_levels)
     base_step = check_base_step(base_step)
     strides = _check_strides(strides)
+    _check_horizon(settings.horizon, base_step, strides[0])
     dim = data.dim
     names = None if state_names is None else check_strings(state_names, "state_names", dim,
                                                            distinct=True)
@@ -174,15 +172,19 @@ def train_levels(
     held_out = None if split.held_out is None else split.held_out.map(normalised)
 
     levels, history = {}, {}
-    validation, example = None, None
+    validation, curve, example = None, None, None
     with _torch_threads(threads):
         for stride in strides:
             levels[stride], history[stride] = _train_level(stride, train, held_out, settings,
                                                            progress=progress)
         if held_out is not None:
-            validation, example = _validate(levels, held_out.to_list(), settings, base_step,
-                                            mean, scale, split.description)
-            levels = {stride: levels[stride] for stride in validation["strides"]}
+            # Evaluation takes a list of (T_i, d) tensors: ragged held-out data fit as they are.
+            checked = _validate(levels, held_out.to_list(), settings, base_step, mean, scale)
+            validation = {**checked.figures, "split": split.description}
+            curve, example = checked.curve, checked.example
+            levels = {stride: levels[stride] for stride in checked.strides}
+    samples, radius = data_envelope(
+        _arrays(train), None if held_out is None else _arrays(held_out))
     return TrainedLevels(
         levels=levels, mean=tuple(map(float, mean)), scale=tuple(map(float, scale)),
         base_step=base_step, update="increment", history=history, validation=validation,
@@ -191,31 +193,23 @@ def train_levels(
         state_names=names, state_units=units,
         settings={**asdict(settings), "hidden": list(settings.hidden),
                   "strides": list(strides), "base_step": base_step, "threads": threads},
-        forecast_example=example,
+        forecast_example=example, validation_curve=curve, envelope_samples=samples,
+        envelope_radius=radius,
     )
 
 
-def _validate(levels: dict[int, nn.Module], trajectories: list[torch.Tensor],
-              settings: TrainingSettings, base_step: float, mean: np.ndarray, scale: np.ndarray,
-              split: dict[str, Any]) -> tuple[dict[str, Any], Any]:
-    # The evaluation of this version takes one (N, T, d) tensor: held-out trajectories are
-    # cut to the shortest one. (Its ragged successor takes the list as it is.)
-    shortest = min(len(trajectory) for trajectory in trajectories)
-    held_out = torch.stack([trajectory[:shortest] for trajectory in trajectories])
-    selection = None
-    if settings.select_levels:
-        kept, decisions = evaluation.select_levels(levels, held_out)
-        selection = {"kept": list(kept), "decisions": decisions}
-        for decision in decisions:
-            logger.info("level selection: stride %d %s (mean held-out RMSE %s with, %s without)",
-                        decision["stride"], "kept" if decision["kept"] else "dropped",
-                        decision["mean_rmse_with"], decision["mean_rmse_without"])
-        levels = {stride: levels[stride] for stride in kept}
-    figures = evaluation.held_out_figures(levels, held_out, base_step=base_step, scale=scale)
-    figures.update({"strides": sorted(levels), "split": split, "selection": selection})
-    example = evaluation.forecast_example(levels, held_out[0], base_step=base_step, mean=mean,
-                                          scale=scale)
-    return figures, example
+def _validate(levels: dict[int, nn.Module], held_out: list[torch.Tensor],
+              settings: TrainingSettings, base_step: float, mean: np.ndarray,
+              scale: np.ndarray) -> Validation:
+    """Level selection and the validity figures on normalised held-out trajectories."""
+    checked = validate(levels, held_out, base_step=base_step, mean=mean, scale=scale,
+                       tolerance=settings.tolerance, horizon=settings.horizon,
+                       keep_all_levels=settings.keep_all_levels)
+    summary = checked.figures["summary"]
+    logger.info("levels kept: %s (%s); validated horizon %s at tolerance %g",
+                summary["kept"], summary["why"], summary["validated_horizon"],
+                settings.tolerance)
+    return checked
 
 
 def _train_level(stride: int, train: Ragged, held_out: Ragged | None,
@@ -292,6 +286,11 @@ def _train_level(stride: int, train: Ragged, held_out: Ragged | None,
                 "%.3g (train)", stride, len(train_losses), stop_reason, entry["best_epoch"],
                 entry["best_validation_loss"], entry["train_one_step_mse"])
     return model, entry
+
+
+def _arrays(data: Ragged) -> list[np.ndarray]:
+    """Each trajectory of a Ragged of tensors as a NumPy array (T_i, d) (no copy)."""
+    return [trajectory.numpy() for trajectory in data.to_list()]
 
 
 class _BestEpoch:
@@ -377,13 +376,6 @@ def _positive_int(value: Any, where: str) -> int:
     return number
 
 
-def _positive_number(value: Any, where: str) -> float:
-    number = float(value) if isinstance(value, int | float) else math.nan
-    if isinstance(value, bool) or not math.isfinite(number) or number <= 0:
-        raise TrainingError(f"`{where}` is {value!r}; expected a number > 0.")
-    return number
-
-
 def _flag(value: Any, where: str) -> bool:
     if not isinstance(value, bool | np.bool_):
         raise TrainingError(f"`{where}` is {value!r}; expected True or False.")
@@ -391,8 +383,8 @@ def _flag(value: Any, where: str) -> bool:
 
 
 def _check_settings(*, hidden, activation, rollout, epochs, batch_size, learning_rate,
-                    validation_fraction, max_windows_per_epoch, seed, select_levels, patience,
-                    tolerance, horizon, keep_all_levels) -> TrainingSettings:
+                    validation_fraction, max_windows_per_epoch, seed, patience, tolerance,
+                    horizon, keep_all_levels) -> TrainingSettings:
     if isinstance(hidden, int) or not isinstance(hidden, Sequence) or not hidden:
         raise TrainingError(f"`hidden` is {hidden!r}; expected a non-empty list of widths.")
     try:
@@ -421,9 +413,23 @@ def _check_settings(*, hidden, activation, rollout, epochs, batch_size, learning
         validation_fraction=fraction,
         max_windows_per_epoch=None if max_windows_per_epoch is None
         else _positive_int(max_windows_per_epoch, "max_windows_per_epoch"),
-        seed=seed, select_levels=_flag(select_levels, "select_levels"),
-        patience=None if patience is None else _positive_int(patience, "patience"),
+        seed=seed, patience=None if patience is None else _positive_int(patience, "patience"),
         tolerance=_positive_number(tolerance, "tolerance"),
         horizon=None if horizon is None else _positive_number(horizon, "horizon"),
         keep_all_levels=_flag(keep_all_levels, "keep_all_levels"),
     )
+
+
+def _positive_number(value: Any, where: str) -> float:
+    number = float(value) if isinstance(value, int | float) else math.nan
+    if isinstance(value, bool) or not math.isfinite(number) or number <= 0:
+        raise TrainingError(f"`{where}` is {value!r}; expected a finite number > 0.")
+    return number
+
+
+def _check_horizon(horizon: float | None, base_step: float, finest: int) -> None:
+    if horizon is not None and horizon < finest * base_step * (1 - 1e-9):
+        raise TrainingError(
+            f"`horizon` is {horizon!r}; expected at least the finest stride's time, "
+            f"{finest * base_step!r}."
+        )

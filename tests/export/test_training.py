@@ -47,7 +47,7 @@ def test_level_does_not_depend_on_other_strides(data):
 
 
 def test_records(data):
-    trained = train_levels(data, base_step=BASE_STEP, strides=(1, 2, 4), select_levels=True,
+    trained = train_levels(data, base_step=BASE_STEP, strides=(1, 2, 4), keep_all_levels=True,
                            state_names=["q", "p"], **TINY)
     assert trained.update == "increment" and trained.base_step == BASE_STEP
     assert trained.state_names == ("q", "p")
@@ -64,16 +64,40 @@ def test_records(data):
         assert entry["windows"] == 14 * (40 - 2 * stride)
         assert entry["train_one_step_mse"] > 0
     validation = trained.validation
-    assert [row["stride"] for row in validation["one_step"]] == list(trained.strides)
+    assert validation["strides"] == list(trained.strides) == [1, 2, 4]
+    assert validation["selection"] is None
+    assert [row["stride"] for row in validation["one_step"]] == [1, 2, 4]
     horizons = [row["base_steps"] for row in validation["horizons"]]
     assert horizons == sorted(horizons) and horizons[-1] == 39
-    assert validation["validated_horizon"] == pytest.approx(39 * BASE_STEP)
-    assert trained.validated_horizon == validation["validated_horizon"]
-    decisions = validation["selection"]["decisions"]
-    assert [decision["stride"] for decision in decisions] == [4, 2]
-    assert validation["selection"]["kept"] == list(trained.strides)
-    assert validation["strides"] == list(trained.strides)
+    # The validity contract: the curve's reference is the training split's spread, and the
+    # validated horizon is the first crossing of the tolerance on it.
+    curve = trained.validation_curve
+    assert curve["metric"] == "normalised_rms" and curve["tolerance"] == 0.1
+    np.testing.assert_allclose(curve["reference_std"], train.reshape(-1, 2).std(axis=0))
+    assert curve["times"] == pytest.approx(list(np.arange(1, 40) * BASE_STEP))
+    errors = np.array([np.inf if e is None else e for e in curve["errors"]])
+    within = np.flatnonzero(np.cumprod(errors <= 0.1))
+    expected = 0.0 if len(within) == 0 else curve["times"][within[-1]]
+    assert trained.validated_horizon == validation["validated_horizon"] == expected
+    # Envelope samples: normalised training states (all kept: fewer than 2048).
+    assert trained.envelope_samples.shape == (14 * 40, 2)
+    z = (train.reshape(-1, 2) - trained.mean) / trained.scale
+    np.testing.assert_allclose(np.sort(trained.envelope_samples, axis=0), np.sort(z, axis=0),
+                               atol=1e-6)
+    assert trained.envelope_radius > 0
+
+
+def test_selection_is_the_default(data):
+    trained = train_levels(data, base_step=BASE_STEP, strides=(1, 2, 4), horizon=2.0, **TINY)
+    selection = trained.validation["selection"]
+    assert selection["method"] == "exhaustive" and len(selection["candidates"]) == 4
+    assert selection["kept"] == list(trained.strides) == trained.validation["strides"]
+    assert selection["times"][-1] == pytest.approx(2.0)
+    assert trained.validation["horizon_requested"] == 2.0
     assert set(trained.history) == {1, 2, 4}
+    summary = trained.validation["summary"]
+    assert summary["kept"] == list(trained.strides)
+    assert summary["validated_horizon"] == trained.validated_horizon
 
 
 def test_progress_bar_on_stderr_only(data, capsys):
@@ -114,15 +138,14 @@ def test_without_validation(data):
     ({"epochs": 0}, TrainingError, r"`epochs` is 0; expected a positive integer\."),
     ({"batch_size": 2.5}, TrainingError, r"`batch_size` is 2\.5; expected a positive integer\."),
     ({"rollout": 0}, TrainingError, r"`rollout` is 0; expected a positive integer\."),
-    ({"learning_rate": 0.0}, TrainingError, r"`learning_rate` is 0\.0; expected a number > 0\."),
+    ({"learning_rate": 0.0}, TrainingError,
+     r"`learning_rate` is 0\.0; expected a finite number > 0\."),
     ({"validation_fraction": 1.0}, TrainingError,
      r"`validation_fraction` is 1\.0; expected a number in \[0, 1\)\."),
     ({"seed": -1}, TrainingError, r"`seed` is -1; expected a non-negative integer\."),
     ({"threads": 0}, TrainingError, r"`threads` is 0; expected a positive integer\."),
     ({"state_names": ["a"]}, BundleError, r"`state_names` is \['a'\]; expected a list of 2"),
     ({"patience": 0}, TrainingError, r"`patience` is 0; expected a positive integer\."),
-    ({"tolerance": -0.1}, TrainingError, r"`tolerance` is -0\.1; expected a number > 0\."),
-    ({"horizon": float("inf")}, TrainingError, r"`horizon` is inf; expected a number > 0\."),
     ({"keep_all_levels": "yes"}, TrainingError,
      r"`keep_all_levels` is 'yes'; expected True or False\."),
     ({"trajectories": [np.zeros((20, 2)), np.zeros((20, 3))]}, StateError,
@@ -133,6 +156,11 @@ def test_without_validation(data):
      r"components but only 2 samples: the data look like \(d, T\); transpose them"),
     ({"trajectories": np.zeros((2, 400)), "state_names": ["a", "b"]}, StateError,
      r"has shape \(2, 400\) per trajectory but 2 state names, matching its first axis"),
+    ({"tolerance": 0.0}, TrainingError, r"`tolerance` is 0\.0; expected a finite number > 0\."),
+    ({"horizon": float("inf")}, TrainingError,
+     r"`horizon` is inf; expected a finite number > 0\."),
+    ({"horizon": 0.05}, TrainingError,
+     r"`horizon` is 0\.05; expected at least the finest stride's time, 0\.1\."),
 ])
 def test_refuses_bad_arguments(data, change, error, message):
     arguments = {"trajectories": data, "base_step": BASE_STEP, "strides": [1, 4],
@@ -199,7 +227,8 @@ def test_linear_system_reaches_matrix_exponential(tmp_path):
     trajectories = linear_trajectories(DAMPED_OSCILLATOR, base_step=BASE_STEP, count=64,
                                        steps=60, seed=3)
     trained = train_levels(trajectories, base_step=BASE_STEP, strides=(1, 4), hidden=(32, 32),
-                           epochs=30, learning_rate=1e-2, rollout=2, progress=False)
+                           epochs=30, learning_rate=1e-2, rollout=2, progress=False,
+                           keep_all_levels=True)  # every level is checked against expm below
     stepper = load(export_bundle(trained, tmp_path / "linear.bundle", exporter="legacy"))
     fresh = linear_trajectories(DAMPED_OSCILLATOR, base_step=BASE_STEP, count=16, steps=60,
                                 seed=4)
