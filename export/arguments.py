@@ -18,6 +18,9 @@ from stridecast.runtime.errors import BundleError
 from stridecast.runtime.manifest import UPDATE_FORMS
 
 EXPORTERS = ("auto", "dynamo", "legacy")
+# Two base steps are the same when they differ by at most this fraction: far above float32
+# rounding (2^-24 ≈ 6e-8 relative) and far below any deliberate change of sampling interval.
+BASE_STEP_RELATIVE_TOLERANCE = 1e-6
 
 
 @dataclass(frozen=True)
@@ -80,12 +83,34 @@ def check_stride(value: Any) -> int:
 
 
 def check_base_step(value: Any) -> float:
+    """`base_step` as a float > 0; a float32 (or float16) value becomes the decimal it stands
+    for (see `intended_value`), so 0.01 read from a float32 file stays 0.01."""
+    if isinstance(value, np.ndarray) and value.shape in ((), (1,)):
+        value = value.reshape(())[()]
     if isinstance(value, bool) or not isinstance(value, int | float | np.floating | np.integer):
         raise BundleError(f"`base_step` is {value!r}; expected a finite number > 0.")
-    base_step = float(value)
+    base_step = intended_value(value)
     if not math.isfinite(base_step) or base_step <= 0:
         raise BundleError(f"`base_step` is {value!r}; expected a finite number > 0.")
     return base_step
+
+
+def intended_value(value: Any) -> float:
+    """The decimal a narrow float stands for: float32 0.009999999776 → 0.01.
+
+    NumPy prints a float32 as the shortest decimal that rounds back to it (the Dragon4 /
+    shortest-round-trip rule), which is the value a person wrote before it was stored; a
+    float64 is kept as it is. Without this, a time of 1.0 would be 100.0000002 base steps and
+    every round time would be off the grid.
+    """
+    if isinstance(value, np.floating) and np.finfo(value.dtype).bits < 64:
+        return float(str(value))
+    return float(value)
+
+
+def same_base_step(first: float, second: float) -> bool:
+    """Whether two base steps agree within `BASE_STEP_RELATIVE_TOLERANCE` of the larger."""
+    return abs(first - second) <= BASE_STEP_RELATIVE_TOLERANCE * max(abs(first), abs(second))
 
 
 def finite_vector(values: Any, where: str, dim: int | None = None) -> tuple[float, ...]:
@@ -204,3 +229,29 @@ def build_spec(*, strides: Sequence[int], state_dim: int, base_step: Any, mean: 
         state_units=state_units, time_unit=time_unit, name=name, description=description,
         envelope_min=lower, envelope_max=upper, validated_horizon=horizon,
     )
+
+
+def check_envelope_samples(samples: Any, dim: int) -> np.ndarray:
+    """Physical states (M, d) for the data envelope: finite real numbers, M ≥ 1."""
+    try:
+        array = np.asarray(samples, dtype=np.float64)
+    except (TypeError, ValueError) as error:
+        raise BundleError(
+            f"`envelope_samples` could not be read as numbers: {error}; expected an array "
+            f"(M, {dim})."
+        ) from error
+    if array.ndim != 2 or array.shape[0] == 0 or array.shape[1] != dim:
+        raise BundleError(
+            f"`envelope_samples` has shape {array.shape}; expected (M, {dim}) with M ≥ 1."
+        )
+    if not np.isfinite(array).all():
+        raise BundleError("`envelope_samples` holds NaN or infinity; expected finite states.")
+    return array
+
+
+def check_radius(radius: Any) -> float:
+    """A positive finite envelope radius (normalised units)."""
+    value = float(radius) if isinstance(radius, int | float) else math.nan
+    if isinstance(radius, bool) or not math.isfinite(value) or value <= 0:
+        raise BundleError(f"`envelope_radius` is {radius!r}; expected a finite number > 0.")
+    return value

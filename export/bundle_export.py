@@ -17,17 +17,36 @@ from collections.abc import Iterable, Mapping
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import onnx
 import torch
 from tqdm.auto import tqdm
 
 import stridecast
-from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
+from stridecast.runtime import (
+    SAMPLES_FILE,
+    EnvelopeSamples,
+    LevelEntry,
+    Manifest,
+    ValidationCurve,
+    encode_samples,
+    load,
+    write_bundle,
+)
 from stridecast.runtime.bundle import REPORT_NAME, move_into_place
 from stridecast.runtime.errors import BundleError
 
-from . import plots
-from .arguments import ExportSpec, build_spec, check_exporter, declared_state_dim, level_pairs
+from . import plots, validity
+from .arguments import (
+    ExportSpec,
+    build_spec,
+    check_envelope_samples,
+    check_exporter,
+    check_radius,
+    declared_state_dim,
+    level_pairs,
+)
+from .envelope import data_envelope
 from .onnx_export import (
     EXAMPLE_BATCH,
     ExportedLevel,
@@ -59,6 +78,8 @@ def export_bundle(
     description: str | None = None,
     envelope: Any = None,
     validation: Mapping[str, Any] | None = None,
+    envelope_samples: Any = None,
+    envelope_radius: float | None = None,
     overwrite: bool = False,
     exporter: str = "auto",
     opset: int | None = None,
@@ -92,7 +113,17 @@ def export_bundle(
     envelope : (min, max) or {"min": ..., "max": ...}, optional
         The range the training data covered; verification states are drawn in it.
     validation : dict, optional
-        Held-out figures for report.json; its "validated_horizon" goes into the manifest.
+        Held-out figures for report.json; its "validated_horizon" goes into the manifest
+        (with a `TrainedLevels`, the horizon comes from its held-out error curve instead).
+    envelope_samples : array_like, shape (M, d), optional
+        Physical states the data covered (e.g. the training states). They are normalised,
+        thinned to at most 2,048 by farthest-point sampling, and written to
+        `envelope/samples.npy`; the runtime warns about states far from all of them. Without
+        `envelope`, their per-component range becomes the envelope box. A `TrainedLevels`
+        brings its own.
+    envelope_radius : float, optional
+        "Far" in normalised units z = (x − mean) / scale; by default learned from the samples
+        (docs/export.md, "Envelope").
     overwrite : bool
         Replace an existing bundle (moved aside first, restored on failure).
     exporter : {"auto", "dynamo", "legacy"}
@@ -143,7 +174,13 @@ def export_bundle(
                                    envelope=envelope)
     if state_dim is None:
         state_dim = _inferred_state_dim(pairs)
-    horizon = None if validation is None else validation.get("validated_horizon")
+    physical_samples = None
+    if envelope_samples is not None:
+        physical_samples = check_envelope_samples(envelope_samples, state_dim)
+        if envelope is None:
+            envelope = (physical_samples.min(axis=0), physical_samples.max(axis=0))
+    curve = None if trained is None else trained.validation_curve
+    horizon = _validated_horizon(curve, validation)
     spec = build_spec(
         strides=[stride for stride, _ in pairs], state_dim=state_dim, base_step=base_step,
         mean=mean, scale=scale, update=update, state_names=state_names, units=units,
@@ -159,17 +196,23 @@ def export_bundle(
         resolve_exporter(level, exporter)  # refuse a mismatch before any slow export
     exported = _export_levels(prepared, exporter=exporter, example=example, opset=opset,
                               progress=progress)
-    manifest = _manifest(spec, exported)
+    samples = _envelope(spec, trained, physical_samples, envelope_radius)
+    manifest = _manifest(spec, exported, curve, samples)
 
     target.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.export-", dir=target.parent))
     try:
-        staged = write_bundle(staging / "bundle", manifest,
-                              {stride: level.onnx_bytes for stride, level in exported.items()})
+        staged = write_bundle(
+            staging / "bundle", manifest,
+            {stride: level.onnx_bytes for stride, level in exported.items()},
+            extra_files=None if samples is None else {SAMPLES_FILE: encode_samples(samples[0])})
         stepper = load(staged, dtype="float32", verify=True)
         verification = verify_levels(stepper, prepared, exported, spec, sample,
                                      tolerance or Tolerance())
         report = _report(staged, spec, verification, validation, trained)
+        if samples is not None:
+            report["envelope"] = {"samples": len(samples[0]), "radius": samples[1],
+                                  "file": SAMPLES_FILE, "units": "normalised"}
         (staged / REPORT_NAME).write_text(json.dumps(report, indent=2, allow_nan=False) + "\n",
                                           encoding="utf-8")
         _check_target(target, overwrite)
@@ -194,7 +237,34 @@ def _export_levels(prepared: Mapping[int, PreparedLevel], *, exporter: str,
     return exported
 
 
-def _manifest(spec: ExportSpec, exported: Mapping[int, ExportedLevel]) -> Manifest:
+def _validated_horizon(curve: Mapping[str, Any] | None,
+                       validation: Mapping[str, Any] | None) -> float | None:
+    """From the error curve by the first-crossing rule, else the figures' own field."""
+    if curve is not None:
+        return validity.validated_horizon(curve["times"], curve["errors"], curve["tolerance"])
+    return None if validation is None else validation.get("validated_horizon")
+
+
+def _envelope(spec: ExportSpec, trained: TrainedLevels | None, physical: np.ndarray | None,
+              radius: float | None) -> tuple[np.ndarray, float] | None:
+    """The normalised envelope samples and radius to write, or None."""
+    if physical is not None:
+        normalised = (physical - np.asarray(spec.mean)) / np.asarray(spec.scale)
+        samples, learned = data_envelope([normalised])
+        return samples, learned if radius is None else check_radius(radius)
+    if trained is not None and trained.envelope_samples is not None:
+        learned = trained.envelope_radius
+        return (np.asarray(trained.envelope_samples, dtype=np.float32),
+                check_radius(learned if radius is None else radius))
+    if radius is not None:
+        raise BundleError("`envelope_radius` was given without `envelope_samples`; pass the "
+                          "states the radius refers to.")
+    return None
+
+
+def _manifest(spec: ExportSpec, exported: Mapping[int, ExportedLevel],
+              curve: Mapping[str, Any] | None = None,
+              samples: tuple[np.ndarray, float] | None = None) -> Manifest:
     """The manifest to write; `write_bundle` fills in files and checksums."""
     return Manifest(
         state_names=spec.state_names, state_units=spec.state_units, base_step=spec.base_step,
@@ -204,6 +274,14 @@ def _manifest(spec: ExportSpec, exported: Mapping[int, ExportedLevel]) -> Manife
         levels=tuple(LevelEntry(stride=stride, file="", sha256=_PLACEHOLDER_SHA)
                      for stride in spec.strides),
         producer=_producer(exported.values()),
+        validation=None if curve is None else ValidationCurve(
+            metric=curve["metric"], tolerance=float(curve["tolerance"]),
+            reference_std=tuple(map(float, curve["reference_std"])),
+            times=tuple(map(float, curve["times"])),
+            errors=tuple(float("inf") if e is None else float(e) for e in curve["errors"])),
+        envelope_samples=None if samples is None else EnvelopeSamples(
+            file=SAMPLES_FILE, sha256=_PLACEHOLDER_SHA, count=len(samples[0]),
+            radius=samples[1]),
     )
 
 

@@ -16,7 +16,7 @@ import torch
 
 from stridecast.runtime.errors import BundleError, StateError
 
-from .arguments import check_stride, level_pairs
+from .arguments import check_base_step, check_stride, level_pairs, same_base_step
 from .bundle_export import export_bundle
 from .data import load_trajectories
 from .onnx_export import quiet_torch
@@ -39,20 +39,6 @@ def parse_level_option(text: str) -> tuple[int, Path]:
             f"`--level` is {text!r}; the stride {stride_text!r} is not an integer."
         ) from error
     return check_stride(stride), Path(file_text)
-
-
-def parse_strides(text: str) -> tuple[int, ...]:
-    """Parse `--strides 1,4,16,64`."""
-    parts = [part.strip() for part in text.split(",") if part.strip()]
-    try:
-        values = [int(part) for part in parts]
-    except ValueError as error:
-        raise BundleError(
-            f"`--strides` is {text!r}; expected comma-separated integers like 1,4,16."
-        ) from error
-    if not values:
-        raise BundleError(f"`--strides` is {text!r}; expected comma-separated integers.")
-    return tuple(check_stride(value) for value in values)
 
 
 def load_level_file(path: str | os.PathLike[str], stride: int) -> Any:
@@ -137,19 +123,23 @@ def export_from_files(levels: Mapping[int, str | os.PathLike[str]]
 
 def train_from_file(data_path: str | os.PathLike[str], out: str | os.PathLike[str], *,
                     strides: Sequence[int], base_step: float | None = None,
-                    name: str | None = None, overwrite: bool = False,
-                    exporter: str = "auto", progress: bool = True,
+                    time_unit: str | None = None, name: str | None = None,
+                    overwrite: bool = False, exporter: str = "auto", progress: bool = True,
                     **training: Any) -> tuple[Path, TrainedLevels]:
     """`stridecast train`: data file to trained levels to a verified bundle.
 
     Parameters
     ----------
     data_path : path
-        `.npy` or `.npz` trajectories (see `load_trajectories`).
+        Trajectories in any format `load_trajectories` reads.
     strides : sequence of int
         Strides in base steps.
     base_step : float, optional
-        Required unless the `.npz` holds `base_step`; if both are given they must agree.
+        Required unless the data give it; if both are given they must agree within a relative
+        1e-6 (`arguments.BASE_STEP_RELATIVE_TOLERANCE`, so a float32 copy of 0.01 agrees with
+        0.01), and the value given here is kept.
+    time_unit : str, optional
+        Unit of `base_step`; default the data's, else "s". Must agree with the data's.
     training
         Further keywords of `train_levels` (hidden, activation, rollout, epochs, ...).
     """
@@ -160,19 +150,59 @@ def train_from_file(data_path: str | os.PathLike[str], out: str | os.PathLike[st
             f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to replace it."
         )
     data = load_trajectories(data_path)
-    if base_step is None and data.base_step is None:
-        raise StateError(
-            f"{str(data_path)!r} holds no `base_step`; pass --base-step (time between samples)."
-        )
-    if base_step is not None and data.base_step is not None and \
-            float(base_step) != data.base_step:
-        raise StateError(
-            f"`base_step` is {base_step!r} but {str(data_path)!r} says {data.base_step!r}."
-        )
-    step = float(base_step if base_step is not None else data.base_step)
-    trained = train_levels(data.trajectories, base_step=step, strides=strides,
+    step = _reconcile(base_step, data.base_step, "base_step", data_path,
+                      hint="pass --base-step (time between samples)")
+    unit = _reconcile(time_unit, data.time_unit, "time_unit", data_path, hint=None) or "s"
+    trained = train_levels(list(data.trajectories), base_step=step, strides=strides,
                            progress=progress, state_names=data.state_names,
                            state_units=data.units, **training)
     path = export_bundle(trained, target, name=name, overwrite=overwrite, exporter=exporter,
-                         progress=progress)
+                         time_unit=unit, progress=progress)
     return path, trained
+
+
+def _reconcile(given: Any, from_data: Any, key: str, data_path: Any, *,
+               hint: str | None) -> Any:
+    """The value of `key` from the caller or the data file; both must agree when both exist."""
+    if given is None and from_data is None:
+        if hint is None:
+            return None
+        raise StateError(f"{str(data_path)!r} holds no `{key}`; {hint}.")
+    if given is None:
+        return from_data
+    if from_data is not None:
+        agree = (same_base_step(check_base_step(given), from_data) if key == "base_step"
+                 else given == from_data)
+        if not agree:
+            raise StateError(f"`{key}` is {given!r} but {str(data_path)!r} says {from_data!r}.")
+    return check_base_step(given) if key == "base_step" else given
+
+
+def training_summary(trained: TrainedLevels, *, time_unit: str = "") -> list[str]:
+    """Lines `stridecast train` prints at the end: levels kept and why, the validated horizon
+    at the tolerance, and hierarchy against finest-only at the horizon.
+
+    Reads `trained.validation["summary"]` (written by `held_out.validate`).
+    """
+    unit = f" {time_unit}" if time_unit else ""
+    trained_strides = ", ".join(map(str, sorted(trained.history)))
+    summary = (trained.validation or {}).get("summary")
+    kept = ", ".join(map(str, trained.strides))
+    if not summary:
+        return [f"levels kept: {kept} (all trained; no held-out data, so no selection and no "
+                "validated horizon)"]
+    lines = [f"levels kept: {kept} of {trained_strides}: {summary['why']}"]
+    horizon = summary["validated_horizon"]
+    tolerance = f"normalised RMS error ≤ {summary['tolerance']:g}"
+    lines.append("validated horizon: " + (f"none ({tolerance} fails at the first check)"
+                                          if not horizon else f"{horizon:g}{unit} ({tolerance})"))
+    at = summary.get("at_horizon")
+    if at:
+        lines.append(f"at {at['time']:g}{unit} (the horizon levels were chosen for): hierarchy "
+                     f"error {_figure(at['hierarchical'])}, finest-only "
+                     f"{_figure(at['finest_only'])}")
+    return lines
+
+
+def _figure(value: float | None) -> str:
+    return "diverged" if value is None else f"{value:.3g}"

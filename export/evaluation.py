@@ -1,31 +1,92 @@
-"""Held-out figures for the manifest and report: one-step errors per level, hierarchical
-forecast errors against the finest-level-only rollout, and optional level selection.
+"""Held-out forecasts run exactly as the runtime runs them, and their normalised RMS errors.
 
-Hierarchical forecasts follow the runtime's own planner, so the figures describe the plans the
-deployed bundle will run. All errors are RMSE in normalised units unless named `_physical`.
+Forecasts from many start states to many horizons go through the runtime's own planner and
+shared-prefix schedule (`StridePlanner`, `waves.build_schedule`/`run_schedule`), with the torch
+networks as the step function, so the figures describe the plans a deployed bundle runs.
+
+Errors are the contract's normalised RMS: error per component divided by the component's
+standard deviation over the training split, root-mean-square over components and start states.
+Held-out states here are already normalised by that deviation (z = (x − mean) / scale), so the
+metric is the plain RMS of z errors.
 """
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
-from typing import Any
+from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 import torch
 
 from stridecast.runtime.planner import StridePlanner
-
-from .trained import ForecastExample
-
-# Horizons are a geometric ladder of about this many rungs from the finest stride to the
-# longest held-out span, plus every stride.
-HORIZON_RUNGS = 8
-# Start states per held-out trajectory and horizon.
-STARTS_PER_TRAJECTORY = 8
-# Points of the forecast plot.
-PLOT_POINTS = 200
+from stridecast.runtime.waves import build_schedule, run_schedule
 
 Levels = Mapping[int, torch.nn.Module]
+# Start states drawn from the held-out trajectories (evenly spaced in time within each).
+# Every forecast batch carries them all, so this bounds the cost of each network call.
+MAX_START_STATES = 256
+# Targets per schedule: bounds the memory of one run to about this many · B · d values.
+TARGETS_PER_RUN = 256
+
+
+@dataclass(frozen=True)
+class HeldOut:
+    """Normalised held-out trajectories and the fixed start states forecasts begin from.
+
+    Attributes
+    ----------
+    flat : ndarray, shape (sum T_i, d), float32
+        All held-out trajectories, one after the other.
+    offsets, lengths : ndarray of int64, shape (N,)
+        Where each trajectory starts in `flat`, and its number of samples.
+    trajectory, start : ndarray of int64, shape (B,)
+        Trajectory and sample index of each start state.
+    """
+
+    flat: np.ndarray
+    offsets: np.ndarray
+    lengths: np.ndarray
+    trajectory: np.ndarray
+    start: np.ndarray
+
+    @property
+    def initial(self) -> np.ndarray:
+        """The start states, shape (B, d), float32."""
+        return self.flat[self.offsets[self.trajectory] + self.start]
+
+    @property
+    def longest(self) -> int:
+        """The longest span a held-out trajectory covers, in base steps."""
+        return int(self.lengths.max()) - 1
+
+    def truth(self, steps: int) -> tuple[np.ndarray, np.ndarray]:
+        """True states `steps` base steps after each start (B, d) and which exist (B,)."""
+        index = self.start + steps
+        valid = index < self.lengths[self.trajectory]
+        rows = self.offsets[self.trajectory] + np.minimum(index, self.lengths[self.trajectory] - 1)
+        return self.flat[rows], valid
+
+
+def prepare_held_out(trajectories: Sequence[torch.Tensor], *,
+                     max_starts: int = MAX_START_STATES) -> HeldOut:
+    """Held-out trajectories (a list of normalised tensors (T_i, d), ragged) with start states.
+
+    Each trajectory gets starts evenly spaced over its samples but the last, in proportion to
+    its length, at most `max_starts` in all and at least its first sample.
+    """
+    arrays = [np.ascontiguousarray(t.detach().cpu().numpy(), dtype=np.float32)
+              for t in trajectories]
+    lengths = np.array([len(a) for a in arrays], dtype=np.int64)
+    offsets = np.concatenate(([0], np.cumsum(lengths)[:-1])).astype(np.int64)
+    usable = np.maximum(lengths - 1, 1)
+    share = np.maximum(1, np.floor(max_starts * usable / usable.sum())).astype(np.int64)
+    trajectory, start = [], []
+    for index, (count, room) in enumerate(zip(share, usable, strict=True)):
+        picks = np.unique(np.linspace(0, room - 1, min(count, room)).round().astype(np.int64))
+        trajectory.append(np.full(len(picks), index, dtype=np.int64))
+        start.append(picks)
+    return HeldOut(flat=np.concatenate(arrays), offsets=offsets, lengths=lengths,
+                   trajectory=np.concatenate(trajectory), start=np.concatenate(start))
 
 
 def advance(levels: Levels, states: torch.Tensor, plan: Sequence[tuple[int, int]]
@@ -38,149 +99,62 @@ def advance(levels: Levels, states: torch.Tensor, plan: Sequence[tuple[int, int]
     return states
 
 
-def horizons(held_out_steps: int, strides: Sequence[int]) -> list[int]:
-    """Validation horizons in base steps: multiples of the finest stride within the data."""
-    finest = min(strides)
-    longest = ((held_out_steps - 1) // finest) * finest
-    if longest < finest:
-        return []
-    ladder = np.geomspace(finest, longest, HORIZON_RUNGS)
-    values = {int(v) // finest * finest for v in ladder} | {s for s in strides if s <= longest}
-    return sorted(v for v in values | {longest} if v >= finest)
+def forecasts(levels: Levels, initial: np.ndarray, targets: Sequence[int]
+              ) -> Iterator[tuple[list[int], np.ndarray]]:
+    """Runtime-style forecasts of normalised `initial` (B, d) at `targets` (base steps).
+
+    Yields
+    ------
+    chunk : list of int
+        Consecutive targets of the request (at most `TARGETS_PER_RUN`).
+    states : ndarray, shape (len(chunk), B, d), float32
+        The forecasts, inf or NaN where a forecast diverged.
+    """
+    planner = StridePlanner(levels)
+
+    def step(stride: int, states: np.ndarray, _depth: int) -> np.ndarray:
+        with torch.no_grad():
+            z = torch.from_numpy(np.ascontiguousarray(states))
+            return (z + levels[stride](z)).numpy()
+
+    initial = np.ascontiguousarray(initial, dtype=np.float32)
+    targets = list(targets)
+    for first in range(0, len(targets), TARGETS_PER_RUN):
+        chunk = targets[first:first + TARGETS_PER_RUN]
+        yield chunk, run_schedule(build_schedule(chunk, planner), initial, step)
 
 
-def _starts(held_out_steps: int, horizon: int) -> np.ndarray:
-    room = held_out_steps - 1 - horizon
-    count = min(STARTS_PER_TRAJECTORY, room + 1)
-    return np.unique(np.linspace(0, room, count).round().astype(np.int64))
+def normalised_rms(prediction: np.ndarray, truth: np.ndarray, valid: np.ndarray | None = None
+                   ) -> float:
+    """RMS over states and components of normalised errors (B, d); inf if any diverged.
 
-
-def _horizon_batch(held_out: torch.Tensor, horizon: int) -> tuple[torch.Tensor, torch.Tensor]:
-    """Start states and the true states `horizon` base steps later, over all trajectories."""
-    starts = torch.from_numpy(_starts(held_out.shape[1], horizon))
-    initial = held_out[:, starts].reshape(-1, held_out.shape[2])
-    final = held_out[:, starts + horizon].reshape(-1, held_out.shape[2])
-    return initial, final
-
-
-def _rmse(prediction: torch.Tensor, truth: torch.Tensor) -> float:
-    """RMSE over states and components; +inf when a forecast diverged (NaN or overflow)."""
-    value = float(torch.sqrt(torch.mean((prediction.double() - truth.double()) ** 2)))
+    NaN (no valid state) when `valid` selects nothing.
+    """
+    if valid is not None:
+        prediction, truth = prediction[valid], truth[valid]
+    if prediction.size == 0:
+        return float("nan")
+    with np.errstate(over="ignore", invalid="ignore"):
+        value = float(np.sqrt(np.mean((prediction.astype(np.float64) - truth) ** 2)))
     return value if np.isfinite(value) else float("inf")
 
 
-def _json_number(value: float) -> float | None:
-    """JSON has no infinity: a diverged forecast is recorded as null."""
-    return value if np.isfinite(value) else None
-
-
-def hierarchical_errors(levels: Levels, held_out: torch.Tensor, steps: Sequence[int]
-                        ) -> list[float]:
-    """Hierarchical RMSE at each horizon in `steps`, using only the levels in `levels`."""
-    planner = StridePlanner(levels)
+def error_curve(levels: Levels, held_out: HeldOut, targets: Sequence[int]) -> np.ndarray:
+    """Normalised RMS of the hierarchy of `levels` at each target (base steps), shape (M,)."""
     errors = []
-    for horizon in steps:
-        initial, final = _horizon_batch(held_out, horizon)
-        errors.append(_rmse(advance(levels, initial, planner.steps(horizon)), final))
-    return errors
+    for chunk, states in forecasts(levels, held_out.initial, targets):
+        for steps, predicted in zip(chunk, states, strict=True):
+            truth, valid = held_out.truth(steps)
+            errors.append(normalised_rms(predicted, truth, valid))
+    return np.asarray(errors, dtype=np.float64)
 
 
-def held_out_figures(levels: Levels, held_out: torch.Tensor, *, base_step: float,
-                     scale: np.ndarray) -> dict[str, Any]:
-    """Validation figures (JSON-ready) on normalised held-out trajectories (N, T, d)."""
-    strides = sorted(levels)
-    finest = strides[0]
-    planner = StridePlanner(strides)
-    one_step = []
-    for stride in strides:
-        if held_out.shape[1] <= stride:
-            one_step.append({"stride": stride, "rmse": None, "rmse_physical": None})
-            continue
-        initial = held_out[:, :-stride].reshape(-1, held_out.shape[2])
-        truth = held_out[:, stride:].reshape(-1, held_out.shape[2])
-        with torch.no_grad():
-            error = (initial + levels[stride](initial)).double() - truth.double()
-        per_component = torch.sqrt(torch.mean(error**2, dim=0)).numpy()
-        one_step.append({
-            "stride": stride, "rmse": _json_number(float(torch.sqrt(torch.mean(error**2)))),
-            "rmse_physical": [_json_number(float(v)) for v in per_component * scale]})
-    rows = []
-    for horizon in horizons(held_out.shape[1], strides):
-        initial, final = _horizon_batch(held_out, horizon)
-        plan = planner.steps(horizon)
-        rows.append({
-            "base_steps": horizon,
-            "time": horizon * base_step,
-            "plan": [list(step) for step in plan],
-            "evaluations": sum(count for _, count in plan),
-            "hierarchical_rmse": _json_number(_rmse(advance(levels, initial, plan), final)),
-            "finest_only_evaluations": horizon // finest,
-            "finest_only_rmse": _json_number(
-                _rmse(advance(levels, initial, [(finest, horizon // finest)]), final)),
-            "start_states": int(initial.shape[0]),
-        })
-    finite = [row["time"] for row in rows if row["hierarchical_rmse"] is not None]
-    return {
-        "units": "RMSE in normalised units (z = (x - mean) / scale)",
-        "held_out_trajectories": int(held_out.shape[0]),
-        "held_out_samples": int(held_out.shape[1]),
-        "one_step": one_step,
-        "horizons": rows,
-        "validated_horizon": max(finite) if finite else None,
-    }
+def evaluations(levels: Levels, targets: Sequence[int]) -> float:
+    """Mean network evaluations per forecast over `targets` (plans' step counts)."""
+    planner = StridePlanner(levels)
+    return float(np.mean([sum(count for _, count in planner.steps(int(n))) for n in targets]))
 
 
-def select_levels(levels: Levels, held_out: torch.Tensor) -> tuple[tuple[int, ...], list[dict]]:
-    """Drop coarse levels whose inclusion makes the held-out hierarchical error worse.
-
-    Backward elimination, coarsest first; the finest level always stays (it makes every
-    multiple of the finest stride reachable). The score is the mean hierarchical RMSE over
-    the validation horizons.
-    """
-    strides = sorted(levels)
-    steps = horizons(held_out.shape[1], strides)
-    kept = list(strides)
-    decisions = []
-    if not steps:
-        return tuple(kept), decisions
-    def score(subset: list[int]) -> float:
-        return float(np.mean(hierarchical_errors({s: levels[s] for s in subset}, held_out,
-                                                 steps)))
-
-    current = score(kept)
-    for stride in reversed(strides[1:]):
-        without = [s for s in kept if s != stride]
-        candidate = score(without)
-        keep = not candidate < current  # a diverged score is +inf, so it never wins
-        decisions.append({"stride": stride, "mean_rmse_with": _json_number(current),
-                          "mean_rmse_without": _json_number(candidate), "kept": keep})
-        if not keep:
-            kept, current = without, candidate
-    return tuple(kept), decisions
-
-
-def forecast_example(levels: Levels, trajectory: torch.Tensor, *, base_step: float,
-                     mean: np.ndarray, scale: np.ndarray) -> ForecastExample | None:
-    """Hierarchical and finest-only forecasts of one normalised trajectory (T, d) from t = 0."""
-    strides = sorted(levels)
-    finest = strides[0]
-    longest = ((trajectory.shape[0] - 1) // finest) * finest
-    if longest < finest:
-        return None
-    planner = StridePlanner(strides)
-    grid = np.unique(np.linspace(0, longest // finest, PLOT_POINTS).round().astype(np.int64))
-    targets = grid * finest
-    initial = trajectory[:1]
-    hierarchical = torch.cat([advance(levels, initial, planner.steps(int(n))) for n in targets])
-    rollout, state = [initial], initial
-    for _ in range(int(grid[-1])):
-        state = advance(levels, state, [(finest, 1)])
-        rollout.append(state)
-    finest_only = torch.cat(rollout)[torch.from_numpy(grid)]
-
-    def physical(values: torch.Tensor) -> np.ndarray:
-        return values.double().numpy() * scale + mean
-
-    return ForecastExample(times=targets * base_step, truth=physical(trajectory[targets]),
-                           hierarchical=physical(hierarchical),
-                           finest_only=physical(finest_only))
+def json_number(value: float) -> float | None:
+    """JSON has no infinity or NaN: a diverged (or missing) figure is recorded as null."""
+    return float(value) if np.isfinite(value) else None

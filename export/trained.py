@@ -50,6 +50,14 @@ class TrainedLevels:
         From the data file, when it had them.
     settings : dict
         The training settings, JSON-ready, for the report.
+    validation_curve : dict or None
+        The manifest `validation` block: metric, tolerance, reference_std, and the deployed
+        hierarchy's held-out error curve (`times`, `errors`; null errors: diverged).
+    envelope_samples : ndarray, shape (count, d), float32, or None
+        Normalised training states z = (x − mean) / scale that the data envelope keeps.
+    envelope_radius : float or None
+        A state farther than this (Euclidean, normalised units) from every sample is far from
+        the data.
     forecast_example : ForecastExample or None
         Data for the forecast plot (not written to JSON).
     """
@@ -66,6 +74,9 @@ class TrainedLevels:
     state_names: tuple[str, ...] | None = None
     state_units: tuple[str, ...] | None = None
     settings: Mapping[str, Any] = field(default_factory=dict)
+    validation_curve: Mapping[str, Any] | None = None
+    envelope_samples: np.ndarray | None = field(default=None, repr=False, compare=False)
+    envelope_radius: float | None = None
     forecast_example: ForecastExample | None = field(default=None, repr=False, compare=False)
 
     @property
@@ -79,7 +90,8 @@ class TrainedLevels:
 
     @property
     def validated_horizon(self) -> float | None:
-        """Longest held-out horizon validated, in time units (None without validation)."""
+        """Longest horizon whose held-out error stays within the tolerance, in time units
+        (the first crossing; None without validation)."""
         if not self.validation:
             return None
         return self.validation.get("validated_horizon")

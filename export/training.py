@@ -2,7 +2,8 @@
 
 Each level minimises the one-step mean squared error plus the mean squared error of a rollout
 of `rollout` steps at its own stride, in normalised units. Normalisation comes from the
-training split; held-out trajectories give the validation figures of the bundle.
+training split; held-out trajectories give the per-epoch validation loss (early stopping, best
+epoch restored) and the validation figures of the bundle. Trajectories may differ in length.
 """
 
 from __future__ import annotations
@@ -24,13 +25,21 @@ from tqdm.auto import tqdm
 
 from stridecast.runtime.errors import BundleError
 
-from . import evaluation
 from .arguments import check_base_step, check_stride, check_strings
 from .data import check_length, check_trajectories
+from .envelope import data_envelope
 from .errors import TrainingError
+from .held_out import Validation, validate
 from .networks import ACTIVATIONS, increment_mlp, parameter_count
 from .trained import TrainedLevels
-from .windows import gather_windows, normalisation, spaced_subset, split_trajectories, window_starts
+from .windows import (
+    Ragged,
+    gather_windows,
+    normalisation,
+    spaced_subset,
+    split_trajectories,
+    window_starts,
+)
 
 logger = logging.getLogger(__name__)
 # Windows used for per-epoch validation losses and final one-step errors (evenly spaced).
@@ -52,7 +61,10 @@ class TrainingSettings:
     validation_fraction: float
     max_windows_per_epoch: int | None
     seed: int
-    select_levels: bool
+    patience: int | None
+    tolerance: float
+    horizon: float | None
+    keep_all_levels: bool
 
 
 def train_levels(
@@ -69,20 +81,25 @@ def train_levels(
     seed: int = 0,
     progress: bool = True,
     learning_rate: float = 1e-3,
-    select_levels: bool = False,
+    tolerance: float = 0.1,
+    horizon: float | None = None,
+    keep_all_levels: bool = False,
     max_windows_per_epoch: int | None = 65536,
     threads: int | None = 1,
     state_names: Sequence[str] | None = None,
     state_units: Sequence[str] | None = None,
+    patience: int | None = 10,
 ) -> TrainedLevels:
     """Train one network per stride on trajectories sampled every `base_step`.
 
     Parameters
     ----------
-    trajectories : array_like, shape (N, T, d) or (T, d)
-        States sampled every base step; whole trajectories are held out for validation.
+    trajectories : array_like (N, T, d) or (T, d), or a list/tuple of arrays (T_i, d)
+        States sampled every base step; lengths may differ (ragged). Whole trajectories are
+        held out for validation (a single series is split in time).
     base_step : float
-        Time between samples.
+        Time between samples. A float32 value counts as the decimal it stands for
+        (np.float32(0.01) is 0.01).
     strides : sequence of int
         Distinct positive strides, in base steps.
     hidden, activation
@@ -98,8 +115,14 @@ def train_levels(
         machine and thread count. The global torch RNG is left as it was.
     progress : bool
         Show a progress bar on stderr.
-    select_levels : bool
-        Drop coarse levels whose inclusion worsens the held-out hierarchical error.
+    tolerance : float
+        Held-out normalised RMS error (per component over its training standard deviation,
+        RMS over components and start states) that the validated horizon keeps to.
+    horizon : float or None
+        Longest forecast horizon (time units) level selection scores; None: the held-out span.
+    keep_all_levels : bool
+        Deploy every trained level instead of the subset (always with the finest) that
+        minimises the held-out error up to `horizon` (docs/export.md, "Level selection").
     max_windows_per_epoch : int or None
         Cap on the windows one epoch visits (a fresh random subset each epoch).
     threads : int or None
@@ -107,87 +130,101 @@ def train_levels(
         results independent of the machine's core count (reduction order) and is fastest for
         small networks; None keeps torch's setting.
     state_names, state_units : sequence of str, optional
-        Carried into the bundle.
+        Carried into the bundle. Names matching the first axis of a (T, d) array reveal data
+        given as (d, T), which is refused with a hint to transpose.
+    patience : int or None
+        Stop a level when its held-out validation loss has not improved for this many epochs.
+        Whenever there is a validation loss, the weights of the best epoch are restored at the
+        end (`history[stride]["best_epoch"]`, `"stop_reason"`). None never stops early.
 
     Returns
     -------
     TrainedLevels
         Networks, normalisation, per-level `history` and held-out `validation` figures.
     """
-    data = check_trajectories(trajectories)
+    data = check_trajectories(
+        trajectories, state_names=state_names if isinstance(state_names, Sequence) else None)
     settings = _check_settings(hidden=hidden, activation=activation, rollout=rollout,
                                epochs=epochs, batch_size=batch_size, learning_rate=learning_rate,
                                validation_fraction=validation_fraction,
                                max_windows_per_epoch=max_windows_per_epoch, seed=seed,
-                               select_levels=select_levels)
+                               patience=patience,
+                               tolerance=tolerance, horizon=horizon,
+                               keep_all_levels=keep_all_levels)
     base_step = check_base_step(base_step)
     strides = _check_strides(strides)
-    dim = data.shape[2]
+    _check_horizon(settings.horizon, base_step, strides[0])
+    dim = data.dim
     names = None if state_names is None else check_strings(state_names, "state_names", dim,
                                                            distinct=True)
     units = None if state_units is None else check_strings(state_units, "state_units", dim,
                                                            distinct=False)
-    check_length(data.shape[1], strides, settings.rollout, where="the trajectories")
+    check_length(data.lengths, dim, strides, settings.rollout, where="the trajectories")
     split = split_trajectories(data, settings.validation_fraction, settings.seed)
-    check_length(split.train.shape[1], strides, settings.rollout,
-                 where="the training trajectories (after the time split)")
+    check_length(split.train.lengths, dim, strides, settings.rollout,
+                 where="the training trajectories (after the split)")
     mean, scale = normalisation(split.train)
-    train = torch.from_numpy(((split.train - mean) / scale).astype(np.float32))
-    held_out = None if split.held_out is None else torch.from_numpy(
-        ((split.held_out - mean) / scale).astype(np.float32))
+
+    def normalised(values: np.ndarray) -> torch.Tensor:
+        return torch.from_numpy(((values - mean) / scale).astype(np.float32))
+
+    train = split.train.map(normalised)
+    held_out = None if split.held_out is None else split.held_out.map(normalised)
 
     levels, history = {}, {}
-    validation, example = None, None
+    validation, curve, example = None, None, None
     with _torch_threads(threads):
         for stride in strides:
             levels[stride], history[stride] = _train_level(stride, train, held_out, settings,
                                                            progress=progress)
         if held_out is not None:
-            validation, example = _validate(levels, held_out, settings, base_step, mean, scale,
-                                            split.description)
-            levels = {stride: levels[stride] for stride in validation["strides"]}
+            # Evaluation takes a list of (T_i, d) tensors: ragged held-out data fit as they are.
+            checked = _validate(levels, held_out.to_list(), settings, base_step, mean, scale)
+            validation = {**checked.figures, "split": split.description}
+            curve, example = checked.curve, checked.example
+            levels = {stride: levels[stride] for stride in checked.strides}
+    samples, radius = data_envelope(
+        _arrays(train), None if held_out is None else _arrays(held_out))
     return TrainedLevels(
         levels=levels, mean=tuple(map(float, mean)), scale=tuple(map(float, scale)),
         base_step=base_step, update="increment", history=history, validation=validation,
-        envelope_min=tuple(map(float, split.train.min(axis=(0, 1)))),
-        envelope_max=tuple(map(float, split.train.max(axis=(0, 1)))),
+        envelope_min=tuple(map(float, split.train.values.min(axis=0))),
+        envelope_max=tuple(map(float, split.train.values.max(axis=0))),
         state_names=names, state_units=units,
         settings={**asdict(settings), "hidden": list(settings.hidden),
                   "strides": list(strides), "base_step": base_step, "threads": threads},
-        forecast_example=example,
+        forecast_example=example, validation_curve=curve, envelope_samples=samples,
+        envelope_radius=radius,
     )
 
 
-def _validate(levels: dict[int, nn.Module], held_out: torch.Tensor, settings: TrainingSettings,
-              base_step: float, mean: np.ndarray, scale: np.ndarray,
-              split: dict[str, Any]) -> tuple[dict[str, Any], Any]:
-    selection = None
-    if settings.select_levels:
-        kept, decisions = evaluation.select_levels(levels, held_out)
-        selection = {"kept": list(kept), "decisions": decisions}
-        for decision in decisions:
-            logger.info("level selection: stride %d %s (mean held-out RMSE %s with, %s without)",
-                        decision["stride"], "kept" if decision["kept"] else "dropped",
-                        decision["mean_rmse_with"], decision["mean_rmse_without"])
-        levels = {stride: levels[stride] for stride in kept}
-    figures = evaluation.held_out_figures(levels, held_out, base_step=base_step, scale=scale)
-    figures.update({"strides": sorted(levels), "split": split, "selection": selection})
-    example = evaluation.forecast_example(levels, held_out[0], base_step=base_step, mean=mean,
-                                          scale=scale)
-    return figures, example
+def _validate(levels: dict[int, nn.Module], held_out: list[torch.Tensor],
+              settings: TrainingSettings, base_step: float, mean: np.ndarray,
+              scale: np.ndarray) -> Validation:
+    """Level selection and the validity figures on normalised held-out trajectories."""
+    checked = validate(levels, held_out, base_step=base_step, mean=mean, scale=scale,
+                       tolerance=settings.tolerance, horizon=settings.horizon,
+                       keep_all_levels=settings.keep_all_levels)
+    summary = checked.figures["summary"]
+    logger.info("levels kept: %s (%s); validated horizon %s at tolerance %g",
+                summary["kept"], summary["why"], summary["validated_horizon"],
+                settings.tolerance)
+    return checked
 
 
-def _train_level(stride: int, train: torch.Tensor, held_out: torch.Tensor | None,
+def _train_level(stride: int, train: Ragged, held_out: Ragged | None,
                  settings: TrainingSettings, *, progress: bool) -> tuple[nn.Module, dict]:
-    """Train the network of one stride; return it (eval mode) and its history."""
+    """Train the network of one stride; return it (eval mode, best epoch) and its history.
+
+    `train` and `held_out` hold normalised float32 tensors.
+    """
     started = time.perf_counter()
     level_seed = settings.seed * 1_000_003 + stride  # independent of which other levels exist
     with torch.random.fork_rng(devices=[]):
         torch.manual_seed(level_seed)
-        model = increment_mlp(train.shape[2], settings.hidden, settings.activation)
+        model = increment_mlp(train.dim, settings.hidden, settings.activation)
     generator = torch.Generator().manual_seed(level_seed)
-    starts = torch.from_numpy(window_starts(train.shape[0], train.shape[1], stride,
-                                            settings.rollout))
+    starts = torch.from_numpy(window_starts(train, stride, settings.rollout))
     per_epoch = min(len(starts), settings.max_windows_per_epoch or len(starts))
     batches = math.ceil(per_epoch / settings.batch_size)
     optimizer = torch.optim.Adam(model.parameters(), lr=settings.learning_rate)
@@ -196,14 +233,17 @@ def _train_level(stride: int, train: torch.Tensor, held_out: torch.Tensor | None
         eta_min=settings.learning_rate * FINAL_LEARNING_RATE_FRACTION)
     check_starts = _evaluation_starts(held_out, stride, settings.rollout)
     train_losses, validation_losses = [], []
+    best = _BestEpoch()
+    stop_reason = "epochs"
     bar = tqdm(total=settings.epochs * batches, desc=f"stride {stride}", unit="batch",
                file=sys.stderr, disable=not progress, leave=False)
     with bar:
-        for _ in range(settings.epochs):
+        for epoch in range(1, settings.epochs + 1):
             order = torch.randperm(len(starts), generator=generator)[:per_epoch]
             total = 0.0
             for first in range(0, per_epoch, settings.batch_size):
-                windows = gather_windows(train, starts[order[first:first + settings.batch_size]],
+                windows = gather_windows(train.values,
+                                         starts[order[first:first + settings.batch_size]],
                                          stride, settings.rollout)
                 loss, _ = window_loss(model, windows)
                 optimizer.zero_grad(set_to_none=True)
@@ -213,14 +253,26 @@ def _train_level(stride: int, train: torch.Tensor, held_out: torch.Tensor | None
                 total += float(loss.detach()) * len(windows)
                 bar.update(1)
             train_losses.append(total / per_epoch)
-            if check_starts is not None:
-                validation_losses.append(_mean_loss(model, held_out, check_starts, stride,
-                                                    settings.rollout)[0])
             bar.set_postfix(loss=f"{train_losses[-1]:.3g}")
+            if check_starts is None:
+                continue
+            validation_losses.append(_mean_loss(model, held_out, check_starts, stride,
+                                                settings.rollout)[0])
+            best.offer(epoch, validation_losses[-1], model)
+            if settings.patience is not None and epoch - best.epoch >= settings.patience \
+                    and epoch < settings.epochs:
+                stop_reason = "patience"
+                break
+    if best.state is not None:
+        model.load_state_dict(best.state)
     model.eval()
     train_check = starts[torch.from_numpy(spaced_subset(len(starts), EVALUATION_WINDOWS))]
     entry = {
         "epochs": settings.epochs,
+        "epochs_run": len(train_losses),
+        "best_epoch": best.epoch or None,
+        "best_validation_loss": best.loss if best.state is not None else None,
+        "stop_reason": stop_reason,
         "windows": len(starts),
         "parameters": parameter_count(model),
         "train_loss": train_losses,
@@ -230,10 +282,29 @@ def _train_level(stride: int, train: torch.Tensor, held_out: torch.Tensor | None
             model, held_out, check_starts, stride, settings.rollout)[1],
         "seconds": round(time.perf_counter() - started, 3),
     }
-    logger.info("stride %d: train loss %.3g, validation loss %s, one-step MSE %.3g (train)",
-                stride, train_losses[-1], validation_losses[-1] if validation_losses else None,
-                entry["train_one_step_mse"])
+    logger.info("stride %d: %d epochs (%s), best epoch %s, validation loss %s, one-step MSE "
+                "%.3g (train)", stride, len(train_losses), stop_reason, entry["best_epoch"],
+                entry["best_validation_loss"], entry["train_one_step_mse"])
     return model, entry
+
+
+def _arrays(data: Ragged) -> list[np.ndarray]:
+    """Each trajectory of a Ragged of tensors as a NumPy array (T_i, d) (no copy)."""
+    return [trajectory.numpy() for trajectory in data.to_list()]
+
+
+class _BestEpoch:
+    """The epoch with the lowest finite validation loss so far, and a copy of its weights."""
+
+    def __init__(self) -> None:
+        self.epoch, self.loss, self.state = 0, math.inf, None
+
+    def offer(self, epoch: int, loss: float, model: nn.Module) -> None:
+        # Strictly lower: a plateau keeps the earlier epoch; NaN never compares lower.
+        if loss < self.loss:
+            self.epoch, self.loss = epoch, loss
+            self.state = {name: value.detach().clone()
+                          for name, value in model.state_dict().items()}
 
 
 def window_loss(model: nn.Module, windows: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
@@ -252,18 +323,19 @@ def window_loss(model: nn.Module, windows: torch.Tensor) -> tuple[torch.Tensor, 
     return one_step + rollout_error / (windows.shape[1] - 1), one_step
 
 
-def _mean_loss(model: nn.Module, data: torch.Tensor, starts: torch.Tensor, stride: int,
+def _mean_loss(model: nn.Module, data: Ragged, starts: torch.Tensor, stride: int,
                rollout: int) -> tuple[float, float]:
     with torch.no_grad():
-        total, one_step = window_loss(model, gather_windows(data, starts, stride, rollout))
+        total, one_step = window_loss(model, gather_windows(data.values, starts, stride,
+                                                            rollout))
     return float(total), float(one_step)
 
 
-def _evaluation_starts(held_out: torch.Tensor | None, stride: int,
+def _evaluation_starts(held_out: Ragged | None, stride: int,
                        rollout: int) -> torch.Tensor | None:
     if held_out is None:
         return None
-    starts = window_starts(held_out.shape[0], held_out.shape[1], stride, rollout)
+    starts = window_starts(held_out, stride, rollout)
     if len(starts) == 0:
         logger.info("stride %d: held-out trajectories too short for a validation loss", stride)
         return None
@@ -304,9 +376,15 @@ def _positive_int(value: Any, where: str) -> int:
     return number
 
 
+def _flag(value: Any, where: str) -> bool:
+    if not isinstance(value, bool | np.bool_):
+        raise TrainingError(f"`{where}` is {value!r}; expected True or False.")
+    return bool(value)
+
+
 def _check_settings(*, hidden, activation, rollout, epochs, batch_size, learning_rate,
-                    validation_fraction, max_windows_per_epoch, seed,
-                    select_levels) -> TrainingSettings:
+                    validation_fraction, max_windows_per_epoch, seed, patience, tolerance,
+                    horizon, keep_all_levels) -> TrainingSettings:
     if isinstance(hidden, int) or not isinstance(hidden, Sequence) or not hidden:
         raise TrainingError(f"`hidden` is {hidden!r}; expected a non-empty list of widths.")
     try:
@@ -319,9 +397,7 @@ def _check_settings(*, hidden, activation, rollout, epochs, batch_size, learning
         raise TrainingError(
             f"`activation` is {activation!r}; expected one of {sorted(ACTIVATIONS)}."
         )
-    rate = float(learning_rate) if isinstance(learning_rate, int | float) else math.nan
-    if isinstance(learning_rate, bool) or not math.isfinite(rate) or rate <= 0:
-        raise TrainingError(f"`learning_rate` is {learning_rate!r}; expected a number > 0.")
+    rate = _positive_number(learning_rate, "learning_rate")
     fraction = (float(validation_fraction)
                 if isinstance(validation_fraction, int | float) else math.nan)
     if isinstance(validation_fraction, bool) or not 0 <= fraction < 1:
@@ -337,5 +413,23 @@ def _check_settings(*, hidden, activation, rollout, epochs, batch_size, learning
         validation_fraction=fraction,
         max_windows_per_epoch=None if max_windows_per_epoch is None
         else _positive_int(max_windows_per_epoch, "max_windows_per_epoch"),
-        seed=seed, select_levels=bool(select_levels),
+        seed=seed, patience=None if patience is None else _positive_int(patience, "patience"),
+        tolerance=_positive_number(tolerance, "tolerance"),
+        horizon=None if horizon is None else _positive_number(horizon, "horizon"),
+        keep_all_levels=_flag(keep_all_levels, "keep_all_levels"),
     )
+
+
+def _positive_number(value: Any, where: str) -> float:
+    number = float(value) if isinstance(value, int | float) else math.nan
+    if isinstance(value, bool) or not math.isfinite(number) or number <= 0:
+        raise TrainingError(f"`{where}` is {value!r}; expected a finite number > 0.")
+    return number
+
+
+def _check_horizon(horizon: float | None, base_step: float, finest: int) -> None:
+    if horizon is not None and horizon < finest * base_step * (1 - 1e-9):
+        raise TrainingError(
+            f"`horizon` is {horizon!r}; expected at least the finest stride's time, "
+            f"{finest * base_step!r}."
+        )

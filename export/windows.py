@@ -1,12 +1,15 @@
-"""Training data plumbing: split by trajectory, normalise, and cut rollout windows.
+"""Training data plumbing: ragged trajectories, the split, normalisation and rollout windows.
 
-A window for stride k and rollout R is the states x[t], x[t+k], ..., x[t+R·k] of one
-trajectory; every start t that fits is used, in every training trajectory.
+Trajectories of different lengths live in one flat array of states plus per-trajectory
+offsets (`Ragged`), so cutting windows stays one vectorised gather. A window for stride k and
+rollout R is the states x[t], x[t+k], ..., x[t+R·k] of ONE trajectory: its start t is chosen
+so the window never crosses into the next trajectory.
 """
 
 from __future__ import annotations
 
 import logging
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -19,44 +22,96 @@ _CONSTANT_SPREAD = 1e-12
 
 
 @dataclass(frozen=True)
+class Ragged:
+    """Trajectories (T_i, d) stored back to back.
+
+    Attributes
+    ----------
+    values : ndarray or Tensor, shape (sum T_i, d)
+        All states, trajectory after trajectory.
+    offsets : ndarray, shape (N + 1,), int64
+        Trajectory i is ``values[offsets[i]:offsets[i + 1]]``; offsets[0] = 0.
+    """
+
+    values: Any
+    offsets: np.ndarray
+
+    @classmethod
+    def from_arrays(cls, arrays: Sequence[np.ndarray]) -> Ragged:
+        """Concatenate (T_i, d) arrays (same d) into one `Ragged`."""
+        lengths = [len(array) for array in arrays]
+        offsets = np.concatenate([[0], np.cumsum(lengths)]).astype(np.int64)
+        return cls(np.concatenate(list(arrays), axis=0), offsets)
+
+    @property
+    def count(self) -> int:
+        return len(self.offsets) - 1
+
+    @property
+    def lengths(self) -> np.ndarray:
+        return np.diff(self.offsets)
+
+    @property
+    def dim(self) -> int:
+        return int(self.values.shape[1])
+
+    def trajectory(self, index: int) -> Any:
+        return self.values[int(self.offsets[index]):int(self.offsets[index + 1])]
+
+    def to_list(self) -> list[Any]:
+        return [self.trajectory(index) for index in range(self.count)]
+
+    def select(self, indices: Sequence[int]) -> Ragged:
+        """The trajectories at `indices`, in that order."""
+        return Ragged.from_arrays([self.trajectory(index) for index in indices])
+
+    def map(self, function: Callable[[Any], Any]) -> Ragged:
+        """Apply `function` to the flat states (it must keep their number)."""
+        return Ragged(function(self.values), self.offsets)
+
+
+@dataclass(frozen=True)
 class Split:
     """Training and held-out trajectories (held-out may be None) and how they were chosen."""
 
-    train: np.ndarray
-    held_out: np.ndarray | None
+    train: Ragged
+    held_out: Ragged | None
     description: dict[str, Any]
 
 
-def split_trajectories(trajectories: np.ndarray, fraction: float, seed: int) -> Split:
+def split_trajectories(data: Ragged, fraction: float, seed: int) -> Split:
     """Hold out whole trajectories; a single trajectory is split in time instead.
 
     Parameters
     ----------
-    trajectories : ndarray, shape (N, T, d)
+    data : Ragged
+        N trajectories (T_i, d).
     fraction : float
-        Share held out, in [0, 1). At least one trajectory is held out when > 0 and N ≥ 2.
+        Share of the trajectories held out, in [0, 1). At least one is held out when > 0 and
+        N ≥ 2, and at least one stays for training.
     seed : int
         Seeds the choice of held-out trajectories.
     """
-    count, steps = trajectories.shape[:2]
     if fraction <= 0:
-        return Split(trajectories, None, {"method": "none"})
-    if count == 1:
+        return Split(data, None, {"method": "none"})
+    if data.count == 1:
+        steps = int(data.lengths[0])
         cut = round((1.0 - fraction) * steps)
         logger.info("one trajectory: holding out its last %d of %d samples", steps - cut, steps)
-        return Split(trajectories[:, :cut], trajectories[:, cut:],
+        series = data.trajectory(0)
+        return Split(Ragged.from_arrays([series[:cut]]), Ragged.from_arrays([series[cut:]]),
                      {"method": "time", "train_samples": cut, "held_out_samples": steps - cut})
-    held = min(count - 1, max(1, round(fraction * count)))
-    order = np.random.default_rng(seed).permutation(count)
+    held = min(data.count - 1, max(1, round(fraction * data.count)))
+    order = np.random.default_rng(seed).permutation(data.count)
     held_out, train = np.sort(order[:held]), np.sort(order[held:])
-    return Split(trajectories[train], trajectories[held_out],
+    return Split(data.select(train), data.select(held_out),
                  {"method": "trajectory", "train_trajectories": train.tolist(),
                   "held_out_trajectories": held_out.tolist()})
 
 
-def normalisation(train: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def normalisation(train: Ragged) -> tuple[np.ndarray, np.ndarray]:
     """Per-component mean and standard deviation over all training samples (scale > 0)."""
-    flat = train.reshape(-1, train.shape[-1])
+    flat = np.asarray(train.values)
     mean = flat.mean(axis=0)
     spread = flat.std(axis=0)
     constant = spread <= _CONSTANT_SPREAD * np.maximum(1.0, np.abs(mean))
@@ -66,22 +121,26 @@ def normalisation(train: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return mean, np.where(constant, 1.0, spread)
 
 
-def window_starts(trajectories: int, steps: int, stride: int, rollout: int) -> np.ndarray:
-    """All (trajectory, start) pairs whose window of `rollout` strides fits, shape (M, 2)."""
-    last_start = steps - rollout * stride  # exclusive
-    if last_start <= 0:
-        return np.zeros((0, 2), dtype=np.int64)
-    grid = np.stack(np.meshgrid(np.arange(trajectories), np.arange(last_start), indexing="ij"),
-                    axis=-1)
-    return grid.reshape(-1, 2).astype(np.int64)
+def window_starts(data: Ragged, stride: int, rollout: int) -> np.ndarray:
+    """Flat indices (into `data.values`) of every window start that fits, shape (M,), int64.
+
+    A trajectory of length T contributes the starts 0 .. T − rollout·stride − 1 (none when it
+    is too short), so no window reaches past the end of its own trajectory.
+    """
+    fits = np.maximum(data.lengths - rollout * stride, 0)
+    total = int(fits.sum())
+    if total == 0:
+        return np.zeros(0, dtype=np.int64)
+    first_of_each = np.repeat(np.cumsum(fits) - fits, fits)
+    return (np.repeat(data.offsets[:-1], fits) + np.arange(total) - first_of_each
+            ).astype(np.int64)
 
 
-def gather_windows(data: torch.Tensor, starts: torch.Tensor, stride: int,
+def gather_windows(values: torch.Tensor, starts: torch.Tensor, stride: int,
                    rollout: int) -> torch.Tensor:
-    """States of each window, shape (B, rollout + 1, d), from `data` (N, T, d)."""
+    """States of each window, shape (B, rollout + 1, d), from flat `values` (S, d)."""
     offsets = torch.arange(rollout + 1, dtype=torch.int64) * stride
-    steps = starts[:, 1:2] + offsets[None, :]
-    return data[starts[:, 0:1], steps]
+    return values[starts[:, None] + offsets[None, :]]
 
 
 def spaced_subset(count: int, limit: int) -> np.ndarray:

@@ -14,13 +14,24 @@ from .errors import (
 )
 from .limits import DEFAULT_LIMITS, Limits
 from .loader import load
-from .manifest import LevelEntry, Manifest, parse_manifest, parse_manifest_text
+from .manifest import (
+    SAMPLES_FILE,
+    EnvelopeSamples,
+    LevelEntry,
+    Manifest,
+    ValidationCurve,
+    parse_manifest,
+    parse_manifest_text,
+)
 from .plan import Plan
+from .samples import encode_samples
 from .stepper import ForecastInfo, Stepper
 
 __all__ = [
     "DEFAULT_LIMITS",
+    "SAMPLES_FILE",
     "BundleError",
+    "EnvelopeSamples",
     "ForecastInfo",
     "LevelEntry",
     "Limits",
@@ -33,6 +44,8 @@ __all__ = [
     "StridecastError",
     "TimeError",
     "UnsupportedOperatorError",
+    "ValidationCurve",
+    "encode_samples",
     "load",
     "parse_manifest",
     "parse_manifest_text",

@@ -6,7 +6,7 @@ import os
 
 import numpy as np
 
-from .bundle import open_bundle_root, read_levels, read_manifest
+from .bundle import open_bundle_root, read_envelope_samples, read_levels, read_manifest
 from .compile import make_kernel
 from .errors import BundleError, ModelFormatError, StridecastError
 from .graph import build_program
@@ -67,7 +67,9 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
             raise ModelFormatError(f"{where}: the network cannot be prepared: {error}.") \
                 from error
         kernels[entry.stride] = kernel
-    return Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root))
+    samples = read_envelope_samples(root, manifest, verify=verify, limits=limits)
+    return Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root),
+                   envelope_samples=samples)
 
 
 def _probe(kernel, mean, dtype: np.dtype, where: str) -> None:

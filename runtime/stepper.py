@@ -69,12 +69,13 @@ class Stepper:
 
     def __init__(self, manifest: Manifest, kernels: Mapping[int, Kernel], *,
                  dtype: np.dtype | str = "float32", limits: Limits = DEFAULT_LIMITS,
-                 source: str = ""):
+                 source: str = "", envelope_samples: np.ndarray | None = None):
         self._manifest = manifest
         self._kernels = dict(kernels)
         self._dtype = np.dtype(dtype)
         self._limits = limits
         self._source = source
+        self._samples = envelope_samples
         self._planner = StridePlanner(self._kernels, max_steps=limits.max_steps_per_query)
         self._hybrid_planners: dict[int, StridePlanner] = {}
         self._lock = threading.Lock()

@@ -32,21 +32,9 @@ def register(subparsers, add) -> None:
                       help="where forecast.png and error.png go (default: inside the "
                       "bundle folder)")
 
-    train = add(subparsers, "train", "Train levels from trajectories and export a bundle.",
-                "stridecast train data.npz --base-step 0.05 --strides 1,4,16,64 -o my.bundle",
-                "stridecast.commands_optional:train_command")
-    train.add_argument("data", help=".npy array (N, T, d) or .npz with key `trajectories`")
-    train.add_argument("--base-step", type=float, default=None,
-                       help="time between samples (required unless the .npz has base_step)")
-    train.add_argument("--strides", required=True, help="comma-separated strides in base steps")
-    train.add_argument("-o", "--out", required=True, help="bundle folder to write")
-    train.add_argument("--name", default=None)
-    train.add_argument("--hidden", default="128,128,128", help="hidden layer widths")
-    train.add_argument("--activation", default="tanh")
-    train.add_argument("--epochs", type=int, default=None)
-    train.add_argument("--seed", type=int, default=0)
-    train.add_argument("--overwrite", action="store_true")
-    train.add_argument("--no-progress", action="store_true")
+    from . import commands_train
+
+    commands_train.register(subparsers, add)
 
     export = add(subparsers, "export", "Export per-stride torch programs to a verified bundle.",
                  "stridecast export --level 1=fine.pt2 --level 16=coarse.pt2 --base-step 0.05 "
@@ -111,22 +99,6 @@ def demo_command(arguments: argparse.Namespace) -> int:
     with _needs("all"):
         from stridecast import demo
     return demo.main(arguments)
-
-
-def train_command(arguments: argparse.Namespace) -> int:
-    with _needs("export"):
-        from stridecast.export.cli_support import parse_strides, train_from_file
-    hidden = tuple(int(width) for width in arguments.hidden.split(",") if width.strip())
-    training = {"hidden": hidden, "activation": arguments.activation, "seed": arguments.seed}
-    if arguments.epochs is not None:
-        training["epochs"] = arguments.epochs
-    path, trained = train_from_file(
-        arguments.data, arguments.out, strides=parse_strides(arguments.strides),
-        base_step=arguments.base_step, name=arguments.name, overwrite=arguments.overwrite,
-        progress=not arguments.no_progress, **training)
-    print(f"trained {len(trained.levels)} levels and wrote the verified bundle {path}")
-    print(f"inspect it with: stridecast inspect {path}")
-    return 0
 
 
 def export_command(arguments: argparse.Namespace) -> int:

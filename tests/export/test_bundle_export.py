@@ -11,7 +11,7 @@ import pytest
 import torch
 from torch import nn
 
-from stridecast.export import Tolerance, VerificationError, export_bundle
+from stridecast.export import Tolerance, TrainedLevels, VerificationError, export_bundle
 from stridecast.export import bundle_export as bundle_export_module
 from stridecast.runtime import BundleError, load
 
@@ -289,3 +289,75 @@ def test_overwrite_replaces_bundle(tmp_path):
     replaced = export_with(tmp_path, {1: mlp("relu"), 4: mlp("elu")}, overwrite=True)
     assert load(replaced).strides == (1, 4)
     assert sorted(path.name for path in tmp_path.iterdir()) == ["b"]
+
+
+def trained_linear(curve_errors: list[float | None]) -> TrainedLevels:
+    """Exact expm levels (scipy.linalg.expm) with a given validation curve and samples."""
+    from tests.export.test_evaluation import BASE_STEP, exact_level
+
+    samples = np.random.default_rng(3).normal(size=(300, 2)).astype(np.float32)
+    times = [BASE_STEP * (i + 1) for i in range(len(curve_errors))]
+    curve = {"metric": "normalised_rms", "tolerance": 0.1, "reference_std": [1.0, 1.0],
+             "times": times, "errors": curve_errors}
+    return TrainedLevels(
+        levels={1: exact_level(1), 4: exact_level(4)}, mean=(0.0, 0.0), scale=(1.0, 1.0),
+        base_step=BASE_STEP, envelope_min=(-3.0, -3.0), envelope_max=(3.0, 3.0),
+        validation={"validated_horizon": 999.0}, validation_curve=curve,
+        envelope_samples=samples, envelope_radius=0.4)
+
+
+def test_trained_levels_round_trip_validation_and_samples(tmp_path):
+    trained = trained_linear([0.01, 0.05, 0.2, None, 0.05])
+    bundle = export_bundle(trained, tmp_path / "trained.bundle", exporter="legacy",
+                           verify_samples=64)
+    stepper = load(bundle)
+    manifest = stepper.manifest
+    # The first crossing of 0.1 is at the third point: validated up to the second (0.2),
+    # whatever the figures' own field says.
+    assert manifest.validated_horizon == pytest.approx(0.2)
+    assert manifest.validation.metric == "normalised_rms"
+    assert manifest.validation.errors[3] == float("inf")
+    assert manifest.validation.times == pytest.approx((0.1, 0.2, 0.3, 0.4, 0.5))
+    assert manifest.envelope_samples.count == 300 and manifest.envelope_samples.radius == 0.4
+    written = np.load(bundle / manifest.envelope_samples.file, allow_pickle=False)
+    np.testing.assert_array_equal(written, trained.envelope_samples)
+    document = json.loads((bundle / "manifest.json").read_text())
+    assert document["validation"]["errors"] == [0.01, 0.05, 0.2, None, 0.05]
+    assert document["envelope"]["samples"]["file"] == "envelope/samples.npy"
+
+
+def test_plain_modules_with_envelope_samples(tmp_path):
+    rng = np.random.default_rng(4)
+    physical = rng.normal(loc=MEAN, scale=SCALE, size=(5000, 3))
+    bundle = export_bundle({4: mlp("tanh")}, tmp_path / "plain.bundle", base_step=0.5, mean=MEAN,
+                           scale=SCALE, exporter="legacy", verify_samples=64,
+                           envelope_samples=physical)
+    manifest = load(bundle).manifest
+    # Thinned to 2048 states, normalised with the bundle's mean and scale; the box is the
+    # given states' range.
+    assert manifest.envelope_samples.count == 2048 and manifest.envelope_samples.radius > 0
+    written = np.load(bundle / "envelope/samples.npy", allow_pickle=False)
+    z = (physical - MEAN) / SCALE
+    assert np.all(written.min(axis=0) >= z.min(axis=0) - 1e-6)
+    np.testing.assert_allclose(manifest.envelope_min, physical.min(axis=0))
+    assert manifest.validation is None and manifest.validated_horizon is None
+
+    bundle = export_bundle({4: mlp("tanh")}, tmp_path / "radius.bundle", base_step=0.5,
+                           mean=MEAN, scale=SCALE, exporter="legacy", verify_samples=64,
+                           envelope_samples=physical[:100], envelope_radius=0.25)
+    assert load(bundle).manifest.envelope_samples.radius == 0.25
+
+
+@pytest.mark.parametrize(("overrides", "message"), [
+    ({"envelope_samples": np.zeros((4, 2))},
+     r"`envelope_samples` has shape \(4, 2\); expected \(M, 3\) with M ≥ 1\."),
+    ({"envelope_samples": np.full((4, 3), np.nan)}, r"`envelope_samples` holds NaN"),
+    ({"envelope_samples": np.zeros((4, 3)), "envelope_radius": -1.0},
+     r"`envelope_radius` is -1\.0; expected a finite number > 0\."),
+    ({"envelope_radius": 0.5}, r"`envelope_radius` was given without `envelope_samples`"),
+])
+def test_refuses_bad_envelope_samples(tmp_path, overrides, message):
+    with pytest.raises(BundleError, match=message):
+        export_bundle({4: mlp("tanh")}, tmp_path / "b", base_step=0.5, mean=MEAN, scale=SCALE,
+                      exporter="legacy", **overrides)
+    assert not (tmp_path / "b").exists()

@@ -14,7 +14,6 @@ from torch import nn
 from stridecast.export.cli_support import (
     export_from_files,
     parse_level_option,
-    parse_strides,
     read_normalization,
     train_from_file,
 )
@@ -50,12 +49,6 @@ def test_parse_level_option():
                           ("0=a.pt2", r"stride 0 must be a positive")]:
         with pytest.raises(BundleError, match=message):
             parse_level_option(text)
-
-
-def test_parse_strides():
-    assert parse_strides("1, 4,16,64") == (1, 4, 16, 64)
-    with pytest.raises(BundleError, match=r"`--strides` is '1,a'; expected comma-separated"):
-        parse_strides("1,a")
 
 
 def test_export_from_files(tmp_path, level_files):
@@ -118,7 +111,7 @@ def test_train_from_file(tmp_path):
     assert stepper.strides == (1, 4) and stepper.state_units == ("m", "m/s")
     assert stepper.manifest.validated_horizon == trained.validated_horizon
     report = json.loads((bundle / "report.json").read_text())
-    assert set(report) == {"verification", "validation", "training", "plots"}
+    assert set(report) == {"verification", "validation", "training", "plots", "envelope"}
     assert report["plots"] == ["forecast.png", "error-vs-horizon.png"]
     for name in report["plots"]:
         assert (bundle / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -1,44 +1,204 @@
-"""Loading trajectory files: .npy and .npz keys, shapes, finiteness, refusals."""
+"""Loading trajectory files: every format read back equals what a reference writer wrote
+(NumPy, h5py, xarray), ragged data, metadata, base-step rounding, and the refusals."""
 
 from __future__ import annotations
+
+import json
 
 import numpy as np
 import pytest
 
 from stridecast.export import load_trajectories
+from stridecast.export.data import check_trajectories
+from stridecast.export.data_formats import base_step_from_times
 from stridecast.runtime import StateError
+
+RNG = np.random.default_rng(0)
+# Three trajectories of different lengths, d = 2: the ragged case every format must carry.
+RAGGED = [RNG.normal(size=(length, 2)) for length in (7, 12, 5)]
+
+
+def assert_same(loaded, expected) -> None:
+    assert len(loaded) == len(expected)
+    for got, want in zip(loaded, expected, strict=True):
+        assert got.dtype == np.float64
+        np.testing.assert_array_equal(got, want)
 
 
 def test_npy_single_trajectory(tmp_path):
     path = tmp_path / "one.npy"
     np.save(path, np.arange(12.0).reshape(6, 2))
     data = load_trajectories(path)
-    assert data.trajectories.shape == (1, 6, 2) and data.trajectories.dtype == np.float64
-    assert data.base_step is None and data.state_names is None
+    assert_same(data.trajectories, [np.arange(12.0).reshape(6, 2)])
+    assert data.base_step is None and data.state_names is None and data.time_unit is None
+
+
+def test_npy_regular_trajectories(tmp_path):
+    values = RNG.normal(size=(3, 6, 2))
+    np.save(tmp_path / "many.npy", values)
+    assert_same(load_trajectories(tmp_path / "many.npy").trajectories, list(values))
 
 
 def test_npz_with_all_keys(tmp_path):
     path = tmp_path / "data.npz"
     np.savez(path, trajectories=np.zeros((3, 5, 2), dtype=np.float32), base_step=0.25,
              state_names=np.array(["theta", "omega"]), units=np.array(["rad", "rad/s"]),
-             comment=np.array("ignored"))
+             time_unit=np.array("min"), comment=np.array("ignored"))
     data = load_trajectories(path)
-    assert data.trajectories.shape == (3, 5, 2)
-    assert data.base_step == 0.25
+    assert_same(data.trajectories, [np.zeros((5, 2))] * 3)
+    assert data.base_step == 0.25 and data.time_unit == "min"
     assert data.state_names == ("theta", "omega") and data.units == ("rad", "rad/s")
 
 
+def test_npz_with_one_array_per_trajectory(tmp_path):
+    path = tmp_path / "ragged.npz"
+    np.savez(path, run_a=RAGGED[0], run_b=RAGGED[1], run_c=RAGGED[2],
+             base_step=np.float32(0.01))
+    data = load_trajectories(path)
+    assert_same(data.trajectories, RAGGED)
+    # float32(0.01) is 0.009999999776...; the intended decimal is kept (shortest round trip).
+    assert data.base_step == 0.01
+
+
+def test_folder_of_npy_files_in_natural_order(tmp_path):
+    folder = tmp_path / "runs"
+    folder.mkdir()
+    for index, array in zip((2, 10, 1), RAGGED, strict=True):
+        np.save(folder / f"run{index}.npy", array)
+    (folder / "metadata.json").write_text(json.dumps(
+        {"base_step": 0.5, "state_names": ["q", "p"], "time_unit": "h"}))
+    data = load_trajectories(folder)
+    # run1, run2, run10: digits compare as numbers.
+    assert_same(data.trajectories, [RAGGED[2], RAGGED[0], RAGGED[1]])
+    assert (data.base_step, data.state_names, data.time_unit) == (0.5, ("q", "p"), "h")
+
+
+def test_hdf5_layouts(tmp_path):
+    h5py = pytest.importorskip("h5py")
+    with h5py.File(tmp_path / "one.h5", "w") as handle:
+        handle["trajectories"] = np.stack([RAGGED[0], RAGGED[0] + 1])
+        handle.attrs["base_step"] = np.float32(0.05)
+        handle.attrs["state_names"] = ["x", "y"]
+        handle.attrs["time_unit"] = "s"
+    data = load_trajectories(tmp_path / "one.h5")
+    assert_same(data.trajectories, [RAGGED[0], RAGGED[0] + 1])
+    assert (data.base_step, data.state_names, data.time_unit) == (0.05, ("x", "y"), "s")
+
+    with h5py.File(tmp_path / "group.hdf5", "w") as handle:
+        for index, array in enumerate(RAGGED):
+            handle[f"trajectories/run{index}"] = array.astype(np.float32)
+        handle["units"] = np.array([b"m", b"m/s"])
+    data = load_trajectories(tmp_path / "group.hdf5")
+    assert_same(data.trajectories, [array.astype(np.float32) for array in RAGGED])
+    assert data.units == ("m", "m/s")
+
+    with h5py.File(tmp_path / "root.h5", "w") as handle:
+        for index, array in enumerate(RAGGED):
+            handle[f"run{index}"] = array
+    assert_same(load_trajectories(tmp_path / "root.h5").trajectories, RAGGED)
+
+
+def test_netcdf_and_zarr_one_variable_per_component(tmp_path):
+    xarray = pytest.importorskip("xarray")
+    steps = 12
+    values = np.stack([RAGGED[1], RAGGED[1] * 2])  # (trajectory, time, state)
+    # float32 times 0, 0.1, ... as data logged in single precision would hold them.
+    time = (np.arange(steps) * 0.1).astype(np.float32)
+    dataset = xarray.Dataset(
+        {"height": (("run", "time"), values[..., 0], {"units": "m"}),
+         "speed": (("run", "time"), values[..., 1], {"units": "m/s"})},
+        coords={"time": ("time", time, {"units": "seconds since 2000-01-01"})})
+    dataset.to_netcdf(tmp_path / "runs.nc", engine="h5netcdf")
+    pytest.importorskip("zarr")
+    # Format 2: its consolidated metadata are part of the spec (format 3 warns about them).
+    dataset.to_zarr(tmp_path / "runs.zarr", zarr_format=2)
+    for name in ("runs.nc", "runs.zarr"):
+        data = load_trajectories(tmp_path / name)
+        assert_same(data.trajectories, list(values))
+        assert data.state_names == ("height", "speed") and data.units == ("m", "m/s")
+        assert data.base_step == 0.1 and data.time_unit == "seconds"
+
+
+def test_netcdf_trajectories_variable_and_cf_ragged(tmp_path):
+    xarray = pytest.importorskip("xarray")
+    pytest.importorskip("h5netcdf")
+    regular = np.stack([RAGGED[0], RAGGED[0] - 1])
+    xarray.Dataset({"trajectories": (("run", "step", "state"), regular)},
+                   coords={"state": ["u", "v"]}, attrs={"base_step": 0.2}
+                   ).to_netcdf(tmp_path / "regular.nc", engine="h5netcdf")
+    data = load_trajectories(tmp_path / "regular.nc")
+    assert_same(data.trajectories, list(regular))
+    assert data.state_names == ("u", "v") and data.base_step == 0.2
+
+    # CF conventions 9.3.3, contiguous ragged array: a count variable whose
+    # `sample_dimension` attribute names the dimension it cuts into trajectories.
+    flat = np.concatenate(RAGGED)
+    times = np.concatenate([np.arange(len(array)) * 0.25 for array in RAGGED])
+    xarray.Dataset(
+        {"row_size": ("trajectory", [len(array) for array in RAGGED],
+                      {"sample_dimension": "obs"}),
+         "time": ("obs", times, {"standard_name": "time", "units": "days"}),
+         "a": ("obs", flat[:, 0]), "b": ("obs", flat[:, 1])}
+    ).to_netcdf(tmp_path / "ragged.nc", engine="h5netcdf")
+    data = load_trajectories(tmp_path / "ragged.nc")
+    assert_same(data.trajectories, RAGGED)
+    assert data.state_names == ("a", "b") and data.base_step == 0.25
+    assert data.time_unit == "days"
+
+
+def test_list_input_is_ragged_and_regular_input_equals_its_list():
+    ragged = check_trajectories(RAGGED)
+    assert ragged.lengths.tolist() == [7, 12, 5]
+    assert_same(ragged.to_list(), RAGGED)
+    regular = np.stack([RAGGED[1], RAGGED[1] + 3])
+    assert_same(check_trajectories(regular).to_list(), check_trajectories(list(regular))
+                .to_list())
+
+
+@pytest.mark.parametrize(("times", "expected"), [
+    # float32 grids: the step is the decimal they stand for (shortest round trip).
+    ([(np.arange(10_001) * 0.01).astype(np.float32)], 0.01),
+    ([np.arange(5) * 0.3 + 7.0, np.arange(9) * 0.3], 0.3),
+    ([np.arange(4) * 2], 2.0),
+    # The fewest digits within 1e-6 relative: 0.0123457 is 1.7e-6 away, 0.01234568 is 1e-7.
+    ([np.arange(50) * 0.0123456789], 0.01234568),
+])
+def test_base_step_from_times(times, expected):
+    assert base_step_from_times(times, "f") == expected
+
+
+@pytest.mark.parametrize(("times", "message"), [
+    ([np.array([0.0, 0.1, 0.3])], r"times of trajectory 0 in 'f' are not evenly spaced"),
+    ([np.arange(4) * 0.1, np.arange(4) * 0.2], r"have different time steps"),
+    ([np.array([0.0])], r"too short to give a base step"),
+])
+def test_base_step_from_times_refuses(times, message):
+    with pytest.raises(StateError, match=message):
+        base_step_from_times(times, "f")
+
+
 @pytest.mark.parametrize(("contents", "message"), [
-    ({"states": np.zeros((2, 5, 2))}, r"has keys \['states'\]; the key 'trajectories'"),
     ({"trajectories": np.zeros((2, 5, 2)), "base_step": np.array([0.1, 0.2])},
-     r"`base_step` in .* must be one number"),
+     r"`base_step` in .* must be one number > 0; got array\(\[0\.1, 0\.2\]\)\."),
     ({"trajectories": np.zeros((2, 5, 2)), "state_names": np.array(["a"])},
-     r"`state_names` in .* must be 2 strings; got <U1 array of shape \(1,\)\."),
+     r"`state_names` in .* has 1 entries \['a'\]; the states have 2 components\."),
+    ({"trajectories": np.zeros((2, 5, 2)), "units": np.array([1, 2])},
+     r"`units` in .* must be a list of strings; got int64 array of shape \(2,\)\."),
     ({"trajectories": np.zeros((2, 5, 2, 1))}, r"has shape \(2, 5, 2, 1\); expected \(N, T, d\)"),
-    ({"trajectories": np.zeros((0, 5, 2))}, r"has shape \(0, 5, 2\)"),
+    ({"trajectories": np.zeros((0, 5, 2))}, r"is empty \(shapes \[\]\)"),
+    ({"trajectories": np.zeros(7)}, r"has shape \(7,\); .*\(a scalar series x of shape \(T,\) "
+                                    r"is x\[:, None\]\)\."),
     ({"trajectories": np.array([[[0.0, np.inf]]])},
      r"holds NaN or infinity \(1 values\), first at trajectory 0, step 0, component 1\."),
     ({"trajectories": np.array([[["a", "b"]]])}, r"cannot be read as numbers"),
+    ({"a": np.zeros((5, 2)), "b": np.zeros((6, 3))},
+     r"mixes state sizes: trajectory 0 has 2 components, trajectory 1 has 3;"),
+    ({"base_step": 0.1}, r"holds no trajectories \(keys \['base_step'\]\); expected the key "
+                         r"'trajectories' or one array \(T_i, d\) per trajectory\."),
+    # (d, T) given as (T, d): the names match the first axis.
+    ({"trajectories": np.zeros((3, 400)), "state_names": np.array(["x", "y", "z"])},
+     r"has shape \(3, 400\) per trajectory but 3 state names, matching its first axis: the "
+     r"data look like \(d, T\); transpose them"),
 ])
 def test_refuses_bad_npz(tmp_path, contents, message):
     path = tmp_path / "bad.npz"
@@ -55,12 +215,41 @@ def test_refuses_pickled_objects(tmp_path):
 
 
 @pytest.mark.parametrize(("name", "message"), [
-    ("missing.npy", r"does not exist or is not a file\."),
-    ("data.csv", r"has suffix '\.csv'; expected \.npy or \.npz\."),
+    ("missing.npy", r"does not exist\."),
+    ("data.csv", r"has suffix '\.csv'; expected \.npy, \.npz, a folder of \.npy files, or one "
+                 r"of \['\.h5', '\.hdf5', '\.nc', '\.zarr'\]\."),
     ("broken.npy", r"cannot read .* as a NumPy array"),
+    ("broken.h5", r"cannot read .* as HDF5"),
+    ("broken.nc", r"cannot read .* as NetCDF"),
 ])
 def test_refuses_bad_files(tmp_path, name, message):
     if name != "missing.npy":
         (tmp_path / name).write_text("1,2,3\n")
     with pytest.raises(StateError, match=message):
         load_trajectories(tmp_path / name)
+
+
+def test_refuses_bad_folders(tmp_path):
+    with pytest.raises(StateError, match=r"holds no \.npy files"):
+        load_trajectories(tmp_path)
+    np.save(tmp_path / "a.npy", np.zeros((3, 4, 2)))
+    with pytest.raises(StateError, match=r"a\.npy' has shape \(3, 4, 2\); each file of a "
+                                         r"folder is one trajectory \(T_i, d\)\."):
+        load_trajectories(tmp_path)
+
+
+def test_missing_reader_names_the_extra(tmp_path, monkeypatch):
+    import builtins
+
+    real_import = builtins.__import__
+
+    def without_h5py(name, *args, **kwargs):
+        if name == "h5py":
+            raise ModuleNotFoundError("No module named 'h5py'", name="h5py")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", without_h5py)
+    (tmp_path / "x.h5").write_bytes(b"")
+    with pytest.raises(StateError, match=r"reading \.h5 files needs the package 'h5py'; "
+                                         r'install it with pip install "stridecast\[data\]"\.'):
+        load_trajectories(tmp_path / "x.h5")

@@ -1,0 +1,89 @@
+"""The validity contract: the first-crossing rule, the dense grid, the manifest curve, and
+dense roughness of exact flow maps (scipy.linalg.expm) against the data's own jumps."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from stridecast.export.evaluation import prepare_held_out
+from stridecast.export.validity import (
+    DENSE_POINTS,
+    curve_block,
+    dense_grid,
+    dense_run,
+    manifest_indices,
+    roughness,
+    validated_horizon,
+)
+from tests.export.test_evaluation import BASE_STEP, exact_level, held_out_list
+
+
+@pytest.mark.parametrize(("errors", "expected"), [
+    # The contract's rule: the last time before the FIRST point above the tolerance; a later
+    # dip back under it does not count; 0.0 when the first point exceeds; the tolerance
+    # itself is within.
+    ([0.01, 0.05, 0.1, 0.2, 0.05, 0.01], 3.0),
+    ([0.01, 0.05, 0.08, 0.09, 0.09, 0.099], 6.0),
+    ([0.5, 0.01, 0.01, 0.01, 0.01, 0.01], 0.0),
+    ([0.01, None, 0.01, 0.01, 0.01, 0.01], 1.0),
+    ([0.01, 0.02, float("inf"), 0.0, 0.0, 0.0], 2.0),
+    ([0.01, float("nan"), 0.0, 0.0, 0.0, 0.0], 1.0),
+])
+def test_validated_horizon_first_crossing(errors, expected):
+    times = [1.0, 2.0, 3.0, 4.0, 5.0, 6.0]
+    assert validated_horizon(times, errors, 0.1) == expected
+
+
+def test_validated_horizon_without_points():
+    assert validated_horizon([], [], 0.1) is None
+
+
+def test_dense_grid():
+    assert list(dense_grid(10, 2)) == [2, 4, 6, 8, 10]
+    assert len(dense_grid(3, 4)) == 0
+    # Beyond DENSE_POINTS multiples the spacing doubles until they fit.
+    grid = dense_grid(15 * DENSE_POINTS, 3)  # 5 · DENSE_POINTS multiples: spacing 8
+    assert np.all(np.diff(grid) == 3 * 8) and len(grid) <= DENSE_POINTS
+    assert grid[-1] <= 15 * DENSE_POINTS and grid[0] == 3 * 8
+
+
+def test_manifest_thinning_keeps_the_crossing():
+    errors = np.linspace(0.0, 0.3, 1000)  # crosses 0.1 between indices 333 and 334
+    keep = manifest_indices(errors, 0.1, limit=64)
+    assert len(keep) <= 66 and {333, 334} <= set(keep.tolist())
+    times = np.arange(1, 1001) * 0.5
+    # The rule on the thinned curve gives the same horizon as on the full one.
+    assert (validated_horizon(times[keep], errors[keep], 0.1)
+            == validated_horizon(times, errors, 0.1) == 334 * 0.5)
+    assert list(manifest_indices(errors[:50], 0.1)) == list(range(50))
+
+
+def test_exact_levels_are_as_smooth_as_the_data():
+    levels = {1: exact_level(1), 4: exact_level(4)}
+    data = prepare_held_out(held_out_list())
+    run = dense_run(levels, data, dense_grid(data.longest, 1))
+    assert list(run.steps) == list(range(1, 40))
+    assert np.all(run.errors < 1e-5)
+    block = curve_block(run, base_step=BASE_STEP, tolerance=0.1, reference_std=[2.0, 3.0])
+    assert block["metric"] == "normalised_rms" and block["reference_std"] == [2.0, 3.0]
+    assert block["times"] == pytest.approx(list(np.arange(1, 40) * BASE_STEP))
+    figures = roughness(run, horizon_steps=20)
+    inside, beyond = figures["inside"], figures["beyond"]
+    assert inside["pairs"] == 20 and beyond["pairs"] == 19
+    # Expected: the flow map is exact (expm), so the forecasts' jumps are the data's own,
+    # equal up to float32 rounding, and the excess is rounding only.
+    assert inside["ratio"] == pytest.approx(1.0, abs=1e-4)
+    assert beyond["ratio"] == pytest.approx(1.0, abs=1e-4)
+    assert inside["largest_excess"] < 1e-5
+
+
+def test_roughness_finds_a_plan_switch():
+    # A stride-4 level 10 % too strong: forecasts at 3 and 4 base steps take different plans
+    # (1+1+1 against 4), so the dense forecast jumps there more than the data do.
+    levels = {1: exact_level(1), 4: exact_level(4, factor=1.1)}
+    data = prepare_held_out(held_out_list())
+    run = dense_run(levels, data, dense_grid(data.longest, 1))
+    inside = roughness(run, horizon_steps=39)["inside"]
+    assert inside["at_base_steps"] % 4 == 0
+    assert inside["ratio"] > 1.5 and inside["largest_excess"] > 0.05
