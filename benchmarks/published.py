@@ -108,22 +108,9 @@ def test_data(system: PublishedSystem, scale: Scale, lyapunov_time: float, *,
     return grid * grid_step, truth[:, grid * finest].transpose(1, 0, 2)
 
 
-def finest_only(stepper: Any, trained: Any, workdir: Path) -> Any:
-    """The finest level alone: `Stepper.with_levels` when the runtime has it, else a bundle
-    exported with only that level."""
-    finest = min(stepper.strides)
-    if hasattr(stepper, "with_levels"):
-        return stepper.with_levels((finest,))
-    from stridecast.export import export_bundle
-    from stridecast.runtime import load
-    path = export_bundle({finest: trained.levels[finest]}, workdir / "finest.bundle",
-                         base_step=trained.base_step, mean=trained.mean, scale=trained.scale,
-                         update=trained.update, overwrite=True)
-    return load(path)
-
-
 def tolerance_of(stepper: Any) -> float:
-    validation = getattr(stepper.manifest, "validation", None)
+    """The bundle's tolerance (the contract's default when it records no validation)."""
+    validation = stepper.manifest.validation
     return DEFAULT_TOLERANCE if validation is None else float(validation.tolerance)
 
 
@@ -184,7 +171,7 @@ def run(system: PublishedSystem, scale: Scale, workdir: Path, *, lyapunov_expone
     bundle = export_bundle(trained, workdir / f"{system.name}.bundle", name=system.name,
                            overwrite=True)
     stepper = load(bundle)
-    finest = finest_only(stepper, trained, workdir)
+    finest = stepper.with_levels((min(stepper.strides),))
     seconds["export"] = time.perf_counter() - started
 
     started = time.perf_counter()
