@@ -118,7 +118,7 @@ def test_train_from_file(tmp_path):
     assert stepper.strides == (1, 4) and stepper.state_units == ("m", "m/s")
     assert stepper.manifest.validated_horizon == trained.validated_horizon
     report = json.loads((bundle / "report.json").read_text())
-    assert set(report) == {"verification", "validation", "training", "plots"}
+    assert set(report) == {"verification", "validation", "training", "plots", "envelope"}
     assert report["plots"] == ["forecast.png", "error-vs-horizon.png"]
     for name in report["plots"]:
         assert (bundle / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
