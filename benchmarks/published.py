@@ -72,6 +72,7 @@ class Outcome:
     tolerance: float
     validated_horizon: float | None
     error_at_horizon: float | None
+    bundle_error_at_horizon: float | None
     median_divergence_hierarchy: float
     median_divergence_finest: float
     warned_past_horizon: bool
@@ -79,6 +80,7 @@ class Outcome:
     far_state_distance: float
     warned_inside: bool
     warning_messages: list[str] = field(default_factory=list)
+    selection_scores: dict[str, float | None] = field(default_factory=dict)
     seconds: dict[str, float] = field(default_factory=dict)
 
     @property
@@ -211,13 +213,23 @@ def run(system: PublishedSystem, scale: Scale, workdir: Path, *, lyapunov_expone
         system=system.name, lyapunov_exponent=lyapunov_exponent, lyapunov_time=lyapunov_time,
         strides_trained=list(system.strides), strides_kept=list(stepper.strides),
         tolerance=tolerance, validated_horizon=horizon, error_at_horizon=error_at_horizon,
+        bundle_error_at_horizon=None if horizon is None else float(
+            stepper.expected_error(horizon)),
         median_divergence_hierarchy=float(np.median(hierarchy_times)) / lyapunov_time,
         median_divergence_finest=float(np.median(finest_times)) / lyapunov_time,
         warned_past_horizon=bool(past_messages), warned_far_state=bool(far_messages),
         far_state_distance=distance, warned_inside=bool(inside_messages),
         warning_messages=past_messages[:1] + far_messages[:1] + inside_messages[:1],
         seconds={key: round(value, 2) for key, value in seconds.items()},
+        selection_scores=_selection_scores(trained.validation),
     )
+
+
+def _selection_scores(validation: Any) -> dict[str, float | None]:
+    """The trainer's score of every level subset it tried ("1,4" -> score; lower is better)."""
+    selection = (validation or {}).get("selection") or {}
+    return {",".join(map(str, c["strides"])): c["score"]
+            for c in selection.get("candidates", [])}
 
 
 def _grid_samples(t: float, system: PublishedSystem) -> int:
