@@ -83,6 +83,20 @@ class Outcome:
     selection_scores: dict[str, float | None] = field(default_factory=dict)
     seconds: dict[str, float] = field(default_factory=dict)
 
+    def summary(self) -> str:
+        """The figures the requirements are about, on one line."""
+        def number(value: float | None) -> str:
+            return "none" if value is None else f"{value:.4g}"
+
+        return (f"{self.system}: kept {self.strides_kept} of {self.strides_trained}; median "
+                f"divergence {self.median_divergence_hierarchy:.3f} (hierarchy) vs "
+                f"{self.median_divergence_finest:.3f} (finest only) Lyapunov times; validated "
+                f"horizon {number(self.validated_horizon)}, error there "
+                f"{number(self.error_at_horizon)} on test states and "
+                f"{number(self.bundle_error_at_horizon)} by the bundle, tolerance "
+                f"{self.tolerance}; warned past horizon {self.warned_past_horizon}, far state "
+                f"{self.warned_far_state} (distance {self.far_state_distance:.3g})")
+
     @property
     def hierarchy_holds(self) -> bool:
         return self.median_divergence_hierarchy >= self.median_divergence_finest

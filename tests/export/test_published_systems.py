@@ -29,7 +29,7 @@ from stridecast.benchmarks import published, systems
 # the medians; the comparisons asserted below do not depend on them.
 LYAPUNOV = {"lorenz63": 0.9056, "hindmarsh_rose": 0.015, "lorenz96_two_scale": 6.0}
 SMALL = {
-    "lorenz63": published.Scale(trajectories=100, samples=512, hidden=(32, 32), epochs=10,
+    "lorenz63": published.Scale(trajectories=60, samples=512, hidden=(32, 32), epochs=6,
                                 test_states=128, lyapunov_times=8.0, spacing=1.0),
     "hindmarsh_rose": published.Scale(trajectories=100, samples=600, hidden=(32, 32),
                                       epochs=10, test_states=128, lyapunov_times=8.0,
@@ -53,20 +53,21 @@ def outcome(request, tmp_path_factory):
 
 
 def test_hierarchy_lasts_at_least_as_long_as_the_finest_level_alone(outcome):
-    assert outcome.median_divergence_hierarchy >= outcome.median_divergence_finest, outcome
+    assert (outcome.median_divergence_hierarchy
+            >= outcome.median_divergence_finest), outcome.summary()
 
 
 def test_error_at_the_validated_horizon_is_within_the_tolerance(outcome):
-    assert outcome.validated_horizon is not None, outcome
-    assert outcome.error_at_horizon <= outcome.tolerance, outcome
+    assert outcome.validated_horizon is not None, outcome.summary()
+    assert outcome.error_at_horizon <= outcome.tolerance, outcome.summary()
 
 
 def test_extrapolation_warning_past_the_horizon(outcome):
-    assert outcome.warned_past_horizon, outcome
+    assert outcome.warned_past_horizon, outcome.summary()
 
 
 def test_extrapolation_warning_far_from_the_data(outcome):
     # The state lies inside the training box (corners shrunk by 10 %), so only the data
     # envelope can flag it; it is at least half a standard deviation from every training state.
-    assert outcome.far_state_distance > 0.5, outcome
-    assert outcome.warned_far_state, outcome
+    assert outcome.far_state_distance > 0.5, outcome.summary()
+    assert outcome.warned_far_state, outcome.summary()
