@@ -66,3 +66,15 @@ def divergence_times(prediction: np.ndarray, truth: np.ndarray, times: np.ndarra
     exceeded = normalised_errors(prediction, truth, reference_std) > threshold
     first = np.argmax(exceeded, axis=0)
     return np.where(exceeded.any(axis=0), np.asarray(times, np.float64)[first], np.inf)
+
+
+def bootstrap_interval(prediction: np.ndarray, truth: np.ndarray, reference_std: np.ndarray, *,
+                       resamples: int = 2000, seed: int = 0) -> tuple[float, float]:
+    """5 % and 95 % quantiles of `normalised_rms` over states resampled with replacement
+    (the percentile bootstrap, common practice): how much the figure owes to the sample."""
+    errors = normalised_errors(prediction, truth, reference_std)
+    rng = np.random.default_rng(seed)
+    picks = rng.integers(0, len(errors), size=(resamples, len(errors)))
+    values = np.sqrt(np.mean(errors[picks] ** 2, axis=1))
+    low, high = np.quantile(values, [0.05, 0.95])
+    return float(low), float(high)

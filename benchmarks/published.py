@@ -20,7 +20,12 @@ from typing import Any
 
 import numpy as np
 
-from .divergence import DIVERGENCE_THRESHOLD, divergence_times, normalised_rms
+from .divergence import (
+    DIVERGENCE_THRESHOLD,
+    bootstrap_interval,
+    divergence_times,
+    normalised_rms,
+)
 from .systems import PublishedSystem, attractor_states, trajectories
 
 # The contract's default tolerance, used when a bundle records none (older exporters).
@@ -73,6 +78,7 @@ class Outcome:
     validated_horizon: float | None
     error_at_horizon: float | None
     bundle_error_at_horizon: float | None
+    error_at_horizon_interval: tuple[float, float] | None
     median_divergence_hierarchy: float
     median_divergence_finest: float
     warned_past_horizon: bool
@@ -92,7 +98,8 @@ class Outcome:
                 f"divergence {self.median_divergence_hierarchy:.3f} (hierarchy) vs "
                 f"{self.median_divergence_finest:.3f} (finest only) Lyapunov times; validated "
                 f"horizon {number(self.validated_horizon)}, error there "
-                f"{number(self.error_at_horizon)} on test states and "
+                f"{number(self.error_at_horizon)} on test states (90 % bootstrap interval "
+                f"{self.error_at_horizon_interval}) and "
                 f"{number(self.bundle_error_at_horizon)} by the bundle, tolerance "
                 f"{self.tolerance}; warned past horizon {self.warned_past_horizon}, far state "
                 f"{self.warned_far_state} (distance {self.far_state_distance:.3g})")
@@ -191,7 +198,10 @@ def run(system: PublishedSystem, scale: Scale, workdir: Path, *, lyapunov_expone
     seconds["export"] = time.perf_counter() - started
 
     started = time.perf_counter()
-    reference_std = train.reshape(-1, system.dim).std(axis=0)
+    # The metric's reference: the bundle's own (the training split's std) when it has one.
+    validation = stepper.manifest.validation
+    reference_std = (train.reshape(-1, system.dim).std(axis=0) if validation is None
+                     else np.asarray(validation.reference_std, dtype=np.float64))
     initial = truth[0]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -203,7 +213,7 @@ def run(system: PublishedSystem, scale: Scale, workdir: Path, *, lyapunov_expone
 
     horizon = stepper.manifest.validated_horizon
     tolerance = tolerance_of(stepper)
-    error_at_horizon = None
+    error_at_horizon, interval = None, None
     if horizon is not None:
         index = int(np.argmin(np.abs(times - horizon)))
         if horizon > 0 and not math.isclose(times[index], horizon, rel_tol=1e-6):
@@ -212,9 +222,10 @@ def run(system: PublishedSystem, scale: Scale, workdir: Path, *, lyapunov_expone
                 warnings.simplefilter("ignore")
                 exact = stepper.advance(initial, horizon)
             true_state = trajectories(system, initial, _grid_samples(horizon, system))[:, -1]
-            error_at_horizon = normalised_rms(exact, true_state, reference_std)
         else:
-            error_at_horizon = normalised_rms(deployed[index], truth[index], reference_std)
+            exact, true_state = deployed[index], truth[index]
+        error_at_horizon = normalised_rms(exact, true_state, reference_std)
+        interval = bootstrap_interval(exact, true_state, reference_std)
 
     past = 2.0 * horizon if horizon else 2.0 * times[-1]
     state, distance = far_state(train)
@@ -227,6 +238,7 @@ def run(system: PublishedSystem, scale: Scale, workdir: Path, *, lyapunov_expone
         system=system.name, lyapunov_exponent=lyapunov_exponent, lyapunov_time=lyapunov_time,
         strides_trained=list(system.strides), strides_kept=list(stepper.strides),
         tolerance=tolerance, validated_horizon=horizon, error_at_horizon=error_at_horizon,
+        error_at_horizon_interval=interval,
         bundle_error_at_horizon=None if horizon is None else float(
             stepper.expected_error(horizon)),
         median_divergence_hierarchy=float(np.median(hierarchy_times)) / lyapunov_time,

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from stridecast.benchmarks.divergence import (
+    bootstrap_interval,
     divergence_times,
     normalised_errors,
     normalised_rms,
@@ -36,3 +37,13 @@ def test_a_non_finite_forecast_has_diverged():
     prediction = np.array([[[0.0]], [[np.nan]], [[0.0]]])
     found = divergence_times(prediction, np.zeros((3, 1, 1)), np.arange(3.0), np.ones(1))
     np.testing.assert_array_equal(found, [1.0])
+
+
+def test_bootstrap_interval_brackets_the_figure_and_collapses_without_spread():
+    rng = np.random.default_rng(0)
+    prediction = rng.standard_normal((400, 3))
+    low, high = bootstrap_interval(prediction, np.zeros((400, 3)), np.ones(3))
+    assert low < normalised_rms(prediction, np.zeros((400, 3)), np.ones(3)) < high
+    # Every state with the same error: every resample gives that error.
+    same = np.ones((50, 2))
+    assert bootstrap_interval(same, np.zeros((50, 2)), np.ones(2)) == (1.0, 1.0)
