@@ -123,7 +123,7 @@ class Envelope:
             else:  # evenly spaced, with up to half the budget on the last visit (the answers)
                 last = min(batch, budget // 2)
                 rows = np.unique(np.concatenate((
-                    np.linspace(0, total - 1, budget - last).astype(np.int64),
+                    np.linspace(0, total - last - 1, budget - last).astype(np.int64),
                     np.arange(total - last, total))))
                 normalised = (flat[rows] - self.mean) / self.scale
             distance, index = self.index.nearest(normalised, within=self.radius)
