@@ -57,7 +57,10 @@ class Envelope:
     Parameters
     ----------
     lower, upper : array_like, shape (d,) or None
-        The box (min/max of the training data, physical units).
+        The box (min/max of the training data, physical units). With samples, the box is
+        widened by `radius` · scale in each component: a state outside the widened box is
+        farther than `radius` from every sample, so box findings never contradict the
+        data-based check (a state just past the min/max but near the data is not reported).
     mean, scale : array_like, shape (d,)
         The normalisation z = (x − mean) / scale the samples are expressed in.
     samples : ndarray, shape (N, d), optional
@@ -72,13 +75,14 @@ class Envelope:
 
     def __init__(self, lower, upper, *, mean, scale, samples: np.ndarray | None = None,
                  radius: float = 1.0, max_work: int = 1 << 24):
-        self.lower = None if lower is None else np.asarray(lower, dtype=np.float64)
-        self.upper = None if upper is None else np.asarray(upper, dtype=np.float64)
         self.mean = np.asarray(mean, dtype=np.float64)
         self.scale = np.asarray(scale, dtype=np.float64)
         self.radius = float(radius)
         self.max_work = int(max_work)
         self.index = None if samples is None else SampleIndex(samples)
+        margin = 0.0 if samples is None else self.radius * self.scale
+        self.lower = None if lower is None else np.asarray(lower, dtype=np.float64) - margin
+        self.upper = None if upper is None else np.asarray(upper, dtype=np.float64) + margin
         if self.lower is not None:
             width = self.upper - self.lower
             self._width = np.where(width > 0, width, self.scale)

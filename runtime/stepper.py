@@ -483,9 +483,10 @@ class Stepper:
             return ()
         manifest = self._manifest
         entry = manifest.envelope_samples
+        envelope = self._data_envelope
         return envelope_findings(
-            self._data_envelope.assess(visits, times), names=manifest.state_names,
-            units=manifest.state_units, lower=manifest.envelope_min, upper=manifest.envelope_max,
+            envelope.assess(visits, times), names=manifest.state_names,
+            units=manifest.state_units, lower=envelope.lower, upper=envelope.upper,
             radius=None if entry is None else entry.radius, visit_times=path,
             unit=manifest.time_unit)
 

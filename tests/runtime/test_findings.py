@@ -29,16 +29,17 @@ def assessment(batch: int, **changes) -> Assessment:
     return Assessment(**fields)
 
 
-def word(result: Assessment, *, path: bool = True):
+def word(result: Assessment, *, path: bool = True, radius: float | None = 0.2):
     return envelope_findings(result, names=NAMES, units=UNITS, lower=[-1.0] * 5,
-                             upper=[1.0] * 5, radius=0.2, visit_times=path, unit="s")
+                             upper=[1.0] * 5, radius=radius, visit_times=path, unit="s")
 
 
 def test_box_message_names_components_worst_first_and_limits_the_list():
     excess = np.zeros((3, 5))
     excess[0] = [0.1, 0.0, 0.3, 0.05, 0.2]
     excess[2] = [0.0, 0.4, 0.0, 0.0, 0.0]
-    (finding,) = word(assessment(3, box_excess=excess, box_time=np.array([2.5, np.inf, 1.25])))
+    (finding,) = word(assessment(3, box_excess=excess, box_time=np.array([2.5, np.inf, 1.25])),
+                      radius=None)  # no samples: the plain min/max box
     assert finding.kind == "outside_box" and finding.states == (0, 2)
     assert finding.components == ("b", "c", "e", "a", "d")
     assert finding.t == 1.25 and finding.amount == pytest.approx(0.4)

@@ -81,8 +81,16 @@ def test_plan_and_forecast_carry_expected_error(oscillator):
     assert finding["amount"] == 5.0 and finding["states"] == []
 
 
-def test_path_leaving_the_box_mid_way_warns_with_time_and_amount(oscillator):
-    stepper = load(oscillator, dtype="float64")
+@pytest.fixture(scope="module")
+def boxed(tmp_path_factory):
+    """The same oscillator with the min/max box only (as older bundles have)."""
+    out = tmp_path_factory.mktemp("trust") / "boxed.bundle"
+    return linear_bundle(out, OSCILLATOR, base_step=BASE, strides=(1, 2, 4),
+                         envelope=([-1.2, -2.1], [1.2, 2.1]), validated_horizon=1.0)
+
+
+def test_path_leaving_the_box_mid_way_warns_with_time_and_amount(boxed):
+    stepper = load(boxed, dtype="float64")
     start = np.array([1.1, 0.0])
     # 7 base steps = 4 + 2 + 1: visits at 4, 6 and 7 base steps. At 6 (3/4 of a period,
     # 2t = 3π/2) v = 2.2 > 2.1; at the end (7) the state is back inside the box.
@@ -166,9 +174,12 @@ def test_unstable_system_leaves_the_envelope_in_a_forecast(tmp_path):
     # Reference: scipy.linalg.expm.
     np.testing.assert_allclose(result, [expm(growth * t) @ start for t in times], rtol=1e-12)
     kinds = {f.kind: f for f in info.findings}
-    # x = e^{0.4 t} passes 2 at t = ln 2 / 0.4 ≈ 1.73: the first visited time past it is 2.0.
-    assert kinds["outside_box"].t == pytest.approx(2.0)
-    assert kinds["outside_box"].components == ("x0",)
+    # With samples the box is widened by the radius: |x| ≤ 2.25. x = e^{0.4 t} passes it at
+    # t = ln 2.25 / 0.4 ≈ 2.03; the visited times are 0.25, 0.5, 1, 2, 3, so the first is 3.
+    box = kinds["outside_box"]
+    assert box.t == pytest.approx(3.0) and box.components == ("x0",)
+    assert box.amount == pytest.approx((math.exp(1.2) - 2.25) / 4.5, rel=1e-9)
+    assert "widened by the radius), first at t = 3 s: x0 by up to" in box.message
     # y = 0.5 e^{−0.2 t} is 0.5 from the samples' line at the start: far from the data.
     assert kinds["far_from_data"].t == 0.0
     assert len(record) == 1  # one warning per call, joining the findings
