@@ -479,11 +479,11 @@ class Stepper:
 
     def _envelope_findings(self, visits: np.ndarray, times: np.ndarray, *, path: bool
                            ) -> tuple[Finding, ...]:
-        if not self._data_envelope.active:
-            return ()
+        envelope = self._data_envelope
+        if not envelope.active or (envelope.index is None and envelope.inside_box(visits)):
+            return ()  # the common case without samples costs three array operations
         manifest = self._manifest
         entry = manifest.envelope_samples
-        envelope = self._data_envelope
         return envelope_findings(
             envelope.assess(visits, times), names=manifest.state_names,
             units=manifest.state_units, lower=envelope.lower, upper=envelope.upper,
