@@ -502,6 +502,9 @@ class Stepper:
         if answers is not None:
             parts.append(answers.reshape(-1, batch, dim))
             times = np.concatenate((visit_times, answer_times))
+        envelope = self._data_envelope
+        if envelope.index is None and all(envelope.inside_box(part) for part in parts):
+            return ()  # nothing to report: spare the copy of every visited state
         return self._envelope_findings(np.concatenate(parts), times, path=True)
 
     # ------------------------------------------------------------------------------ internals

@@ -125,8 +125,10 @@ def test_state_far_from_data_inside_the_box(oscillator):
         in finding.message
     with pytest.warns(ExtrapolationWarning, match=r"far from the training data from the start"):
         stepper.advance(start, 2 * BASE)
-    with pytest.warns(ExtrapolationWarning, match=r"1 of 2 states is far from the training"):
+    with pytest.warns(ExtrapolationWarning, match=r"1 of 2 states is far from the training") \
+            as record:
         stepper.forecast(np.array([[0.0, 0.0], [1.0, 0.0]]), [BASE, 2 * BASE])
+    assert record[0].filename == __file__  # through forecast → forecast_with_info
 
 
 def test_time_beyond_horizon_warns_and_policies(oscillator):
