@@ -44,6 +44,9 @@ from .validation import (
 from .waves import build_schedule, node_base_steps, run_schedule
 
 _PLAN_CACHE_SIZE = 4096
+# Visited states up to this many values are copied into one array and checked at once (fewer
+# NumPy calls); larger paths without samples are checked in place first.
+_COPY_VALUES = 1 << 16
 VectorField = Callable[[np.ndarray], np.ndarray]
 Kernel = Callable[[np.ndarray], np.ndarray]
 
@@ -503,7 +506,8 @@ class Stepper:
             parts.append(answers.reshape(-1, batch, dim))
             times = np.concatenate((visit_times, answer_times))
         envelope = self._data_envelope
-        if envelope.index is None and all(envelope.inside_box(part) for part in parts):
+        large = sum(part.size for part in parts) > _COPY_VALUES
+        if large and envelope.index is None and all(map(envelope.inside_box, parts)):
             return ()  # nothing to report: spare the copy of every visited state
         return self._envelope_findings(np.concatenate(parts), times, path=True)
 
