@@ -30,8 +30,7 @@ class Assessment:
         Earliest visit time outside the box, `inf` if never.
     distance_ratio : ndarray, shape (B,)
         Largest nearest-sample distance / radius over the checked visits (nan without
-        samples). Exact when above 1; at or below 1 it may be an upper bound (a sample within
-        the radius was found, not necessarily the nearest).
+        samples).
     far_time : ndarray, shape (B,)
         Earliest checked visit time with distance > radius, `inf` if never.
     worst_offset : ndarray, shape (B, d)
@@ -57,7 +56,10 @@ class Envelope:
     Parameters
     ----------
     lower, upper : array_like, shape (d,) or None
-        The box (min/max of the training data, physical units).
+        The box (min/max of the training data, physical units). With samples, the box is
+        widened by `radius` · scale in each component: a state outside the widened box is
+        farther than `radius` from every sample, so box findings never contradict the
+        data-based check (a state just past the min/max but near the data is not reported).
     mean, scale : array_like, shape (d,)
         The normalisation z = (x − mean) / scale the samples are expressed in.
     samples : ndarray, shape (N, d), optional
@@ -72,13 +74,14 @@ class Envelope:
 
     def __init__(self, lower, upper, *, mean, scale, samples: np.ndarray | None = None,
                  radius: float = 1.0, max_work: int = 1 << 24):
-        self.lower = None if lower is None else np.asarray(lower, dtype=np.float64)
-        self.upper = None if upper is None else np.asarray(upper, dtype=np.float64)
         self.mean = np.asarray(mean, dtype=np.float64)
         self.scale = np.asarray(scale, dtype=np.float64)
         self.radius = float(radius)
         self.max_work = int(max_work)
         self.index = None if samples is None else SampleIndex(samples)
+        margin = 0.0 if samples is None else self.radius * self.scale
+        self.lower = None if lower is None else np.asarray(lower, dtype=np.float64) - margin
+        self.upper = None if upper is None else np.asarray(upper, dtype=np.float64) + margin
         if self.lower is not None:
             width = self.upper - self.lower
             self._width = np.where(width > 0, width, self.scale)
@@ -87,6 +90,12 @@ class Envelope:
     def active(self) -> bool:
         """Whether there is anything to check (a box or samples)."""
         return self.lower is not None or self.index is not None
+
+    def inside_box(self, visits: np.ndarray) -> bool:
+        """Whether every state of `visits` (any shape ending in d) lies inside the box."""
+        if self.lower is None:
+            return True
+        return not ((visits < self.lower) | (visits > self.upper)).any()
 
     def assess(self, visits: np.ndarray, times: np.ndarray) -> Assessment:
         """Measure every visited state.
@@ -106,8 +115,10 @@ class Envelope:
         times = np.asarray(times, dtype=np.float64)
         box_excess = np.zeros((batch, dim))
         box_time = np.full(batch, np.inf)
-        # The common case, every state inside, costs three array operations.
-        if self.lower is not None and ((visits < self.lower) | (visits > self.upper)).any():
+        # Without samples, the common case (every state inside) costs three array operations.
+        # With samples, a state outside the widened box is also far from every (training)
+        # sample, so the box is looked at only when some state is far.
+        if self.index is None and not self.inside_box(visits):
             self._box(visits, times, box_excess, box_time)
         ratio = np.full(batch, np.nan)
         far_time = np.full(batch, np.inf)
@@ -123,10 +134,10 @@ class Envelope:
             else:  # evenly spaced, with up to half the budget on the last visit (the answers)
                 last = min(batch, budget // 2)
                 rows = np.unique(np.concatenate((
-                    np.linspace(0, total - 1, budget - last).astype(np.int64),
+                    np.linspace(0, total - last - 1, budget - last).astype(np.int64),
                     np.arange(total - last, total))))
                 normalised = (flat[rows] - self.mean) / self.scale
-            distance, index = self.index.nearest(normalised, within=self.radius)
+            distance, index = self.index.nearest(normalised)
             checked = distance.size
             ratios = distance / self.radius
             if rows is None:
@@ -136,6 +147,8 @@ class Envelope:
                 np.fmax.at(ratio, rows % batch, ratios)
             far = ratios > 1.0
             if far.any():
+                if not self.inside_box(visits):
+                    self._box(visits, times, box_excess, box_time)
                 row_visit, row_batch = np.divmod(rows, batch)
                 np.minimum.at(far_time, row_batch[far], times[row_visit[far]])
                 # Offset from the nearest sample at each row's worst visit.

@@ -106,9 +106,9 @@ def envelope_findings(assessment: Assessment, *, names: Sequence[str],
     names, units : sequence of str, length d
         State component names and units.
     lower, upper : sequence of float or None
-        The box, for the message.
+        The box as checked (`Envelope.lower`/`upper`: widened by the radius with samples).
     radius : float or None
-        The samples' radius, for the message.
+        The samples' radius (None without samples), for the message.
     visit_times : bool
         Whether the visits were along a path (times are then named); False for initial
         states alone.
@@ -138,10 +138,11 @@ def envelope_findings(assessment: Assessment, *, names: Sequence[str],
             more = len(order) - _LISTED
             parts.append(f"and {more} more component{'s' if more > 1 else ''}")
         verb = _verb(rows, batch, "leaves", "leave")
+        widened = "" if radius is None else ", widened by the radius"
         findings.append(Finding(
             kind="outside_box",
             message=(f"{_rows(rows, batch).capitalize()} {verb} the training range (the "
-                     f"min/max of the training data){at}: {'; '.join(parts)}."),
+                     f"min/max of the training data{widened}){at}: {'; '.join(parts)}."),
             states=tuple(int(r) for r in rows),
             components=tuple(names[i] for i in order),
             t=t, amount=float(worst.max()),

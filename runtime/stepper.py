@@ -44,6 +44,9 @@ from .validation import (
 from .waves import build_schedule, node_base_steps, run_schedule
 
 _PLAN_CACHE_SIZE = 4096
+# Visited states up to this many values are copied into one array and checked at once (fewer
+# NumPy calls); larger paths without samples are checked in place first.
+_COPY_VALUES = 1 << 16
 VectorField = Callable[[np.ndarray], np.ndarray]
 Kernel = Callable[[np.ndarray], np.ndarray]
 
@@ -479,13 +482,14 @@ class Stepper:
 
     def _envelope_findings(self, visits: np.ndarray, times: np.ndarray, *, path: bool
                            ) -> tuple[Finding, ...]:
-        if not self._data_envelope.active:
-            return ()
+        envelope = self._data_envelope
+        if not envelope.active or (envelope.index is None and envelope.inside_box(visits)):
+            return ()  # the common case without samples costs three array operations
         manifest = self._manifest
         entry = manifest.envelope_samples
         return envelope_findings(
-            self._data_envelope.assess(visits, times), names=manifest.state_names,
-            units=manifest.state_units, lower=manifest.envelope_min, upper=manifest.envelope_max,
+            envelope.assess(visits, times), names=manifest.state_names,
+            units=manifest.state_units, lower=envelope.lower, upper=envelope.upper,
             radius=None if entry is None else entry.radius, visit_times=path,
             unit=manifest.time_unit)
 
@@ -501,6 +505,10 @@ class Stepper:
         if answers is not None:
             parts.append(answers.reshape(-1, batch, dim))
             times = np.concatenate((visit_times, answer_times))
+        envelope = self._data_envelope
+        large = sum(part.size for part in parts) > _COPY_VALUES
+        if large and envelope.index is None and all(map(envelope.inside_box, parts)):
+            return ()  # nothing to report: spare the copy of every visited state
         return self._envelope_findings(np.concatenate(parts), times, path=True)
 
     # ------------------------------------------------------------------------------ internals

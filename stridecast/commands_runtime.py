@@ -11,7 +11,8 @@ from pathlib import Path
 
 import numpy as np
 
-from stridecast.runtime import BundleError, StateError, Stepper, TimeError, load
+from stridecast.runtime import BundleError, Finding, StateError, TimeError, load
+from stridecast.runtime.findings import WARNING_KINDS
 
 DEMO_BUNDLE = Path(__file__).parent / "data" / "crane-demo.bundle"
 
@@ -55,10 +56,17 @@ def inspect_command(arguments: argparse.Namespace) -> int:
         print("envelope")
         for name, low, high in zip(state["names"], envelope["min"], envelope["max"], strict=True):
             print(f"  {name:<12} [{low:.6g}, {high:.6g}]")
+        samples = envelope.get("samples")
+        if samples:
+            print(f"  samples      {samples['count']} training states ({samples['file']}); far "
+                  f"from the data beyond {samples['radius']:.4g} (normalised units)")
+        else:
+            print("  samples      not recorded (the min/max box only)")
     else:
         print("envelope    not recorded")
     horizon = manifest.get("validated_horizon")
     print(f"validated   {'not recorded' if horizon is None else f'{horizon:g} {unit}'}")
+    _print_validation(manifest.get("validation"), unit)
     report = description.get("report")
     if report:
         print("report")
@@ -66,6 +74,22 @@ def inspect_command(arguments: argparse.Namespace) -> int:
             text = json.dumps(value)
             print(f"  {key}: {text if len(text) < 200 else text[:197] + '...'}")
     return 0
+
+
+def _print_validation(validation: dict | None, unit: str, points: int = 6) -> None:
+    """The held-out error curve: metric, tolerance and a few points spread over it."""
+    if not validation:
+        print("validation  no held-out error curve recorded")
+        return
+    times, errors = validation["times"], validation["errors"]
+    print(f"validation  {validation['metric']} held-out error, tolerance "
+          f"{validation['tolerance']:g}; {len(times)} curve points")
+    shown = sorted({round(i * (len(times) - 1) / max(points - 1, 1))
+                    for i in range(min(points, len(times)))})
+    for index in shown:
+        error = errors[index]
+        text = "diverged" if error is None else f"{error:.4g}"
+        print(f"  t = {times[index]:<10g} {unit:<3} error {text}")
 
 
 def _read_states(arguments: argparse.Namespace) -> np.ndarray:
@@ -88,35 +112,42 @@ def _read_states(arguments: argparse.Namespace) -> np.ndarray:
     return np.asarray(rows[0] if len(rows) == 1 else rows, dtype=np.float64)
 
 
-def _warnings(stepper: Stepper, states: np.ndarray, last_time: float) -> list[str]:
-    messages = []
-    if np.any(stepper.outside_envelope(states)):
-        messages.append("the initial state lies outside the training envelope; the forecast "
-                        "is an extrapolation.")
-    horizon = stepper.manifest.validated_horizon
-    if horizon is not None and last_time > horizon:
-        messages.append(f"t = {last_time:g} is beyond the validated horizon "
-                        f"({horizon:g} {stepper.manifest.time_unit}).")
-    return messages
+def _warnings(findings: tuple[Finding, ...]) -> list[str]:
+    """The messages of the findings that make an answer an extrapolation."""
+    return [finding.message for finding in findings if finding.kind in WARNING_KINDS]
 
 
-def _print_caution(warnings: list[str]) -> None:
+def _error_or_none(value: float) -> float | None:
+    return float(value) if np.isfinite(value) else None
+
+
+def _error_text(value: float) -> str:
+    if np.isnan(value):
+        return "not recorded"
+    return "unbounded" if np.isinf(value) else f"{value:.3g}"
+
+
+def _print_caution(findings: tuple[Finding, ...]) -> None:
     from stridecast.cli import CAUTION
 
-    for message in warnings:
-        print(f"warning: {message}", file=sys.stderr)
+    for finding in findings:
+        label = "warning" if finding.kind in WARNING_KINDS else "note"
+        print(f"{label}: {finding.message}", file=sys.stderr)
     print(CAUTION, file=sys.stderr)
 
 
 def advance_command(arguments: argparse.Namespace) -> int:
-    stepper = load(bundle_path(arguments), dtype=arguments.dtype)
+    # Findings come back with the plan (every visited state and the time checked); the CLI
+    # prints them itself rather than through Python warnings.
+    stepper = load(bundle_path(arguments), dtype=arguments.dtype, on_extrapolation="ignore")
     states = _read_states(arguments)
     result, plan = stepper.advance_with_plan(states, arguments.t, off_grid=arguments.off_grid)
-    warnings = _warnings(stepper, states, arguments.t)
     if arguments.json:
         print(json.dumps({"t": arguments.t, "state": result.tolist(),
                           "state_names": list(stepper.state_names), "plan": plan.to_dict(),
-                          "warnings": warnings}))
+                          "expected_error": _error_or_none(plan.expected_error),
+                          "findings": [finding.to_dict() for finding in plan.findings],
+                          "warnings": _warnings(plan.findings)}))
     else:
         steps = " + ".join(f"{count}×{stride}" for stride, count in plan.steps) or "none"
         print(f"t = {arguments.t:g} {stepper.manifest.time_unit}  (method {plan.method}; "
@@ -125,7 +156,9 @@ def advance_command(arguments: argparse.Namespace) -> int:
         print("  ".join(f"{name:>14}" for name in stepper.state_names))
         for row in rows:
             print("  ".join(f"{value:>14.7g}" for value in row))
-    _print_caution(warnings)
+        print(f"expected error {_error_text(plan.expected_error)} (held-out normalised RMS at "
+              "this time)")
+    _print_caution(plan.findings)
     return 0
 
 
@@ -145,26 +178,35 @@ def _times(arguments: argparse.Namespace) -> np.ndarray:
 
 
 def forecast_command(arguments: argparse.Namespace) -> int:
-    stepper = load(bundle_path(arguments), dtype=arguments.dtype)
+    stepper = load(bundle_path(arguments), dtype=arguments.dtype, on_extrapolation="ignore")
     states = _read_states(arguments)
     if states.ndim != 1:
         raise StateError("`forecast` on the command line takes one initial state.")
     times = _times(arguments)
     result, info = stepper.forecast_with_info(states, times, off_grid=arguments.off_grid)
-    warnings = _warnings(stepper, states, float(times.max()))
     if arguments.out:
         _write_table(Path(arguments.out), times, result, stepper.state_names)
         print(f"wrote {len(times)} states to {arguments.out} ({info.evaluations} network "
               f"evaluations in {info.network_calls} batched calls)")
+        if np.isfinite(info.expected_error).any() or np.isinf(info.expected_error).any():
+            print(f"expected error {_error_text(float(info.expected_error.max()))} at most "
+                  "(held-out normalised RMS)")
     elif arguments.json:
         print(json.dumps({"times": times.tolist(), "states": result.tolist(),
                           "state_names": list(stepper.state_names),
-                          "evaluations": info.evaluations, "warnings": warnings}))
+                          "evaluations": info.evaluations,
+                          "expected_error": [_error_or_none(v) for v in info.expected_error],
+                          "findings": [finding.to_dict() for finding in info.findings],
+                          "warnings": _warnings(info.findings)}))
     else:
-        print(f"{'t':>10}  " + "  ".join(f"{name:>14}" for name in stepper.state_names))
-        for t, row in zip(times, result, strict=True):
-            print(f"{t:>10.6g}  " + "  ".join(f"{value:>14.7g}" for value in row))
-    _print_caution(warnings)
+        known = not np.isnan(info.expected_error).all()
+        error_header = f"  {'exp. error':>10}" if known else ""
+        print(f"{'t':>10}  " + "  ".join(f"{name:>14}" for name in stepper.state_names)
+              + error_header)
+        for t, row, error in zip(times, result, info.expected_error, strict=True):
+            error_cell = f"  {_error_text(error):>10}" if known else ""
+            print(f"{t:>10.6g}  " + "  ".join(f"{value:>14.7g}" for value in row) + error_cell)
+    _print_caution(info.findings)
     return 0
 
 

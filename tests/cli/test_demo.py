@@ -126,7 +126,8 @@ def test_shipped_bundle_verifies_and_is_small():
 def test_shipped_bundle_still_matches_ground_truth_within_its_stated_tolerance():
     # Reference: SciPy solve_ivp DOP853 (crane.simulate), at the tolerances report.json names.
     check = _report(SHIPPED_BUNDLE)["demo"]["check"]
-    stepper = load(SHIPPED_BUNDLE)
+    # Some check states graze the min/max box mid-path; the error is measured regardless.
+    stepper = load(SHIPPED_BUNDLE, on_extrapolation="ignore")
     states = np.asarray(check["states"])
     truth = crane.simulate(states, check["horizons"], rtol=check["ground_truth"]["rtol"],
                            atol=check["ground_truth"]["atol"])

@@ -75,3 +75,70 @@ def test_every_command_has_help_with_example():
         result = subprocess.run([sys.executable, "-m", "stridecast", command, "--help"],
                                 capture_output=True, text=True, check=True)
         assert "example:" in result.stdout
+
+
+# ---------------------------------------------------------------------------- trust output
+def trusted_bundle(tmp_path):
+    """The oscillator with a validation curve (horizon 1.0) and its unit orbit as samples."""
+    from stridecast.runtime import ValidationCurve
+
+    ring = np.stack([np.cos(np.linspace(0, 2 * np.pi, 360, endpoint=False)),
+                     2 * np.sin(np.linspace(0, 2 * np.pi, 360, endpoint=False))], axis=1)
+    curve = ValidationCurve(metric="normalised_rms", tolerance=0.1, reference_std=(1.0, 2.0),
+                            times=(0.5, 1.0, 1.5), errors=(0.02, 0.06, 0.3))
+    return linear_bundle(tmp_path / "trusted.bundle", oscillator_matrix(), base_step=0.1,
+                         strides=(1, 4, 16), envelope=([-1.2, -2.4], [1.2, 2.4]),
+                         samples=ring, radius=0.3, validation=curve,
+                         validated_horizon=1.0)
+
+
+def test_advance_reports_expected_error_and_findings(tmp_path, capsys):
+    from stridecast.runtime import load
+
+    bundle = trusted_bundle(tmp_path)
+    assert main(["advance", str(bundle), "--state", "1,0", "--t", "0.8", "--json"]) == 0
+    captured = capsys.readouterr()
+    answer = json.loads(captured.out)
+    # Reference: numpy.interp on the curve with (0, 0) prepended.
+    assert answer["expected_error"] == pytest.approx(np.interp(0.8, [0, 0.5, 1.0], [0, .02, .06]))
+    assert answer["findings"] == [] and answer["warnings"] == []
+    # Far from the data (the fixed point, 1 from the ring) and beyond the horizon: the CLI
+    # prints the runtime's own words.
+    assert main(["advance", str(bundle), "--state", "0,0", "--t", "1.2", "--json"]) == 0
+    captured = capsys.readouterr()
+    answer = json.loads(captured.out)
+    kinds = [finding["kind"] for finding in answer["findings"]]
+    assert kinds == ["far_from_data", "beyond_horizon"]
+    _, plan = load(bundle, on_extrapolation="ignore").advance_with_plan(np.zeros(2), 1.2)
+    assert answer["warnings"] == [finding.message for finding in plan.findings]
+    for finding in plan.findings:
+        assert f"warning: {finding.message}" in captured.err
+    assert main(["advance", str(bundle), "--state", "1,0", "--t", "0.5"]) == 0
+    assert "expected error 0.02 (held-out normalised RMS" in capsys.readouterr().out
+
+
+def test_forecast_reports_expected_error_per_time(tmp_path, capsys):
+    bundle = trusted_bundle(tmp_path)
+    assert main(["forecast", str(bundle), "--state", "1,0", "--times", "0.5,2.0", "--json"]) == 0
+    answer = json.loads(capsys.readouterr().out)
+    assert answer["expected_error"] == [0.02, None]  # past the curve: unbounded → null
+    assert [f["kind"] for f in answer["findings"]] == ["beyond_horizon"]
+    assert answer["findings"][0]["message"].startswith("1 of 2 requested times (t = 2 s) is")
+    assert main(["forecast", str(bundle), "--state", "1,0", "--times", "0.5,2.0"]) == 0
+    captured = capsys.readouterr()
+    assert "exp. error" in captured.out and "unbounded" in captured.out
+    assert "warning: 1 of 2 requested times" in captured.err
+
+
+def test_inspect_shows_validation_and_samples(tmp_path, capsys):
+    bundle = trusted_bundle(tmp_path)
+    assert main(["inspect", str(bundle)]) == 0
+    text = capsys.readouterr().out
+    assert "samples      360 training states (envelope/samples.npy); far from the data " \
+           "beyond 0.3 (normalised units)" in text
+    assert "validation  normalised_rms held-out error, tolerance 0.1; 3 curve points" in text
+    assert "error 0.06" in text and "validated   1 s" in text
+    assert main(["inspect", str(bundle), "--json"]) == 0
+    manifest = json.loads(capsys.readouterr().out)["manifest"]
+    assert manifest["validation"]["errors"] == [0.02, 0.06, 0.3]
+    assert manifest["envelope"]["samples"]["count"] == 360
