@@ -25,8 +25,10 @@ Levels = Mapping[int, torch.nn.Module]
 # Start states drawn from the held-out trajectories (evenly spaced in time within each).
 # Every forecast batch carries them all, so this bounds the cost of each network call.
 MAX_START_STATES = 256
-# Targets per schedule: bounds the memory of one run to about this many · B · d values.
-TARGETS_PER_RUN = 256
+# Values (targets · B · d) one schedule run may hold: about 64 MiB of float32 results. Runs
+# are split into chunks of targets beyond it; each chunk re-runs the shared coarse prefixes,
+# so bigger chunks waste less.
+VALUES_PER_RUN = 1 << 24
 
 
 @dataclass(frozen=True)
@@ -106,7 +108,7 @@ def forecasts(levels: Levels, initial: np.ndarray, targets: Sequence[int]
     Yields
     ------
     chunk : list of int
-        Consecutive targets of the request (at most `TARGETS_PER_RUN`).
+        Consecutive targets of the request (as many as fit in `VALUES_PER_RUN`).
     states : ndarray, shape (len(chunk), B, d), float32
         The forecasts, inf or NaN where a forecast diverged.
     """
@@ -119,8 +121,9 @@ def forecasts(levels: Levels, initial: np.ndarray, targets: Sequence[int]
 
     initial = np.ascontiguousarray(initial, dtype=np.float32)
     targets = list(targets)
-    for first in range(0, len(targets), TARGETS_PER_RUN):
-        chunk = targets[first:first + TARGETS_PER_RUN]
+    per_run = max(1, VALUES_PER_RUN // initial.size)
+    for first in range(0, len(targets), per_run):
+        chunk = targets[first:first + per_run]
         yield chunk, run_schedule(build_schedule(chunk, planner), initial, step)
 
 

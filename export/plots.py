@@ -34,7 +34,8 @@ def write_plots(directory: Path, example: ForecastExample, validation: Mapping[s
     written = [_forecast_figure(figure_class, directory, example, labels, time_unit)]
     horizons = (validation or {}).get("horizons") or []
     if horizons:
-        written.append(_error_figure(figure_class, directory, horizons, time_unit))
+        written.append(_error_figure(figure_class, directory, horizons, time_unit,
+                                     validation))
     return written
 
 
@@ -68,7 +69,7 @@ def _forecast_figure(figure_class: Any, directory: Path, example: ForecastExampl
 
 
 def _error_figure(figure_class: Any, directory: Path, horizons: Sequence[Mapping[str, Any]],
-                  time_unit: str) -> str:
+                  time_unit: str, validation: Mapping[str, Any]) -> str:
     times = np.array([row["time"] for row in horizons], dtype=float)
     figure = figure_class(figsize=(6.5, 4.2))
     axis = figure.subplots()
@@ -76,10 +77,18 @@ def _error_figure(figure_class: Any, directory: Path, horizons: Sequence[Mapping
                               ("finest_only_rmse", "finest level only", "s--")):
         values = np.array([row[key] for row in horizons], dtype=float)
         axis.plot(times, values, style, label=label)
+    curve = validation.get("curve")
+    if curve:  # the deployed hierarchy on the dense grid, its tolerance and validated horizon
+        values = np.array([np.nan if e is None else e for e in curve["errors"]], dtype=float)
+        axis.plot(curve["times"], values, "-", color="tab:blue", lw=0.8, alpha=0.6)
+        axis.axhline(validation["tolerance"], color="gray", ls=":", label="tolerance")
+        if validation.get("validated_horizon"):
+            axis.axvline(validation["validated_horizon"], color="gray", ls="--",
+                         label="validated horizon")
     axis.set_xscale("log")
     axis.set_yscale("log")
     axis.set_xlabel(f"horizon [{time_unit}]")
-    axis.set_ylabel("RMSE (normalised units)")
+    axis.set_ylabel("normalised RMS error")
     axis.set_title("Held-out error against horizon")
     axis.grid(True, which="both", alpha=0.3)
     axis.legend()

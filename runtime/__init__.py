@@ -5,6 +5,8 @@ from __future__ import annotations
 from .bundle import read_manifest, sha256_hex, write_bundle
 from .errors import (
     BundleError,
+    ExtrapolationError,
+    ExtrapolationWarning,
     ModelFormatError,
     NonFiniteError,
     StateError,
@@ -12,6 +14,7 @@ from .errors import (
     TimeError,
     UnsupportedOperatorError,
 )
+from .findings import Finding
 from .limits import DEFAULT_LIMITS, Limits
 from .loader import load
 from .manifest import (
@@ -32,6 +35,9 @@ __all__ = [
     "SAMPLES_FILE",
     "BundleError",
     "EnvelopeSamples",
+    "ExtrapolationError",
+    "ExtrapolationWarning",
+    "Finding",
     "ForecastInfo",
     "LevelEntry",
     "Limits",

@@ -14,7 +14,7 @@ from scipy.integrate import solve_ivp
 from scipy.special import ellipk
 
 from stridecast.export import export_bundle, train_levels
-from stridecast.runtime import load
+from stridecast.runtime import ExtrapolationWarning, load
 
 GRAVITY, LENGTH = 9.81, 1.0
 BASE_STEP = 0.01
@@ -66,7 +66,9 @@ def test_period_at_large_amplitude(stepper):
     amplitude = 2.0
     expected = period(amplitude)  # ≈ 2.67 s, a third longer than the 2.01 s of small swings
     times = np.arange(int(3.2 * expected / BASE_STEP)) * BASE_STEP
-    theta = stepper.forecast(np.array([amplitude, 0.0]), times)[:, 0].astype(np.float64)
+    # The held-out trajectories cover 2 s; the runtime says the later times are unvalidated.
+    with pytest.warns(ExtrapolationWarning, match="beyond the validated horizon"):
+        theta = stepper.forecast(np.array([amplitude, 0.0]), times)[:, 0].astype(np.float64)
     falling = np.flatnonzero((theta[:-1] > 0) & (theta[1:] <= 0))
     crossings = times[falling] + BASE_STEP * theta[falling] / (theta[falling] - theta[falling + 1])
     assert len(crossings) >= 3
@@ -80,7 +82,8 @@ def test_hierarchy_beats_finest_level_at_long_horizon(stepper):
     amplitudes = np.linspace(0.5, 2.2, 8)
     starts = np.stack([amplitudes, np.zeros_like(amplitudes)], axis=1)
     truth = np.stack([trajectory(start, horizon + 1)[-1] for start in starts])
-    hierarchical = stepper.advance(starts, horizon * BASE_STEP).astype(np.float64)
+    with pytest.warns(ExtrapolationWarning, match="beyond the validated horizon"):
+        hierarchical = stepper.advance(starts, horizon * BASE_STEP).astype(np.float64)
     assert stepper.plan(horizon * BASE_STEP).steps == ((16, 25),)
     finest = starts.astype(np.float32)
     for _ in range(horizon):
@@ -88,3 +91,29 @@ def test_hierarchy_beats_finest_level_at_long_horizon(stepper):
     hierarchical_error = np.sqrt(np.mean((hierarchical - truth) ** 2))
     finest_error = np.sqrt(np.mean((finest.astype(np.float64) - truth) ** 2))
     assert hierarchical_error < finest_error, (hierarchical_error, finest_error)
+
+
+@pytest.mark.slow
+def test_validity_and_envelope_travel_with_the_bundle(stepper):
+    manifest = stepper.manifest
+    curve = manifest.validation
+    assert curve.metric == "normalised_rms" and curve.tolerance == 0.1
+    horizon = manifest.validated_horizon
+    assert horizon > 0
+    # The first-crossing rule on the manifest's own curve.
+    within = [t for t, e in zip(curve.times, curve.errors, strict=True) if t <= horizon]
+    assert max(within) == horizon and all(
+        e <= curve.tolerance for t, e in zip(curve.times, curve.errors, strict=True)
+        if t <= horizon)
+    assert stepper.expected_error(horizon) <= curve.tolerance
+    assert manifest.envelope_samples.count > 100 and manifest.envelope_samples.radius > 0
+    # Energy E = ω²/2 + (g/L)(1 − cos θ) (standard mechanics): the training orbits have
+    # E ≤ (g/L)(1 − cos 2.5) ≈ 17.7. (θ, ω) = (2.4, 5.5) has E ≈ 32, far from every orbit,
+    # yet each component lies inside the training range (|θ| ≤ 2.5, |ω| ≤ √(2 · 17.7) ≈ 5.9).
+    far = np.array([2.4, 5.5])
+    assert 0.5 * far[1] ** 2 + GRAVITY / LENGTH * (1 - np.cos(far[0])) > 30
+    kinds = {finding.kind for finding in stepper.check(far)}
+    assert "far_from_data" in kinds and "outside_box" not in kinds
+    assert stepper.check(np.array([1.0, 0.0])) == ()
+    with pytest.warns(ExtrapolationWarning):
+        stepper.advance(np.array([1.0, 0.0]), 2.0 * horizon + 1.0)
