@@ -7,6 +7,7 @@ from .errors import (
     BundleError,
     ModelFormatError,
     NonFiniteError,
+    OptionError,
     StateError,
     StridecastError,
     TimeError,
@@ -17,6 +18,7 @@ from .loader import load
 from .manifest import LevelEntry, Manifest, parse_manifest, parse_manifest_text
 from .plan import Plan
 from .stepper import ForecastInfo, Stepper
+from .threads import ThreadPolicy
 
 __all__ = [
     "DEFAULT_LIMITS",
@@ -27,10 +29,12 @@ __all__ = [
     "Manifest",
     "ModelFormatError",
     "NonFiniteError",
+    "OptionError",
     "Plan",
     "StateError",
     "Stepper",
     "StridecastError",
+    "ThreadPolicy",
     "TimeError",
     "UnsupportedOperatorError",
     "load",

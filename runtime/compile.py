@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .graph import BoundNode, Program
+from .threads import ThreadPolicy
 
 # Activations that NumPy can apply in place without temporaries.
 _IN_PLACE: dict[str, Callable[[np.ndarray], object]] = {
@@ -54,17 +55,29 @@ Stage = Affine | Activation
 
 
 class GenericKernel:
-    """Runs the interpreter on normalised states and applies the update form."""
+    """Runs the interpreter on normalised states and applies the update form.
+
+    With a thread policy, large batches run with BLAS at one thread; they are never split,
+    since a general graph may mix the rows of a batch.
+    """
 
     path = "interpreter"
 
-    def __init__(self, program: Program, mean: np.ndarray, scale: np.ndarray, update: str):
+    def __init__(self, program: Program, mean: np.ndarray, scale: np.ndarray, update: str,
+                 policy: ThreadPolicy | None = None):
         self.program = program
         self.mean = mean
         self.scale = scale
         self.update = update
+        self.policy = policy
 
     def __call__(self, state: np.ndarray) -> np.ndarray:
+        policy = self.policy
+        if policy is not None and policy.applies(state.shape[0]):
+            return policy.run(self._run, state, splittable=False)
+        return self._run(state)
+
+    def _run(self, state: np.ndarray) -> np.ndarray:
         normalised = (state - self.mean) / self.scale
         network = np.asarray(self.program.run(normalised))
         if network.shape != state.shape:
@@ -80,13 +93,17 @@ class ChainKernel:
     Small batches run with the bias folded into the weights (a constant-one column appended to
     each activation buffer), which halves the number of NumPy calls per layer; large batches run
     with plain contiguous buffers, where BLAS throughput matters more than call overhead.
+    With a thread policy, large batches run with BLAS at one thread and are split by rows over
+    the policy's threads (every stage maps rows independently).
     """
 
     path = "affine-chain"
 
     def __init__(self, stages: Sequence[Stage], *, residual: bool,
-                 input_shift: np.ndarray | None, input_scale: np.ndarray | None):
+                 input_shift: np.ndarray | None, input_scale: np.ndarray | None,
+                 policy: ThreadPolicy | None = None):
         self.residual = residual
+        self.policy = policy
         # Only set when the first stage is not affine, so the normalisation cannot be folded.
         self.input_shift = input_shift
         self.input_scale = input_scale
@@ -176,6 +193,13 @@ class ChainKernel:
     def __call__(self, state: np.ndarray) -> np.ndarray:
         if state.shape[0] == 1 and self.input_shift is None and not self.leading:
             return self._single(state)
+        policy = self.policy
+        if policy is not None and policy.applies(state.shape[0]):
+            return policy.run(self._batch, state, splittable=True)
+        return self._batch(state)
+
+    def _batch(self, state: np.ndarray) -> np.ndarray:
+        """Any batch of two or more states (or one, when the vector path does not apply)."""
         hidden = state
         if self.input_shift is not None:
             hidden = (state - self.input_shift) / self.input_scale
@@ -231,16 +255,22 @@ def _group_layers(stages: Sequence[Stage]) -> tuple[tuple[Activation, ...], tupl
 
 
 def make_kernel(program: Program, *, mean: Sequence[float], scale: Sequence[float],
-                update: str, fast_path: bool = True) -> GenericKernel | ChainKernel:
-    """Build the kernel of one level: the fast chain where recognised, else the interpreter."""
+                update: str, fast_path: bool = True, policy: ThreadPolicy | None = None
+                ) -> GenericKernel | ChainKernel:
+    """Build the kernel of one level: the fast chain where recognised, else the interpreter.
+
+    `policy` (shared by the levels of one stepper) decides how large batches use threads;
+    None runs every batch as called, with BLAS as the process has it.
+    """
     dtype = program.dtype
     mean_array = np.asarray(mean, dtype=dtype)
     scale_array = np.asarray(scale, dtype=dtype)
     if fast_path:
         stages = recognise_chain(program)
         if stages is not None and _widths_chain(stages, mean_array.size):
-            return _fold_normalisation(stages, mean_array, scale_array, update, dtype)
-    return GenericKernel(program, mean_array, scale_array, update)
+            return _fold_normalisation(stages, mean_array, scale_array, update, dtype,
+                                       policy)
+    return GenericKernel(program, mean_array, scale_array, update, policy)
 
 
 def _widths_chain(stages: Sequence[Stage], dim: int) -> bool:
@@ -394,7 +424,7 @@ def _bias_vector(value: np.ndarray, width: int) -> np.ndarray | None:
 
 
 def _fold_normalisation(stages: list[Stage], mean: np.ndarray, scale: np.ndarray, update: str,
-                        dtype: np.dtype) -> ChainKernel:
+                        dtype: np.dtype, policy: ThreadPolicy | None = None) -> ChainKernel:
     """Fold z = (x − mean)/scale into the first affine and x' = … into the last."""
     stages = list(stages)
     # Fold in float64 so the folded weights are as close as possible to the exact product.
@@ -425,4 +455,4 @@ def _fold_normalisation(stages: list[Stage], mean: np.ndarray, scale: np.ndarray
         for s in stages
     ]
     return ChainKernel(stages, residual=residual, input_shift=input_shift,
-                       input_scale=input_scale)
+                       input_scale=input_scale, policy=policy)

@@ -13,12 +13,14 @@ from .graph import build_program
 from .limits import DEFAULT_LIMITS, Limits
 from .onnx_reader import read_model
 from .stepper import Stepper
+from .threads import ThreadPolicy
 
 DTYPES = ("float32", "float64")
 
 
 def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool = True,
-         limits: Limits = DEFAULT_LIMITS, fast_path: bool = True) -> Stepper:
+         limits: Limits = DEFAULT_LIMITS, fast_path: bool = True,
+         threads: int | None = None) -> Stepper:
     """Load a bundle directory and return a `Stepper`.
 
     Parameters
@@ -36,10 +38,16 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
     fast_path : bool
         Use the compiled affine-chain kernels where the graph allows (default); False runs
         every level in the generic interpreter.
+    threads : int, optional
+        Threads a large batch is split over (default: the CPUs this process may use, from
+        ``os.sched_getaffinity`` where available). Batches of 17 states or more run with BLAS
+        at one thread, restoring the caller's setting afterwards; 1 never splits. Batches
+        below that run as called. See the README's "Threads" section.
     """
     if dtype not in DTYPES and np.dtype(dtype).name not in DTYPES:
         raise BundleError(f"`dtype` is {dtype!r}; expected one of {list(DTYPES)}.")
     compute = np.dtype(dtype)
+    policy = ThreadPolicy(threads)
     root = open_bundle_root(path)
     manifest = read_manifest(root, limits=limits)
     too_large = [entry.stride for entry in manifest.levels if entry.stride > limits.max_stride]
@@ -57,7 +65,8 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
             program = build_program(model, input_name=entry.input, output_name=entry.output,
                                     dtype=compute, max_nodes=limits.max_graph_nodes)
             kernel = make_kernel(program, mean=manifest.mean, scale=manifest.scale,
-                                 update=manifest.update, fast_path=fast_path)
+                                 update=manifest.update, fast_path=fast_path,
+                                 policy=policy)
             _probe(kernel, manifest.mean, compute, where)
         except ModelFormatError as error:
             raise type(error)(f"{where}: {error}") from error
