@@ -23,6 +23,7 @@ from stridecast import crane
 from stridecast.benchmarks import (
     bundle_bench,
     environment,
+    neighbour,
     plot,
     report,
     solver_bench,
@@ -238,14 +239,37 @@ def test_environment_record_names_thread_settings():
     json.dumps(record)
 
 
-def test_threading_note_only_when_default_threads_are_far_slower(bench_result):
-    slow = copy.deepcopy(bench_result)
-    for row in slow["batch"]:
-        row["times"]["stridecast"]["p50"] *= 10
-    passes = {"default": slow, "1 BLAS thread": bench_result}
-    notes = report.threading_notes(passes)
-    assert len(notes) == 1 and "OPENBLAS_NUM_THREADS=1" in notes[0]
-    assert report.threading_notes({"default": bench_result, "1 BLAS thread": bench_result}) == []
+def test_busy_note_gives_the_share_of_throughput_kept(bench_result):
+    busy = copy.deepcopy(bench_result)
+    for row in busy["batch"]:
+        for times in row["times"].values():
+            times["throughput"] /= 4
+    notes = report.busy_notes({"default": bench_result, "busy neighbour": busy})
+    # Expected: a quarter of each throughput, printed as a percentage.
+    assert len(notes) == 1 and "stridecast 25%" in notes[0] and "onnxruntime 25%" in notes[0]
+    assert report.busy_notes({"default": bench_result}) == []
+
+
+def test_busy_target_comes_from_the_busy_pass(bench_result):
+    busy = copy.deepcopy(bench_result)
+    row = busy["batch"][-1]
+    row["batch"] = report.TARGET_BATCH
+    row["times"]["stridecast"]["throughput"] = 3.0
+    row["times"]["onnxruntime"]["throughput"] = 4.0
+    measured = report.measure_targets(bench_result, busy=busy)
+    assert measured["ort_batch4096_busy"] == 0.75
+    assert measured["ort_batch4096"] is None  # the tiny idle run has no batch 4,096
+
+
+def test_busy_neighbour_keeps_a_core_busy_and_stops():
+    import time
+
+    with neighbour.busy_neighbour() as process:
+        assert process.poll() is None
+        begin = time.process_time()
+        time.sleep(0.2)
+        assert time.process_time() - begin < 0.1  # the spinning is not in this process
+    assert process.poll() is not None
 
 
 class _TruthPlusOffset:
