@@ -61,7 +61,8 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
     for entry in manifest.levels:
         where = f"level stride {entry.stride} ({entry.file})"
         try:
-            model = read_model(contents[entry.stride], limits=limits, source=entry.file)
+            # Popped: each file's bytes are freed once parsed (peak memory is a target).
+            model = read_model(contents.pop(entry.stride), limits=limits, source=entry.file)
             program = build_program(model, input_name=entry.input, output_name=entry.output,
                                     dtype=compute, max_nodes=limits.max_graph_nodes)
             kernel = make_kernel(program, mean=manifest.mean, scale=manifest.scale,

@@ -21,11 +21,14 @@ from __future__ import annotations
 import os
 import threading
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .errors import OptionError
+
+if TYPE_CHECKING:
+    from concurrent.futures import ThreadPoolExecutor
 
 # Below this batch BLAS runs single-threaded on its own for these layer widths, and changing
 # the setting would cost more than it saves; it is also where compile.py's large-batch path
@@ -203,6 +206,10 @@ class ThreadPolicy:
         return output
 
     def _executor(self) -> ThreadPoolExecutor:
+        # Imported here: concurrent.futures brings logging and queue, which single-state
+        # users never need (import time and memory are targets too).
+        from concurrent.futures import ThreadPoolExecutor
+
         with self._lock:
             if self._pool is None:
                 # Idle pool threads exit when the policy (and so the executor) is collected.
