@@ -159,6 +159,11 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
         "## Dense forecast",
         report.dense_table(benches),
     ]
+    threads = {label: p["threads"] for label, p in passes.items() if "threads" in p}
+    if threads:
+        sections += ["## Thread policy: where it starts to pay",
+                     report.threads_note(threads.get("default", next(iter(threads.values())))),
+                     report.threads_table(threads)]
     if "solvers" in default:
         sections += ["## Against SciPy `solve_ivp` (crane scenario)",
                      report.solver_note(default["solvers"]),

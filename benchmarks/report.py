@@ -198,6 +198,33 @@ def busy_notes(passes: Mapping[str, Mapping[str, Any]]) -> list[str]:
             "free taking the next chunk; onnxruntime runs with one intra-op thread."]
 
 
+def threads_table(passes: Mapping[str, Mapping[str, Any]]) -> str:
+    """One network call per batch size: no policy, BLAS at one thread, and split."""
+    names = ("as called", "1 thread", "split")
+    lines = ["| Scenario | Batch | " + " | ".join(f"{name} p50" for name in names)
+             + " | split ÷ as called |", "|---|---|" + "---|" * (len(names) + 1)]
+    for label, record in passes.items():
+        for row in record["rows"]:
+            times = row["times"]
+            cells = [format_seconds(times[name]["p50"]) for name in names]
+            ratio = times["split"]["p50"] / times["as called"]["p50"]
+            lines.append(f"| {label} | {row['batch']:,} | " + " | ".join(cells)
+                         + f" | {ratio:.3g}× |")
+    return "\n".join(lines)
+
+
+def threads_note(record: Mapping[str, Any]) -> str:
+    """What the crossover table compares, with the cost of the scope itself."""
+    scope = record["scope"]
+    return (f"One call of the finest level. \"as called\": no policy (BLAS as the process "
+            f"has it); \"1 thread\": `load(..., threads=1)`; \"split\": `load(...)`, "
+            f"{record['threads']} threads. Batches below {record['scope_min_batch']} run as "
+            f"called in every stepper (same code path). Entering and leaving the runtime's "
+            f"BLAS scope costs {format_seconds(scope['runtime'])}; threadpoolctl's "
+            f"`threadpool_limits`, which rescans the loaded libraries each time, "
+            f"{format_seconds(scope['threadpool_limits'])}.")
+
+
 def dense_table(passes: Mapping[str, Mapping[str, Any]]) -> str:
     """Dense forecast against one network call at the same batch."""
     lines = ["| Scenario | Points | Evaluations / calls / depth | forecast | per point | "

@@ -15,7 +15,7 @@ from typing import Any
 
 from stridecast.runtime import load
 
-from . import bundle_bench, environment, solver_bench, system_bench
+from . import bundle_bench, environment, solver_bench, system_bench, threads_bench
 from .neighbour import busy_neighbour
 from .reference import build_reference
 
@@ -50,6 +50,9 @@ def measure_pass(bundle: Path, *, quick: bool, modules=None, crane_bundle: Path 
     record["bench"] = bundle_bench.run(bundle, quick=quick, torch_modules=modules,
                                        work_dir=work_dir)
     record["durations"]["bench"] = time.perf_counter() - begin
+    begin = time.perf_counter()
+    record["threads"] = threads_bench.run(bundle, quick=quick)
+    record["durations"]["threads"] = time.perf_counter() - begin
     if solvers:
         begin = time.perf_counter()
         record["solvers"] = _solvers(bundle, crane_bundle, quick)
@@ -86,6 +89,7 @@ def busy_neighbour_pass(bundle: Path, *, quick: bool, modules=None) -> dict[str,
         record["bench"] = bundle_bench.run(bundle, quick=quick, torch_modules=modules,
                                            horizons=BUSY_HORIZONS, naive=False,
                                            naive_target_steps=BUSY_HORIZONS[0])
+        record["threads"] = threads_bench.run(bundle, quick=quick)
         record["environment"] = {**environment.describe(),
                                  "load_average_start": record["environment"]["load_average"]}
     return record

@@ -34,13 +34,16 @@ if TYPE_CHECKING:
 # the setting would cost more than it saves; it is also where compile.py's large-batch path
 # begins, so chunks of a split batch take the same arithmetic path as the whole batch.
 SCOPE_MIN_BATCH = 17
-# Rows per chunk at least: smaller chunks lose more to BLAS and pool overhead than they gain.
-MIN_CHUNK_ROWS = 256
+# Rows per chunk at least: smaller chunks lose more to BLAS and pool overhead (tens of µs per
+# split) than they gain. 128 lets the waves of a dense forecast (a few hundred states each)
+# split in two.
+MIN_CHUNK_ROWS = 128
 # Chunk boundaries fall on multiples of this many rows, so each chunk's rows sit in the same
 # positions of the BLAS row tiles as in the unsplit batch (and give the same bits).
 CHUNK_ALIGN = 64
-# Chunks per thread: more than one lets an idle core take over the work of a busy one.
-CHUNKS_PER_THREAD = 2
+# Chunks per thread: more than one lets an idle core take over the work of a busy one, and
+# smaller chunks make a thread that loses its core mid-chunk hold up the others less.
+CHUNKS_PER_THREAD = 4
 
 Rows = Callable[[np.ndarray], np.ndarray]
 

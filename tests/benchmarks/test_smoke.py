@@ -28,6 +28,7 @@ from stridecast.benchmarks import (
     report,
     solver_bench,
     system_bench,
+    threads_bench,
 )
 from stridecast.benchmarks.cli import document, main
 from stridecast.benchmarks.competitors import (
@@ -310,3 +311,13 @@ def test_render_redraws_plot_and_writes_markdown_from_json(results, tmp_path, ca
     # The image link is relative to the Markdown file.
     assert "](../out/bench-horizon.png)" in markdown.read_text(encoding="utf-8")
     assert "## Targets" in capsys.readouterr().out
+
+
+def test_thread_crossover_run_and_table(reference):
+    record = threads_bench.run(reference.path, batches=(1, 40), budget=TINY_BUDGET)
+    assert [row["batch"] for row in record["rows"]] == [1, 40]
+    assert set(record["rows"][0]["times"]) == {"as called", "1 thread", "split"}
+    assert record["scope"]["runtime"] > 0 and record["scope"]["threadpool_limits"] > 0
+    rows = _assert_rectangular(report.threads_table({"default": record}))
+    assert len(rows) == 4
+    assert "threadpool_limits" in report.threads_note(record)
