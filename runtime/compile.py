@@ -125,6 +125,8 @@ class ChainKernel:
         self.stages = (*leading, *(stage for layer, activations in self.layers
                                    for stage in (layer, *activations)))
         self._local = threading.local()
+        # One state takes the 1-D path unless something must happen before the first product.
+        self.vector_path = input_shift is None and not leading
 
     def _cache(self) -> OrderedDict:
         cache = getattr(self._local, "cache", None)
@@ -152,46 +154,57 @@ class ChainKernel:
             cache.move_to_end(batch)
         return buffers
 
-    def _vectors(self) -> tuple[tuple[np.ndarray, ...], ...]:
-        """Per-thread 1-D buffers (width + 1, last entry 1), views of their first `width`
-        entries, and the same views as (1, width) rows for the activations."""
-        vectors = getattr(self._local, "vectors", None)
-        if vectors is None:
+    def _vector_plan(self) -> tuple:
+        """Per-thread 1-D buffers for `_single`, laid out as the steps it runs.
+
+        Returns ``(first, steps, last)``: `first` is where the state is copied (the first
+        buffer less its constant-one entry); each step is ``(source, weights, out,
+        activations, target)``, the product ``source @ weights`` written into `out` (a view
+        of the next buffer, whose last entry stays 1 and multiplies the next bias row) and
+        the activations applied in place to `target`, the same memory as (1, width), as at
+        any batch; `last` is ``(source, weights, activations)`` of the final layer, whose
+        result is a fresh array since it leaves the kernel.
+        """
+        plan = getattr(self._local, "vector_plan", None)
+        if plan is None:
             first = self.augmented[0].shape[0] - 1
             widths = [first] + [w.shape[1] for w in self.augmented[:-1]]
-            buffers = tuple(np.ones(width + 1, dtype=self.augmented[0].dtype)
-                            for width in widths)
-            views = tuple(b[:-1] for b in buffers)
-            vectors = self._local.vectors = (buffers, views, tuple(v[None, :] for v in views))
-        return vectors
+            buffers = [np.ones(width + 1, dtype=self.augmented[0].dtype) for width in widths]
+            steps = tuple(
+                (buffers[index], weights, buffers[index + 1][:-1],
+                 tuple(a.function for a in self.layers[index][1]),
+                 buffers[index + 1][None, :-1])
+                for index, weights in enumerate(self.augmented[:-1]))
+            last = (buffers[-1], self.augmented[-1],
+                    tuple(a.function for a in self.layers[-1][1]))
+            plan = self._local.vector_plan = (buffers[0][:-1], steps, last)
+        return plan
 
     def _single(self, state: np.ndarray) -> np.ndarray:
         """One state: 1-D products (matrix-vector, gemv) with the bias row folded in.
 
         At batch 1 the cost is NumPy call overhead, not arithmetic; vectors avoid the 2-D
-        slicing and let BLAS use its matrix-vector kernel.
+        slicing and let BLAS use its matrix-vector kernel, and the loop runs over prepared
+        steps so that each layer costs one product and its activations, little else.
         """
-        buffers, views, rows = self._vectors()
+        first, steps, (source, weights, activations) = self._vector_plan()
         row = state[0]
-        views[0][...] = row
-        hidden = buffers[0]
-        last = len(self.augmented) - 1
-        for index, weights in enumerate(self.augmented):
-            if index == last:
-                hidden = np.dot(hidden, weights)  # fresh: the result leaves the kernel
-                target = hidden[None, :]
-            else:
-                np.dot(hidden, weights, out=views[index + 1])
-                hidden = buffers[index + 1]
-                target = rows[index + 1]
-            for activation in self.layers[index][1]:
-                activation.function(target)  # activations see (1, width), as at any batch
+        first[...] = row
+        dot = np.dot
+        for step_source, step_weights, out, step_activations, target in steps:
+            dot(step_source, step_weights, out=out)
+            for activation in step_activations:
+                activation(target)
+        hidden = dot(source, weights)  # fresh: the result leaves the kernel
+        target = hidden[None, :]
+        for activation in activations:
+            activation(target)
         if self.residual:
             hidden += row
-        return hidden[None, :]
+        return target
 
     def __call__(self, state: np.ndarray) -> np.ndarray:
-        if state.shape[0] == 1 and self.input_shift is None and not self.leading:
+        if state.shape[0] == 1 and self.vector_path:
             return self._single(state)
         policy = self.policy
         if policy is not None and policy.applies(state.shape[0]):
