@@ -5,12 +5,16 @@ runtime's behaviour before it managed threads), "1 thread" (`threads=1`: BLAS he
 thread, no split) and "split" (`threads=None`: BLAS at one thread, rows split over the usable
 CPUs). Also timed: entering and leaving the runtime's BLAS scope, against threadpoolctl's
 `threadpool_limits`, which scans the loaded libraries on every call.
+
+"as called" is timed in its own rounds after the others: OpenBLAS's threads keep spinning for
+a while after a threaded product and would take CPU time from whichever call came next.
 """
 
 from __future__ import annotations
 
 import logging
 import os
+import time
 from collections.abc import Sequence
 from typing import Any
 
@@ -24,6 +28,8 @@ from .timing import Budget, interleaved, summary
 logger = logging.getLogger("benchmarks")
 
 BATCHES = (1, 8, 16, 17, 32, 64, 128, 256, 512, 1024, 4096)
+# Long enough for OpenBLAS's idle threads to stop spinning and sleep (about 0.1 s by default).
+SPIN_SECONDS = 0.3
 
 
 def run(bundle: os.PathLike[str] | str, *, quick: bool = False,
@@ -43,8 +49,11 @@ def run(bundle: os.PathLike[str] | str, *, quick: bool = False,
         states = np.ascontiguousarray(np.tile(mean, (batch, 1)))
         calls = {name: (lambda kernel=kernel, states=states: kernel(states))
                  for name, kernel in kernels.items()}
+        unmanaged = calls.pop("as called")
         samples = interleaved(calls, budget)
-        times = {name: summary(values) for name, values in samples.items()}
+        samples["as called"] = interleaved({"as called": unmanaged}, budget)["as called"]
+        time.sleep(SPIN_SECONDS)
+        times = {name: summary(samples[name]) for name in ("as called", "1 thread", "split")}
         rows.append({"batch": batch, "times": times})
         logger.info("one call at batch %d: %s", batch,
                     {name: f"{value['p50'] * 1e6:.1f} µs" for name, value in times.items()})

@@ -41,9 +41,11 @@ MIN_CHUNK_ROWS = 128
 # Chunk boundaries fall on multiples of this many rows, so each chunk's rows sit in the same
 # positions of the BLAS row tiles as in the unsplit batch (and give the same bits).
 CHUNK_ALIGN = 64
-# Chunks per thread: more than one lets an idle core take over the work of a busy one, and
-# smaller chunks make a thread that loses its core mid-chunk hold up the others less.
-CHUNKS_PER_THREAD = 4
+# Guided chunks: each takes this fraction of the rows left divided by the threads, so the
+# first chunks are large (little overhead) and the last small, and a thread that loses its
+# core mid-chunk (a busy neighbour, an overloaded machine) holds up the others less; a free
+# core meanwhile takes over the chunks a busy one would have had.
+GUIDED_SHARE = 2
 
 Rows = Callable[[np.ndarray], np.ndarray]
 
@@ -167,16 +169,21 @@ class ThreadPolicy:
             return self._split(function, states, bounds)
 
     def chunks(self, batch: int) -> tuple[tuple[int, int], ...]:
-        """Row ranges (start, stop) a batch is split into; one range when it is not split."""
-        if self.threads < 2:
+        """Row ranges (start, stop) a batch is split into, large ones first; one range when it
+        is not split. Every chunk has at least `MIN_CHUNK_ROWS` rows and starts on a multiple
+        of `CHUNK_ALIGN`."""
+        if self.threads < 2 or batch < 2 * MIN_CHUNK_ROWS:
             return ((0, batch),)
-        count = min(self.threads * CHUNKS_PER_THREAD, batch // MIN_CHUNK_ROWS)
-        if count < 2:
-            return ((0, batch),)
-        step = -(-batch // count)
-        step = -(-step // CHUNK_ALIGN) * CHUNK_ALIGN
-        starts = range(0, batch, step)
-        return tuple((start, min(start + step, batch)) for start in starts)
+        bounds = []
+        start = 0
+        while start < batch:
+            size = max(MIN_CHUNK_ROWS, -(-(batch - start) // (self.threads * GUIDED_SHARE)))
+            stop = min(batch, start + -(-size // CHUNK_ALIGN) * CHUNK_ALIGN)
+            if batch - stop < MIN_CHUNK_ROWS:
+                stop = batch  # no chunk below the minimum at the end
+            bounds.append((start, stop))
+            start = stop
+        return tuple(bounds)
 
     def _split(self, function: Rows, states: np.ndarray,
                bounds: tuple[tuple[int, int], ...]) -> np.ndarray:
