@@ -11,6 +11,8 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from stridecast.runtime.threads import SCOPE_MIN_BATCH
+
 from .timing import format_rate, format_seconds
 
 TARGET_STEPS_ORT = 1_000
@@ -193,9 +195,10 @@ def busy_notes(passes: Mapping[str, Mapping[str, Any]]) -> list[str]:
                   for name, times in row["times"].items() if name in other["times"]]
         kept.append(f"batch {row['batch']:,}: " + ", ".join(shares))
     return ["Share of the idle throughput kept with one core busy (busy ÷ default): "
-            + "; ".join(kept) + ". The runtime holds BLAS at one thread around batches of "
-            "17 states or more and splits large batches over its own threads, whoever is "
-            "free taking the next chunk; onnxruntime runs with one intra-op thread."]
+            + "; ".join(kept) + f". The runtime holds BLAS at one thread around batches of "
+            f"{SCOPE_MIN_BATCH} states or more and splits large batches over its own threads, "
+            "whoever is free taking the next chunk; onnxruntime and torch run with one "
+            "intra-op thread."]
 
 
 def threads_table(passes: Mapping[str, Mapping[str, Any]]) -> str:

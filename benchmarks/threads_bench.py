@@ -27,7 +27,7 @@ from .timing import Budget, interleaved, summary
 
 logger = logging.getLogger("benchmarks")
 
-BATCHES = (1, 8, 16, 17, 32, 64, 128, 256, 512, 1024, 4096)
+BATCHES = (1, 8, 16, 17, 31, 32, 64, 128, 256, 512, 1024, 4096)
 # Long enough for OpenBLAS's idle threads to stop spinning and sleep (about 0.1 s by default).
 SPIN_SECONDS = 0.3
 

@@ -40,7 +40,7 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
         every level in the generic interpreter.
     threads : int, optional
         Threads a large batch is split over (default: the CPUs this process may use, from
-        ``os.sched_getaffinity`` where available). Batches of 17 states or more run with BLAS
+        ``os.sched_getaffinity`` where available). Batches of 32 states or more run with BLAS
         at one thread, restoring the caller's setting afterwards; 1 never splits. Batches
         below that run as called. See the README's "Threads" section.
     """

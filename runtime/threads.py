@@ -7,9 +7,10 @@ to one thread and restores the caller's setting afterwards, and when a batch is 
 splits the rows over a small pool of threads itself (NumPy releases the GIL in products and
 ufuncs, so the chunks run on separate cores, tanh included, which BLAS threading never covers).
 
-Batches below `SCOPE_MIN_BATCH` rows are left alone: BLAS does not thread them anyway (the
-crossover measured in docs/benchmarks.md), and they must not pay even the few microseconds of
-changing the setting. `threadpoolctl` is imported only when a large batch first needs it.
+Batches below `SCOPE_MIN_BATCH` rows are left alone: there multi-threaded BLAS did no harm even
+with a core taken, while changing the setting costs 5–8 µs, 10–15 % of a call (the crossover
+measured in docs/benchmarks.md, "Thread policy"). `threadpoolctl` is imported only when a
+large batch first needs it.
 
 The BLAS thread count is a process-wide setting, so the limit is reference-counted: while any
 thread is inside the runtime's large-batch work, BLAS calls elsewhere in the process also run
@@ -30,16 +31,17 @@ from .errors import OptionError
 if TYPE_CHECKING:
     from concurrent.futures import ThreadPoolExecutor
 
-# Below this batch BLAS runs single-threaded on its own for these layer widths, and changing
-# the setting would cost more than it saves; it is also where compile.py's large-batch path
-# begins, so chunks of a split batch take the same arithmetic path as the whole batch.
-SCOPE_MIN_BATCH = 17
+# Below this batch the scope would cost more than it saves (measured: at 17 states it added
+# 10-50 % to a call of the reference model; from 64 on, unmanaged OpenBLAS threads lost up to
+# 100x with a core taken).
+SCOPE_MIN_BATCH = 32
 # Rows per chunk at least: smaller chunks lose more to BLAS and pool overhead (tens of µs per
 # split) than they gain. 128 lets the waves of a dense forecast (a few hundred states each)
 # split in two.
 MIN_CHUNK_ROWS = 128
 # Chunk boundaries fall on multiples of this many rows, so each chunk's rows sit in the same
-# positions of the BLAS row tiles as in the unsplit batch (and give the same bits).
+# positions of the BLAS row tiles as in the unsplit batch (and give the same bits); chunks are
+# far above compile.SMALL_BATCH, so they take the same arithmetic path as the whole batch.
 CHUNK_ALIGN = 64
 # Guided chunks: each takes this fraction of the rows left divided by the threads, so the
 # first chunks are large (little overhead) and the last small, and a thread that loses its
