@@ -35,10 +35,11 @@ if TYPE_CHECKING:
 # 10-50 % to a call of the reference model; from 64 on, unmanaged OpenBLAS threads lost up to
 # 100x with a core taken).
 SCOPE_MIN_BATCH = 32
-# Rows per chunk at least: smaller chunks lose more to BLAS and pool overhead (tens of µs per
-# split) than they gain. 128 lets the waves of a dense forecast (a few hundred states each)
-# split in two.
-MIN_CHUNK_ROWS = 128
+# Rows per chunk at least. Measured on a shared 2-core VM with no core to spare (load average
+# above 2): splitting 256-1,024 states cost 20-70 % (a pool thread that loses its core
+# mid-chunk holds up the caller), 4,096 states broke even idle and gained 10 % with a busy
+# neighbour; on a machine with free cores, smaller chunks would pay. Shared machines first.
+MIN_CHUNK_ROWS = 1024
 # Chunk boundaries fall on multiples of this many rows, so each chunk's rows sit in the same
 # positions of the BLAS row tiles as in the unsplit batch (and give the same bits); chunks are
 # far above compile.SMALL_BATCH, so they take the same arithmetic path as the whole batch.
@@ -193,16 +194,20 @@ class ThreadPolicy:
         taking the next chunk, and gather the results in order."""
         results: list[np.ndarray | None] = [None] * len(bounds)
         state = _Chunks(len(bounds))
+        # NumPy's floating-point error handling is per thread: pool threads take the caller's,
+        # so a split batch warns (or not) exactly as the unsplit one would.
+        errors = np.geterr()
 
         def work() -> None:
-            while (index := state.take()) is not None:
-                start, stop = bounds[index]
-                try:
-                    results[index] = function(states[start:stop])
-                except BaseException as error:  # handed to the caller below
-                    state.fail(error)
-                finally:
-                    state.finish()
+            with np.errstate(**errors):
+                while (index := state.take()) is not None:
+                    start, stop = bounds[index]
+                    try:
+                        results[index] = function(states[start:stop])
+                    except BaseException as error:  # handed to the caller below
+                        state.fail(error)
+                    finally:
+                        state.finish()
 
         pool = self._executor()
         for _ in range(min(self.threads, len(bounds)) - 1):
