@@ -11,6 +11,7 @@ from __future__ import annotations
 import itertools
 import os
 import threading
+import time
 import warnings
 
 import numpy as np
@@ -185,6 +186,23 @@ def test_errors_in_a_chunk_reach_the_caller():
 
     with pytest.raises(ValueError, match="boom"):
         policy.run(failing, states, splittable=True)
+
+
+def test_pool_threads_take_the_callers_floating_point_settings():
+    # NumPy's error handling (np.errstate) is per thread; every chunk must see the caller's.
+    policy = ThreadPolicy(2)
+    seen = []
+
+    def record(rows):
+        seen.append((threading.get_ident(), np.geterr()))
+        time.sleep(0.02)  # long enough that the pool thread takes chunks too
+        return rows
+
+    with np.errstate(over="ignore", invalid="raise", divide="warn", under="ignore"):
+        expected = np.geterr()
+        policy.run(record, np.zeros((LARGE, 2)), splittable=True)
+    assert len({ident for ident, _ in seen}) == 2
+    assert all(settings == expected for _, settings in seen)
 
 
 def test_non_finite_in_a_split_batch_is_reported_like_unsplit(tmp_path):
