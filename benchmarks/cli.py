@@ -12,11 +12,15 @@ from typing import Any
 
 from . import report
 from .plot import plot_horizon
-from .suite import measure_pass, run_suite
+from .suite import BUSY_LABEL, run_suite
 
 RESULTS_NAME = "bench-results.json"
 PLOT_NAME = "bench-horizon.png"
-COMMAND = "python -m benchmarks --out-dir docs --markdown docs/benchmarks.md"
+# OpenBLAS reads OPENBLAS_CORETYPE and OPENBLAS_L2_SIZE when NumPy loads it; a shell that sets
+# them (to work around a VM's CPU detection) would change the BLAS kernel measured, so the
+# documented command clears them and the report names the kernel threadpoolctl found.
+COMMAND = ("env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "
+           "python -m benchmarks --out-dir docs --markdown docs/benchmarks.md")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -36,8 +40,9 @@ def build_parser() -> argparse.ArgumentParser:
                         help=f"where to write {RESULTS_NAME} and {PLOT_NAME} (default: .)")
     parser.add_argument("--markdown", type=Path, metavar="FILE",
                         help="also write the Markdown report to FILE")
-    parser.add_argument("--no-single-thread", action="store_true",
-                        help="skip the second pass with OPENBLAS_NUM_THREADS=1")
+    parser.add_argument("--no-busy-neighbour", action="store_true",
+                        help="skip the second pass, run while another process keeps one core "
+                             "busy")
     parser.add_argument("--via-export", action="store_true",
                         help="write the reference bundle with stridecast.export.export_bundle "
                              "(slow: runs torch's exporter and verifies each level)")
@@ -45,8 +50,6 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--render", type=Path, metavar="RESULTS.json",
                         help=f"measure nothing: redraw the plot beside an earlier "
                              f"{RESULTS_NAME} and print (with --markdown, write) its report")
-    # Internal: the single-thread child measures one pass and writes it as JSON.
-    parser.add_argument("--worker", type=Path, help=argparse.SUPPRESS)
     return parser
 
 
@@ -61,25 +64,19 @@ def main(argv: list[str] | None = None) -> int:
                             arguments.render.parent / PLOT_NAME)
         _print_and_write(results, plot, arguments.markdown)
         return 0
-    if arguments.worker is not None:
-        if arguments.bundle is None:
-            raise SystemExit("--worker needs --bundle")
-        record = measure_pass(arguments.bundle, quick=arguments.quick, solvers=False,
-                              system=False)
-        arguments.worker.write_text(json.dumps(record, indent=1), encoding="utf-8")
-        return 0
     results = run_suite(arguments.out_dir, quick=arguments.quick, bundle=arguments.bundle,
                         crane_bundle=arguments.crane_bundle,
-                        single_thread=not arguments.no_single_thread,
+                        busy=not arguments.no_busy_neighbour,
                         via_export=arguments.via_export)
     results["command"] = _command(arguments)
     results["quick"] = arguments.quick
     default = results["passes"]["default"]
     plot = plot_horizon(default["bench"], default.get("solvers"),
                         arguments.out_dir / PLOT_NAME)
-    results["targets"] = {label: report.measure_targets(p.get("bench"), p.get("solvers"),
-                                                        p.get("system"))
-                          for label, p in results["passes"].items()}
+    busy = results["passes"].get(BUSY_LABEL)
+    results["targets"] = {"default": report.measure_targets(
+        default.get("bench"), default.get("solvers"), default.get("system"),
+        busy=None if busy is None else busy["bench"])}
     (arguments.out_dir / RESULTS_NAME).write_text(json.dumps(results, indent=1) + "\n",
                                                   encoding="utf-8")
     _print_and_write(results, plot, arguments.markdown)
@@ -96,7 +93,7 @@ def _print_and_write(results: dict[str, Any], plot: Path, markdown: Path | None)
 
 
 def _command(arguments: argparse.Namespace) -> str:
-    parts = ["python -m benchmarks"]
+    parts = ["env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python -m benchmarks"]
     if arguments.quick:
         parts.append("--quick")
     out_dir = None if arguments.out_dir == Path(".") else arguments.out_dir
@@ -104,8 +101,8 @@ def _command(arguments: argparse.Namespace) -> str:
                         ("--out-dir", out_dir), ("--markdown", arguments.markdown)):
         if value is not None:
             parts.append(f"{flag} {value}")
-    if arguments.no_single_thread:
-        parts.append("--no-single-thread")
+    if arguments.no_busy_neighbour:
+        parts.append("--no-busy-neighbour")
     if arguments.via_export:
         parts.append("--via-export")
     return " ".join(parts)
@@ -150,7 +147,7 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
         "the slower method's time ÷ stridecast's; throughput ratio = stridecast's states·steps "
         "per second ÷ the peer's. p50 of interleaved rounds.",
         report.target_table(results["targets"]),
-        "## Single-state `advance` latency (default threads)",
+        "## Single-state `advance` latency",
         "stridecast gets a state of shape (d,) and plans itself; onnxruntime (one session call "
         "per step) and torch eager (`inference_mode`) follow the same plan with the "
         "normalisation applied once in NumPy before and after the loop; the naive rollout is "
@@ -158,10 +155,15 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
         report.latency_table(bench),
         f"## Batches: `advance` to {bench['settings']['batch_base_steps']:,} base steps",
         report.batch_table(benches),
-        *report.threading_notes(benches),
+        *report.busy_notes(benches),
         "## Dense forecast",
         report.dense_table(benches),
     ]
+    threads = {label: p["threads"] for label, p in passes.items() if "threads" in p}
+    if threads:
+        sections += ["## Thread policy: where it starts to pay",
+                     report.threads_note(threads.get("default", next(iter(threads.values())))),
+                     report.threads_table(threads)]
     if "solvers" in default:
         sections += ["## Against SciPy `solve_ivp` (crane scenario)",
                      report.solver_note(default["solvers"]),

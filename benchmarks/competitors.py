@@ -83,12 +83,20 @@ class OnnxRuntimeLoop(_Normalised):
 
 
 class TorchEagerLoop(_Normalised):
-    """The torch modules called eagerly under `torch.inference_mode`, one call per plan step."""
+    """The torch modules called eagerly under `torch.inference_mode`, one call per plan step.
+
+    torch runs with one intra-op thread, like onnxruntime: every peer is then single-threaded,
+    and torch's OpenMP threads, which keep spinning after each call, do not take CPU time from
+    the competitor timed next (on a 2-core machine they slowed it several-fold).
+    """
 
     name = "torch"
 
     def __init__(self, stepper: Stepper, modules: Mapping[int, object]):
+        import torch
+
         super().__init__(stepper)
+        torch.set_num_threads(1)
         self.modules = dict(modules)
 
     def _loop(self, normalised: np.ndarray, steps: Steps) -> np.ndarray:

@@ -12,7 +12,11 @@ import platform
 import sys
 from typing import Any
 
-THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+from stridecast.runtime.threads import usable_cpus
+
+# Thread counts, and OpenBLAS's kernel choice (OPENBLAS_CORETYPE, OPENBLAS_L2_SIZE).
+THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS",
+                    "OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE")
 # Symbol names of OpenBLAS's thread query in the builds NumPy ships (scipy-openblas, 64-bit
 # integers) and in plain system builds.
 _OPENBLAS_THREAD_SYMBOLS = (
@@ -32,7 +36,8 @@ def numpy_blas_threads() -> dict[str, Any]:
     """How many threads NumPy's BLAS uses, from threadpoolctl if installed, else OpenBLAS itself.
 
     Returns a dict with `source` ("threadpoolctl", "openblas" or "unknown"), `threads` (int or
-    None) and `library` (name or path of the BLAS library).
+    None), `library` (name or path of the BLAS library) and `kernel` (the CPU kernel OpenBLAS
+    chose, e.g. "Haswell", from threadpoolctl; else None).
     """
     import numpy  # noqa: F401  (the BLAS library must be loaded before it can be asked)
 
@@ -44,7 +49,8 @@ def numpy_blas_threads() -> dict[str, Any]:
         pools = [pool for pool in threadpool_info() if pool.get("user_api") == "blas"]
         if pools:
             return {"source": "threadpoolctl", "threads": pools[0].get("num_threads"),
-                    "library": pools[0].get("internal_api", pools[0].get("prefix"))}
+                    "library": pools[0].get("internal_api", pools[0].get("prefix")),
+                    "kernel": pools[0].get("architecture")}
     for path in _loaded_libraries("openblas"):
         try:
             library = ctypes.CDLL(path)
@@ -55,8 +61,8 @@ def numpy_blas_threads() -> dict[str, Any]:
             if function is not None:
                 function.restype = ctypes.c_int
                 return {"source": "openblas", "threads": int(function()),
-                        "library": os.path.basename(path)}
-    return {"source": "unknown", "threads": None, "library": None}
+                        "library": os.path.basename(path), "kernel": None}
+    return {"source": "unknown", "threads": None, "library": None, "kernel": None}
 
 
 def _loaded_libraries(fragment: str) -> list[str]:
@@ -96,6 +102,7 @@ def describe() -> dict[str, Any]:
         "numpy": numpy.__version__,
         "thread_variables": thread_variables(),
         "numpy_blas": numpy_blas_threads(),
+        "stridecast_threads": usable_cpus(),
     }
     for name in ("onnxruntime", "torch", "scipy"):
         module = sys.modules.get(name)

@@ -1,17 +1,13 @@
-"""The whole benchmark: build the reference model, measure every part, run the 1-thread pass.
+"""The whole benchmark: build the reference model, measure every part, then the busy neighbour.
 
-One pass measures in this process with the BLAS thread setting as found; a second pass runs the
-bundle comparisons again in a child process with OPENBLAS_NUM_THREADS=OMP_NUM_THREADS=1 (the
-child's environment only; this process's is never changed).
+Both passes run in this process, in the environment as found (no thread variables are set):
+the first on the machine as it is, the second again with a neighbour process the benchmark
+starts keeping one core busy (`neighbour.busy_neighbour`).
 """
 
 from __future__ import annotations
 
-import json
 import logging
-import os
-import subprocess
-import sys
 import tempfile
 import time
 from pathlib import Path
@@ -19,13 +15,15 @@ from typing import Any
 
 from stridecast.runtime import load
 
-from . import bundle_bench, environment, solver_bench, system_bench
+from . import bundle_bench, environment, solver_bench, system_bench, threads_bench
+from .neighbour import busy_neighbour
 from .reference import build_reference
 
 logger = logging.getLogger("benchmarks")
 
-SINGLE_THREAD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1",
-                     "MKL_NUM_THREADS": "1"}
+BUSY_LABEL = "busy neighbour"
+# The busy pass repeats what threads change: one latency horizon, the batches, the dense forecast.
+BUSY_HORIZONS = (1_000,)
 # The solver comparison stops at this many time units: beyond it a tight DOP853 run costs
 # seconds per call and adds nothing the log-log slope does not already show.
 MAX_SOLVER_TIME = 120.0
@@ -52,6 +50,9 @@ def measure_pass(bundle: Path, *, quick: bool, modules=None, crane_bundle: Path 
     record["bench"] = bundle_bench.run(bundle, quick=quick, torch_modules=modules,
                                        work_dir=work_dir)
     record["durations"]["bench"] = time.perf_counter() - begin
+    begin = time.perf_counter()
+    record["threads"] = threads_bench.run(bundle, quick=quick)
+    record["durations"]["threads"] = time.perf_counter() - begin
     if solvers:
         begin = time.perf_counter()
         record["solvers"] = _solvers(bundle, crane_bundle, quick)
@@ -79,23 +80,25 @@ def _solvers(bundle: Path, crane_bundle: Path | None, quick: bool) -> dict[str, 
                             quick=quick, source=str(crane_bundle if trained else bundle))
 
 
-def single_thread_pass(bundle: Path, *, quick: bool, out: Path) -> dict[str, Any]:
-    """Run the bundle comparisons in a child with BLAS and OpenMP at one thread."""
-    env = dict(os.environ, **SINGLE_THREAD_ENV)
-    command = [sys.executable, "-m", PACKAGE, "--worker", str(out), "--bundle", str(bundle)]
-    if quick:
-        command.append("--quick")
-    logger.info("single-thread pass: %s", " ".join(f"{k}={v}" for k, v in
-                                                     SINGLE_THREAD_ENV.items()))
-    subprocess.run(command, cwd=REPOSITORY if PACKAGE == "benchmarks" else None, env=env,
-                   check=True)
-    return json.loads(out.read_text(encoding="utf-8"))
+def busy_neighbour_pass(bundle: Path, *, quick: bool, modules=None) -> dict[str, Any]:
+    """The bundle comparisons again while a neighbour process keeps one core busy."""
+    logger.info("busy-neighbour pass: one core kept busy by another process")
+    with busy_neighbour() as neighbour:
+        record: dict[str, Any] = {"environment": environment.describe(),
+                                  "neighbour_pid": neighbour.pid}
+        record["bench"] = bundle_bench.run(bundle, quick=quick, torch_modules=modules,
+                                           horizons=BUSY_HORIZONS, naive=False,
+                                           naive_target_steps=BUSY_HORIZONS[0])
+        record["threads"] = threads_bench.run(bundle, quick=quick)
+        record["environment"] = {**environment.describe(),
+                                 "load_average_start": record["environment"]["load_average"]}
+    return record
 
 
 def run_suite(out_dir: Path, *, quick: bool = False, bundle: Path | None = None,
-              crane_bundle: Path | None = None, single_thread: bool = True,
+              crane_bundle: Path | None = None, busy: bool = True,
               via_export: bool = False) -> dict[str, Any]:
-    """Everything: the default pass (with solvers and start-up) and the 1-thread pass.
+    """Everything: the default pass (with solvers and start-up) and the busy-neighbour pass.
 
     The reference model is built in a temporary directory unless `bundle` is given.
     """
@@ -112,7 +115,7 @@ def run_suite(out_dir: Path, *, quick: bool = False, bundle: Path | None = None,
             results["reference"] = reference.describe()
         results["passes"]["default"] = measure_pass(bundle, quick=quick, modules=modules,
                                                     crane_bundle=crane_bundle, work_dir=work)
-        if single_thread:
-            results["passes"]["1 BLAS thread"] = single_thread_pass(
-                bundle, quick=quick, out=work / "single-thread.json")
+        if busy:
+            results["passes"][BUSY_LABEL] = busy_neighbour_pass(bundle, quick=quick,
+                                                                modules=modules)
     return results

@@ -9,6 +9,7 @@ from .errors import (
     ExtrapolationWarning,
     ModelFormatError,
     NonFiniteError,
+    OptionError,
     StateError,
     StridecastError,
     TimeError,
@@ -29,6 +30,7 @@ from .manifest import (
 from .plan import Plan
 from .samples import encode_samples
 from .stepper import ForecastInfo, Stepper
+from .threads import ThreadPolicy
 
 __all__ = [
     "DEFAULT_LIMITS",
@@ -44,10 +46,12 @@ __all__ = [
     "Manifest",
     "ModelFormatError",
     "NonFiniteError",
+    "OptionError",
     "Plan",
     "StateError",
     "Stepper",
     "StridecastError",
+    "ThreadPolicy",
     "TimeError",
     "UnsupportedOperatorError",
     "ValidationCurve",

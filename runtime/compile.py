@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .graph import BoundNode, Program
+from .threads import ThreadPolicy
 
 # Activations that NumPy can apply in place without temporaries.
 _IN_PLACE: dict[str, Callable[[np.ndarray], object]] = {
@@ -54,17 +55,29 @@ Stage = Affine | Activation
 
 
 class GenericKernel:
-    """Runs the interpreter on normalised states and applies the update form."""
+    """Runs the interpreter on normalised states and applies the update form.
+
+    With a thread policy, large batches run with BLAS at one thread; they are never split,
+    since a general graph may mix the rows of a batch.
+    """
 
     path = "interpreter"
 
-    def __init__(self, program: Program, mean: np.ndarray, scale: np.ndarray, update: str):
+    def __init__(self, program: Program, mean: np.ndarray, scale: np.ndarray, update: str,
+                 policy: ThreadPolicy | None = None):
         self.program = program
         self.mean = mean
         self.scale = scale
         self.update = update
+        self.policy = policy
 
     def __call__(self, state: np.ndarray) -> np.ndarray:
+        policy = self.policy
+        if policy is not None and policy.applies(state.shape[0]):
+            return policy.run(self._run, state, splittable=False)
+        return self._run(state)
+
+    def _run(self, state: np.ndarray) -> np.ndarray:
         normalised = (state - self.mean) / self.scale
         network = np.asarray(self.program.run(normalised))
         if network.shape != state.shape:
@@ -80,13 +93,17 @@ class ChainKernel:
     Small batches run with the bias folded into the weights (a constant-one column appended to
     each activation buffer), which halves the number of NumPy calls per layer; large batches run
     with plain contiguous buffers, where BLAS throughput matters more than call overhead.
+    With a thread policy, large batches run with BLAS at one thread and are split by rows over
+    the policy's threads (every stage maps rows independently).
     """
 
     path = "affine-chain"
 
     def __init__(self, stages: Sequence[Stage], *, residual: bool,
-                 input_shift: np.ndarray | None, input_scale: np.ndarray | None):
+                 input_shift: np.ndarray | None, input_scale: np.ndarray | None,
+                 policy: ThreadPolicy | None = None):
         self.residual = residual
+        self.policy = policy
         # Only set when the first stage is not affine, so the normalisation cannot be folded.
         self.input_shift = input_shift
         self.input_scale = input_scale
@@ -108,6 +125,8 @@ class ChainKernel:
         self.stages = (*leading, *(stage for layer, activations in self.layers
                                    for stage in (layer, *activations)))
         self._local = threading.local()
+        # One state takes the 1-D path unless something must happen before the first product.
+        self.vector_path = input_shift is None and not leading
 
     def _cache(self) -> OrderedDict:
         cache = getattr(self._local, "cache", None)
@@ -135,47 +154,65 @@ class ChainKernel:
             cache.move_to_end(batch)
         return buffers
 
-    def _vectors(self) -> tuple[tuple[np.ndarray, ...], ...]:
-        """Per-thread 1-D buffers (width + 1, last entry 1), views of their first `width`
-        entries, and the same views as (1, width) rows for the activations."""
-        vectors = getattr(self._local, "vectors", None)
-        if vectors is None:
+    def _vector_plan(self) -> tuple:
+        """Per-thread 1-D buffers for `_single`, laid out as the steps it runs.
+
+        Returns ``(first, steps, last)``: `first` is where the state is copied (the first
+        buffer less its constant-one entry); each step is ``(source, weights, out,
+        activations, target)``, the product ``source @ weights`` written into `out` (a view
+        of the next buffer, whose last entry stays 1 and multiplies the next bias row) and
+        the activations applied in place to `target`, the same memory as (1, width), as at
+        any batch; `last` is ``(source, weights, activations)`` of the final layer, whose
+        result is a fresh array since it leaves the kernel.
+        """
+        plan = getattr(self._local, "vector_plan", None)
+        if plan is None:
             first = self.augmented[0].shape[0] - 1
             widths = [first] + [w.shape[1] for w in self.augmented[:-1]]
-            buffers = tuple(np.ones(width + 1, dtype=self.augmented[0].dtype)
-                            for width in widths)
-            views = tuple(b[:-1] for b in buffers)
-            vectors = self._local.vectors = (buffers, views, tuple(v[None, :] for v in views))
-        return vectors
+            buffers = [np.ones(width + 1, dtype=self.augmented[0].dtype) for width in widths]
+            steps = tuple(
+                (buffers[index], weights, buffers[index + 1][:-1],
+                 tuple(a.function for a in self.layers[index][1]),
+                 buffers[index + 1][None, :-1])
+                for index, weights in enumerate(self.augmented[:-1]))
+            last = (buffers[-1], self.augmented[-1],
+                    tuple(a.function for a in self.layers[-1][1]))
+            plan = self._local.vector_plan = (buffers[0][:-1], steps, last)
+        return plan
 
     def _single(self, state: np.ndarray) -> np.ndarray:
         """One state: 1-D products (matrix-vector, gemv) with the bias row folded in.
 
         At batch 1 the cost is NumPy call overhead, not arithmetic; vectors avoid the 2-D
-        slicing and let BLAS use its matrix-vector kernel.
+        slicing and let BLAS use its matrix-vector kernel, and the loop runs over prepared
+        steps so that each layer costs one product and its activations, little else.
         """
-        buffers, views, rows = self._vectors()
+        first, steps, (source, weights, activations) = self._vector_plan()
         row = state[0]
-        views[0][...] = row
-        hidden = buffers[0]
-        last = len(self.augmented) - 1
-        for index, weights in enumerate(self.augmented):
-            if index == last:
-                hidden = np.dot(hidden, weights)  # fresh: the result leaves the kernel
-                target = hidden[None, :]
-            else:
-                np.dot(hidden, weights, out=views[index + 1])
-                hidden = buffers[index + 1]
-                target = rows[index + 1]
-            for activation in self.layers[index][1]:
-                activation.function(target)  # activations see (1, width), as at any batch
+        first[...] = row
+        dot = np.dot
+        for step_source, step_weights, out, step_activations, target in steps:
+            dot(step_source, step_weights, out=out)
+            for activation in step_activations:
+                activation(target)
+        hidden = dot(source, weights)  # fresh: the result leaves the kernel
+        target = hidden[None, :]
+        for activation in activations:
+            activation(target)
         if self.residual:
             hidden += row
-        return hidden[None, :]
+        return target
 
     def __call__(self, state: np.ndarray) -> np.ndarray:
-        if state.shape[0] == 1 and self.input_shift is None and not self.leading:
+        if state.shape[0] == 1 and self.vector_path:
             return self._single(state)
+        policy = self.policy
+        if policy is not None and policy.applies(state.shape[0]):
+            return policy.run(self._batch, state, splittable=True)
+        return self._batch(state)
+
+    def _batch(self, state: np.ndarray) -> np.ndarray:
+        """Any batch of two or more states (or one, when the vector path does not apply)."""
         hidden = state
         if self.input_shift is not None:
             hidden = (state - self.input_shift) / self.input_scale
@@ -231,16 +268,22 @@ def _group_layers(stages: Sequence[Stage]) -> tuple[tuple[Activation, ...], tupl
 
 
 def make_kernel(program: Program, *, mean: Sequence[float], scale: Sequence[float],
-                update: str, fast_path: bool = True) -> GenericKernel | ChainKernel:
-    """Build the kernel of one level: the fast chain where recognised, else the interpreter."""
+                update: str, fast_path: bool = True, policy: ThreadPolicy | None = None
+                ) -> GenericKernel | ChainKernel:
+    """Build the kernel of one level: the fast chain where recognised, else the interpreter.
+
+    `policy` (shared by the levels of one stepper) decides how large batches use threads;
+    None runs every batch as called, with BLAS as the process has it.
+    """
     dtype = program.dtype
     mean_array = np.asarray(mean, dtype=dtype)
     scale_array = np.asarray(scale, dtype=dtype)
     if fast_path:
         stages = recognise_chain(program)
         if stages is not None and _widths_chain(stages, mean_array.size):
-            return _fold_normalisation(stages, mean_array, scale_array, update, dtype)
-    return GenericKernel(program, mean_array, scale_array, update)
+            return _fold_normalisation(stages, mean_array, scale_array, update, dtype,
+                                       policy)
+    return GenericKernel(program, mean_array, scale_array, update, policy)
 
 
 def _widths_chain(stages: Sequence[Stage], dim: int) -> bool:
@@ -394,7 +437,7 @@ def _bias_vector(value: np.ndarray, width: int) -> np.ndarray | None:
 
 
 def _fold_normalisation(stages: list[Stage], mean: np.ndarray, scale: np.ndarray, update: str,
-                        dtype: np.dtype) -> ChainKernel:
+                        dtype: np.dtype, policy: ThreadPolicy | None = None) -> ChainKernel:
     """Fold z = (x − mean)/scale into the first affine and x' = … into the last."""
     stages = list(stages)
     # Fold in float64 so the folded weights are as close as possible to the exact product.
@@ -425,4 +468,4 @@ def _fold_normalisation(stages: list[Stage], mean: np.ndarray, scale: np.ndarray
         for s in stages
     ]
     return ChainKernel(stages, residual=residual, input_shift=input_shift,
-                       input_scale=input_scale)
+                       input_scale=input_scale, policy=policy)

@@ -31,6 +31,10 @@ class TimeError(StridecastError, ValueError):
     """A requested time is negative, non-finite, unreachable or beyond the work limits."""
 
 
+class OptionError(StridecastError, ValueError):
+    """An option passed to `load` (such as `threads`) has a value the runtime cannot use."""
+
+
 class NonFiniteError(StateError):
     """A network step produced NaN or infinity; the message names the step and the level."""
 

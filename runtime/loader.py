@@ -14,13 +14,14 @@ from .graph import build_program
 from .limits import DEFAULT_LIMITS, Limits
 from .onnx_reader import read_model
 from .stepper import Stepper
+from .threads import ThreadPolicy
 
 DTYPES = ("float32", "float64")
 
 
 def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool = True,
          limits: Limits = DEFAULT_LIMITS, fast_path: bool = True,
-         on_extrapolation: str = "warn") -> Stepper:
+         on_extrapolation: str = "warn", threads: int | None = None) -> Stepper:
     """Load a bundle directory and return a `Stepper`.
 
     Parameters
@@ -44,6 +45,11 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
         samples) or a requested time passes the validated horizon: issue one
         `ExtrapolationWarning` per call (default), raise `ExtrapolationError`, or nothing.
         The findings are in `Plan.findings` / `ForecastInfo.findings` in every case.
+    threads : int, optional
+        Threads a large batch is split over (default: the CPUs this process may use, from
+        ``os.sched_getaffinity`` where available). Batches of 32 states or more run with BLAS
+        at one thread, restoring the caller's setting afterwards; 1 never splits. Batches
+        below that run as called. See the README's "Threads" section.
     """
     if on_extrapolation not in POLICIES:
         raise BundleError(
@@ -52,6 +58,7 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
     if dtype not in DTYPES and np.dtype(dtype).name not in DTYPES:
         raise BundleError(f"`dtype` is {dtype!r}; expected one of {list(DTYPES)}.")
     compute = np.dtype(dtype)
+    policy = ThreadPolicy(threads)
     root = open_bundle_root(path)
     manifest = read_manifest(root, limits=limits)
     too_large = [entry.stride for entry in manifest.levels if entry.stride > limits.max_stride]
@@ -65,11 +72,13 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
     for entry in manifest.levels:
         where = f"level stride {entry.stride} ({entry.file})"
         try:
-            model = read_model(contents[entry.stride], limits=limits, source=entry.file)
+            # Popped: each file's bytes are freed once parsed (peak memory is a target).
+            model = read_model(contents.pop(entry.stride), limits=limits, source=entry.file)
             program = build_program(model, input_name=entry.input, output_name=entry.output,
                                     dtype=compute, max_nodes=limits.max_graph_nodes)
             kernel = make_kernel(program, mean=manifest.mean, scale=manifest.scale,
-                                 update=manifest.update, fast_path=fast_path)
+                                 update=manifest.update, fast_path=fast_path,
+                                 policy=policy)
             _probe(kernel, manifest.mean, compute, where)
         except ModelFormatError as error:
             raise type(error)(f"{where}: {error}") from error

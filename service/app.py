@@ -55,7 +55,7 @@ def create_app(models: Mapping[str, ModelSource] | Iterable[ModelSource] = (),
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         registry = await anyio.to_thread.run_sync(
-            partial(load_registry, sources, dtype=settings.dtype))
+            partial(load_registry, sources, dtype=settings.dtype, threads=settings.threads))
         app.state.registry = registry
         metrics.models_loaded.labels("served").set(len(registry.served))
         metrics.models_loaded.labels("failed").set(len(registry.entries) - len(registry.served))

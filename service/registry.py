@@ -120,7 +120,7 @@ def _check_source(name: str, source: Any) -> None:
 
 
 def load_registry(sources: Iterable[tuple[str, str, ModelSource]], *,
-                  dtype: str = "float32") -> Registry:
+                  dtype: str = "float32", threads: int = 1) -> Registry:
     """Load and verify every model; failures become entries with an `error`, never exceptions.
 
     Parameters
@@ -129,6 +129,8 @@ def load_registry(sources: Iterable[tuple[str, str, ModelSource]], *,
         From `named_sources`; a source is a bundle path or a loaded `Stepper`.
     dtype : {"float32", "float64"}
         Arithmetic of the steppers loaded from paths.
+    threads : int
+        Threads each stepper loaded from a path splits large batches over.
     """
     entries: list[ModelEntry] = []
     for name, description, source in sources:
@@ -137,15 +139,16 @@ def load_registry(sources: Iterable[tuple[str, str, ModelSource]], *,
             entries.append(ModelEntry(name, description, error=error))
             logger.error("model %r from %s not served: %s", name, description, error)
             continue
-        entries.append(_load_one(name, description, source, dtype))
+        entries.append(_load_one(name, description, source, dtype, threads))
     return Registry(entries=tuple(entries), loaded=True)
 
 
-def _load_one(name: str, description: str, source: ModelSource, dtype: str) -> ModelEntry:
+def _load_one(name: str, description: str, source: ModelSource, dtype: str,
+              threads: int = 1) -> ModelEntry:
     if not _is_path(source):
         return ModelEntry(name, description, stepper=source)
     try:
-        stepper = runtime.load(source, dtype=dtype, verify=True)
+        stepper = runtime.load(source, dtype=dtype, verify=True, threads=threads)
     except (StridecastError, OSError) as error:
         logger.error("model %r from %s not served: %s", name, description, error)
         return ModelEntry(name, description, error=str(error))

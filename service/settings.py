@@ -50,6 +50,10 @@ class Settings(BaseSettings):
         Wall-time budget of one request in seconds, queueing included; 504 when exceeded.
     max_concurrency : int
         Computations running at once (default: the CPUs available to the process).
+    threads : int
+        Threads one computation splits a large batch over (`stridecast.runtime.load`'s
+        `threads`), per worker process. Default 1: concurrent requests already use the cores;
+        BLAS runs single-threaded around large batches either way.
     max_waiting : int
         Requests allowed to queue for a computation slot; one more gets 503 at once.
     max_depth : int
@@ -71,6 +75,7 @@ class Settings(BaseSettings):
     max_concurrency: int = Field(default_factory=_cpu_count, ge=1)
     max_waiting: int = Field(64, ge=0)
     max_depth: int = Field(32, ge=2, le=256)
+    threads: int = Field(1, ge=1)
     token: SecretStr | None = None
     token_file: Path | None = None
 

@@ -7,7 +7,6 @@ that needs them, so `stridecast advance` starts as fast as NumPy does.
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 from collections.abc import Callable
 
@@ -95,25 +94,6 @@ def _register_optional(subparsers) -> None:
     commands_optional.register(subparsers, _add)
 
 
-BLAS_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
-
-
-def _limit_blas_threads(threads: int | None) -> None:
-    """Give the server's BLAS a fixed thread count before NumPy loads it.
-
-    A service runs many small products concurrently; multi-threaded BLAS then mostly waits for
-    its own threads (measured in docs/benchmarks.md). Variables the user set are kept unless
-    `--blas-threads` is given; worker processes inherit the setting.
-    """
-    if "numpy" in sys.modules:  # too late to take effect; keep the process as it is
-        return
-    for name in BLAS_VARIABLES:
-        if threads is not None:
-            os.environ[name] = str(threads)
-        else:
-            os.environ.setdefault(name, "1")
-
-
 def _resolve(handler: str) -> Handler:
     module_name, function_name = handler.split(":")
     module = __import__(module_name, fromlist=[function_name])
@@ -126,8 +106,6 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(arguments, "handler", None):
         parser.print_help()
         return 2
-    if arguments.command == "serve":
-        _limit_blas_threads(arguments.blas_threads)
     from stridecast.runtime import StridecastError
 
     try:

@@ -63,9 +63,9 @@ def register(subparsers, add) -> None:
                        help="file holding the bearer token POST routes require")
     serve.add_argument("--limit-concurrency", type=int, default=None,
                        help="requests computing at once (default: CPU count)")
-    serve.add_argument("--blas-threads", type=int, default=None,
-                       help="BLAS threads per worker process (default: 1, unless "
-                       "OPENBLAS_NUM_THREADS/OMP_NUM_THREADS are already set)")
+    serve.add_argument("--threads", "--blas-threads", dest="threads", type=int, default=None,
+                       help="threads one request splits a large batch over, per worker "
+                       "process (default: 1; BLAS runs single-threaded around large batches)")
 
     bench = add(subparsers, "bench", "Benchmark a bundle against onnxruntime, torch and the "
                 "naive rollout.", "stridecast bench crane-demo.bundle --quick",
@@ -129,6 +129,8 @@ def serve_command(arguments: argparse.Namespace) -> int:
     overrides = {}
     if arguments.limit_concurrency is not None:
         overrides["max_concurrency"] = arguments.limit_concurrency
+    if arguments.threads is not None:
+        overrides["threads"] = arguments.threads
     print(CAUTION, file=sys.stderr)
     serve(paths, host=arguments.host, port=arguments.port, workers=arguments.workers,
           token_file=arguments.token_file, **overrides)

@@ -111,3 +111,39 @@ def linear_bundle(out: Path, system: np.ndarray, *, base_step: float, strides: S
 def oscillator_matrix(omega: float = 2.0, damping: float = 0.0) -> np.ndarray:
     """x'' + 2ζω x' + ω² x = 0 as a first-order system (position, velocity)."""
     return np.array([[0.0, 1.0], [-omega**2, -2.0 * damping * omega]])
+
+
+def tanh_bundle(out, *, dim=4, hidden=16, strides=(1, 2, 4, 8)):
+    """A bundle of small random tanh networks (Gemm + Tanh, two hidden layers), float32,
+    increment update, normalisation mean 0.5 and scale 2; returns (path, {stride: bytes})."""
+    rng = np.random.default_rng(3)
+    files = {}
+    for stride in strides:
+        weights = [rng.normal(0, 0.3, (hidden, dim)), rng.normal(0, 0.3, (hidden, hidden)),
+                   rng.normal(0, 0.03, (dim, hidden))]
+        biases = [rng.normal(0, 0.1, w.shape[0]) for w in weights]
+        nodes, inits, current = [], [], "state"
+        for index, (w, b) in enumerate(zip(weights, biases, strict=True)):
+            inits += [numpy_helper.from_array(w.astype(np.float32), f"w{index}"),
+                      numpy_helper.from_array(b.astype(np.float32), f"b{index}")]
+            output = "next" if index == len(weights) - 1 else f"g{index}"
+            nodes.append(helper.make_node("Gemm", [current, f"w{index}", f"b{index}"],
+                                          [output], transB=1))
+            current = output
+            if index < len(weights) - 1:
+                nodes.append(helper.make_node("Tanh", [current], [f"h{index}"]))
+                current = f"h{index}"
+        graph = helper.make_graph(
+            nodes, "level",
+            [helper.make_tensor_value_info("state", TensorProto.FLOAT, ["batch", dim])],
+            [helper.make_tensor_value_info("next", TensorProto.FLOAT, ["batch", dim])],
+            initializer=inits)
+        model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)])
+        model.ir_version = 8
+        files[stride] = model.SerializeToString()
+    manifest = Manifest(state_names=tuple(f"x{i}" for i in range(dim)),
+                        state_units=("",) * dim, base_step=0.1, mean=(0.5,) * dim,
+                        scale=(2.0,) * dim,
+                        levels=tuple(LevelEntry(stride=s, file="", sha256="0" * 64)
+                                     for s in strides))
+    return write_bundle(out, manifest, files), files

@@ -23,10 +23,12 @@ from stridecast import crane
 from stridecast.benchmarks import (
     bundle_bench,
     environment,
+    neighbour,
     plot,
     report,
     solver_bench,
     system_bench,
+    threads_bench,
 )
 from stridecast.benchmarks.cli import document, main
 from stridecast.benchmarks.competitors import (
@@ -238,14 +240,37 @@ def test_environment_record_names_thread_settings():
     json.dumps(record)
 
 
-def test_threading_note_only_when_default_threads_are_far_slower(bench_result):
-    slow = copy.deepcopy(bench_result)
-    for row in slow["batch"]:
-        row["times"]["stridecast"]["p50"] *= 10
-    passes = {"default": slow, "1 BLAS thread": bench_result}
-    notes = report.threading_notes(passes)
-    assert len(notes) == 1 and "OPENBLAS_NUM_THREADS=1" in notes[0]
-    assert report.threading_notes({"default": bench_result, "1 BLAS thread": bench_result}) == []
+def test_busy_note_gives_the_share_of_throughput_kept(bench_result):
+    busy = copy.deepcopy(bench_result)
+    for row in busy["batch"]:
+        for times in row["times"].values():
+            times["throughput"] /= 4
+    notes = report.busy_notes({"default": bench_result, "busy neighbour": busy})
+    # Expected: a quarter of each throughput, printed as a percentage.
+    assert len(notes) == 1 and "stridecast 25%" in notes[0] and "onnxruntime 25%" in notes[0]
+    assert report.busy_notes({"default": bench_result}) == []
+
+
+def test_busy_target_comes_from_the_busy_pass(bench_result):
+    busy = copy.deepcopy(bench_result)
+    row = busy["batch"][-1]
+    row["batch"] = report.TARGET_BATCH
+    row["times"]["stridecast"]["throughput"] = 3.0
+    row["times"]["onnxruntime"]["throughput"] = 4.0
+    measured = report.measure_targets(bench_result, busy=busy)
+    assert measured["ort_batch4096_busy"] == 0.75
+    assert measured["ort_batch4096"] is None  # the tiny idle run has no batch 4,096
+
+
+def test_busy_neighbour_keeps_a_core_busy_and_stops():
+    import time
+
+    with neighbour.busy_neighbour() as process:
+        assert process.poll() is None
+        begin = time.process_time()
+        time.sleep(0.2)
+        assert time.process_time() - begin < 0.1  # the spinning is not in this process
+    assert process.poll() is not None
 
 
 class _TruthPlusOffset:
@@ -286,3 +311,13 @@ def test_render_redraws_plot_and_writes_markdown_from_json(results, tmp_path, ca
     # The image link is relative to the Markdown file.
     assert "](../out/bench-horizon.png)" in markdown.read_text(encoding="utf-8")
     assert "## Targets" in capsys.readouterr().out
+
+
+def test_thread_crossover_run_and_table(reference):
+    record = threads_bench.run(reference.path, batches=(1, 40), budget=TINY_BUDGET)
+    assert [row["batch"] for row in record["rows"]] == [1, 40]
+    assert set(record["rows"][0]["times"]) == {"as called", "1 thread", "split"}
+    assert record["scope"]["runtime"] > 0 and record["scope"]["threadpool_limits"] > 0
+    rows = _assert_rectangular(report.threads_table({"default": record}))
+    assert len(rows) == 4
+    assert "threadpool_limits" in report.threads_note(record)

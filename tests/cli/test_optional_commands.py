@@ -79,25 +79,19 @@ def test_help_has_example(command, capsys):
     assert "example:" in capsys.readouterr().out
 
 
-def test_serve_limits_blas_threads_before_numpy_loads():
-    # In a fresh interpreter: parse `serve` the way main() does, without starting a server.
-    code = (
-        "import os, sys\n"
-        "for name in ('OPENBLAS_NUM_THREADS', 'OMP_NUM_THREADS', 'MKL_NUM_THREADS'):\n"
-        "    os.environ.pop(name, None)\n"
-        "from stridecast import cli\n"
-        "assert 'numpy' not in sys.modules\n"
-        "cli._limit_blas_threads(None)\n"
-        "print(os.environ['OPENBLAS_NUM_THREADS'], os.environ['OMP_NUM_THREADS'])\n"
-        "os.environ['OPENBLAS_NUM_THREADS'] = '3'\n"
-        "cli._limit_blas_threads(None)\n"
-        "print(os.environ['OPENBLAS_NUM_THREADS'])\n"
-        "cli._limit_blas_threads(2)\n"
-        "print(os.environ['OPENBLAS_NUM_THREADS'])\n"
-    )
-    import subprocess
-    import sys
+@pytest.mark.parametrize(("flags", "expected"), [([], None), (["--threads", "3"], 3),
+                                               (["--blas-threads", "2"], 2)])
+def test_serve_passes_threads_per_worker_and_leaves_the_environment(monkeypatch, tmp_path,
+                                                                      flags, expected):
+    # `serve` hands the thread count to the runtime's policy (Settings.threads) instead of
+    # setting BLAS variables; nothing in os.environ changes.
+    import os
 
-    output = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                            check=True).stdout.split()
-    assert output == ["1", "1", "3", "2"]
+    from stridecast.service import server
+
+    calls = []
+    monkeypatch.setattr(server, "serve", lambda paths, **options: calls.append(options))
+    before = dict(os.environ)
+    assert main(["serve", str(tmp_path), *flags]) == 0
+    assert dict(os.environ) == before
+    assert calls[0].get("threads") == expected

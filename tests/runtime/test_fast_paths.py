@@ -10,48 +10,13 @@ from __future__ import annotations
 import numpy as np
 import onnxruntime
 import pytest
-from onnx import TensorProto, helper, numpy_helper
 
-from stridecast.runtime import LevelEntry, Manifest, NonFiniteError, load, write_bundle
-from tests.builders import linear_bundle
-
-
-def _tanh_bundle(out, *, dim=4, hidden=16, strides=(1, 2, 4, 8)):
-    rng = np.random.default_rng(3)
-    files = {}
-    for stride in strides:
-        weights = [rng.normal(0, 0.3, (hidden, dim)), rng.normal(0, 0.3, (hidden, hidden)),
-                   rng.normal(0, 0.03, (dim, hidden))]
-        biases = [rng.normal(0, 0.1, w.shape[0]) for w in weights]
-        nodes, inits, current = [], [], "state"
-        for index, (w, b) in enumerate(zip(weights, biases, strict=True)):
-            inits += [numpy_helper.from_array(w.astype(np.float32), f"w{index}"),
-                      numpy_helper.from_array(b.astype(np.float32), f"b{index}")]
-            output = "next" if index == len(weights) - 1 else f"g{index}"
-            nodes.append(helper.make_node("Gemm", [current, f"w{index}", f"b{index}"],
-                                          [output], transB=1))
-            current = output
-            if index < len(weights) - 1:
-                nodes.append(helper.make_node("Tanh", [current], [f"h{index}"]))
-                current = f"h{index}"
-        graph = helper.make_graph(
-            nodes, "level",
-            [helper.make_tensor_value_info("state", TensorProto.FLOAT, ["batch", dim])],
-            [helper.make_tensor_value_info("next", TensorProto.FLOAT, ["batch", dim])],
-            initializer=inits)
-        model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)])
-        model.ir_version = 8
-        files[stride] = model.SerializeToString()
-    manifest = Manifest(state_names=tuple(f"x{i}" for i in range(dim)),
-                        state_units=("",) * dim, base_step=0.1, mean=(0.5,) * dim,
-                        scale=(2.0,) * dim,
-                        levels=tuple(LevelEntry(stride=s, file="", sha256="0" * 64)
-                                     for s in strides))
-    return write_bundle(out, manifest, files), files
+from stridecast.runtime import NonFiniteError, load
+from tests.builders import linear_bundle, tanh_bundle
 
 
 def test_single_state_kernel_matches_onnxruntime_and_batch(tmp_path):
-    path, files = _tanh_bundle(tmp_path / "tanh.bundle")
+    path, files = tanh_bundle(tmp_path / "tanh.bundle")
     stepper = load(path)
     assert stepper.kernel_paths[1] == "affine-chain"
     states = np.random.default_rng(0).normal(0.5, 1.0, (3, 4)).astype(np.float32)
@@ -68,7 +33,7 @@ def test_single_state_kernel_matches_onnxruntime_and_batch(tmp_path):
 
 
 def test_grid_forecast_matches_advance_per_time(tmp_path):
-    path, _ = _tanh_bundle(tmp_path / "tanh.bundle")
+    path, _ = tanh_bundle(tmp_path / "tanh.bundle")
     stepper = load(path)
     state = np.array([0.2, 0.9, -0.3, 0.5], dtype=np.float32)
     times = np.array([3.0, 0.1, 1.7, 3.0, 0.0, 2.5, 0.8])  # unsorted, repeated, zero

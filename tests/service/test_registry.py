@@ -61,3 +61,11 @@ def test_loaded_steppers_are_accepted(make_client, stepper):
 def test_arguments_that_are_not_models_fail_early(models, error, pattern):
     with pytest.raises(error, match=pattern):
         create_app(models)
+
+
+def test_steppers_get_the_thread_count_of_the_settings(oscillator_path):
+    registry = load_registry(named_sources([oscillator_path]), threads=3)
+    (entry,) = registry.served
+    assert {kernel.policy.threads for kernel in entry.stepper._kernels.values()} == {3}
+    default = load_registry(named_sources([oscillator_path]))
+    assert {k.policy.threads for k in default.served[0].stepper._kernels.values()} == {1}
