@@ -57,7 +57,7 @@ def api_schema(models_dir):
 def test_every_post_route_documents_its_request_body(api_schema):
     posts = [path for path, method in OPERATIONS if method == "POST"]
     assert posts == ["/v1/models/{name}/advance", "/v1/models/{name}/forecast",
-                     "/v2/models/{name}/infer"]
+                     "/v2/models/{name}/infer", "/v2/models/{name}/versions/{version}/infer"]
     for path in posts:
         body = api_schema.raw_schema["paths"][path]["post"]["requestBody"]
         assert set(body["content"]) == {"application/json", "application/msgpack"}
