@@ -94,6 +94,13 @@ def check_model_fields(name: str, version: str | None, model_name: Any,
         check_version(name, model_version)
 
 
+def server_metadata_document() -> dict[str, Any]:
+    """The $metadata_server_response (HTTP `GET /v2` and gRPC ServerMetadata)."""
+    from stridecast import __version__
+
+    return {"name": "stridecast", "version": __version__, "extensions": list(EXTENSIONS)}
+
+
 def model_metadata(name: str, stepper: Any) -> dict[str, Any]:
     """The $metadata_model_response of a stepper."""
     datatype = datatype_of(stepper.dtype)

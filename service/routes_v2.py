@@ -6,7 +6,7 @@ version part of a path is optional (every model has one version, "1").
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated
 
 import anyio
 from fastapi import APIRouter, Depends, Request
@@ -36,13 +36,13 @@ from .openapi import (
     responses,
 )
 from .protocol_v2 import (
-    EXTENSIONS,
     build_query,
     check_model_fields,
     check_version,
     infer_document,
     model_metadata,
     run_infer,
+    server_metadata_document,
 )
 from .schemas import (
     InferRequest,
@@ -56,13 +56,6 @@ from .settings import Settings, get_settings
 
 router = APIRouter(prefix="/v2", tags=["open inference protocol v2"])
 SettingsDep = Annotated[Settings, Depends(get_settings)]
-
-
-def server_metadata_document() -> dict[str, Any]:
-    """The $metadata_server_response (also what the gRPC ServerMetadata answers)."""
-    from stridecast import __version__
-
-    return {"name": "stridecast", "version": __version__, "extensions": list(EXTENSIONS)}
 
 
 @router.get("", responses=responses(V2ServerMetadata), summary="Server metadata")
