@@ -103,6 +103,7 @@ def install_openapi(app: FastAPI) -> None:
             components.setdefault(name, definition)
         if app.state.settings.bearer_token() is None:
             _make_auth_optional(schema)
+        _fix_state_rows(components, app)
         return schema
 
     app.openapi = openapi_with_request_bodies  # type: ignore[method-assign]
@@ -118,3 +119,23 @@ def _make_auth_optional(schema: dict[str, Any]) -> None:
             security = operation.get("security") if isinstance(operation, dict) else None
             if security and {} not in security:
                 operation["security"] = [{}, *security]
+
+
+def _fix_state_rows(components: dict[str, Any], app: FastAPI) -> None:
+    """When every served model has state dimension d, rows have exactly d numbers and a batch
+    at most `max_batch` rows (what the service checks); otherwise leave the generic schema."""
+    dims = {entry.stepper.state_dim for entry in app.state.registry.served}
+    if len(dims) != 1:
+        return
+    (dim,) = dims
+    row = {"type": "array", "items": {"type": "number"}, "minItems": dim, "maxItems": dim}
+    batch = {"type": "array", "items": row, "minItems": 1,
+             "maxItems": app.state.settings.max_batch}
+    for name in ("AdvanceRequest", "ForecastRequest"):
+        state = components.get(name, {}).get("properties", {}).get("state")
+        if state is not None:
+            description = state.get("description")
+            state.clear()
+            state["anyOf"] = [row, batch]
+            if description:
+                state["description"] = description
