@@ -1,10 +1,13 @@
-"""HTTP service throughput and latency, against the in-process runtime call.
+"""Service throughput and latency per wire format, against the same answer computed in process.
 
-``python -m benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts
-`stridecast.service.serve` in a subprocess on 127.0.0.1 (a free port), then times
-`POST /v1/models/{name}/advance` for batches of 1 and 256 states, 1, 8 and 32 concurrent
-clients, JSON and MessagePack bodies, in bounded loops (a time budget and a request cap per
-cell). `Stepper.advance` on the same input, in this process, is the floor the service adds to.
+``python -m benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts the service in a
+subprocess on 127.0.0.1 (free ports, HTTP and gRPC) and times the open inference protocol's
+`infer` for batches of 1 and 64 states, 1 and 8 concurrent clients, with four encodings side by
+side: JSON, MessagePack, the binary tensor data extension, and gRPC (raw tensor contents). It
+does so twice, under uvicorn's pure-Python stack (asyncio + h11) and under uvloop + httptools,
+to show whether they help. The floors: onnxruntime running the bundle's ONNX files in this
+process along the runtime's plan, and `Stepper.advance` itself. Loops are bounded by a time
+budget and a request cap per cell.
 """
 
 from __future__ import annotations
@@ -12,6 +15,7 @@ from __future__ import annotations
 import argparse
 import asyncio
 import json
+import os
 import socket
 import subprocess
 import sys
@@ -25,14 +29,23 @@ import numpy as np
 
 from stridecast.runtime import load
 
+from .competitors import OnnxRuntimeLoop, plan_steps
+from .environment import numpy_blas_threads, thread_variables
 from .timing import Budget, format_rate, format_seconds, interleaved, summary
 
-BATCHES = (1, 256)
-CONCURRENCY = (1, 8, 32)
-ENCODINGS = ("json", "msgpack")
+BATCHES = (1, 64)
+CONCURRENCY = (1, 8)
+ENCODINGS = ("json", "msgpack", "binary", "grpc")
+STACKS = {"asyncio+h11": ("asyncio", "h11"), "uvloop+httptools": ("uvloop", "httptools")}
 STARTUP_SECONDS = 60
-SERVE = ("import sys; from stridecast.service import serve; "
-         "serve([sys.argv[2]], host='127.0.0.1', port=int(sys.argv[1]), log_level='warning')")
+SERVE = """
+import sys, uvicorn
+from stridecast.service import Settings, create_app
+port, grpc_port, bundle, loop, http = sys.argv[1:6]
+app = create_app([bundle], Settings(grpc_port=int(grpc_port), max_waiting=256))
+uvicorn.run(app, host="127.0.0.1", port=int(port), loop=loop, http=http, log_level="warning",
+            access_log=False)
+"""
 
 
 def _free_port() -> int:
@@ -41,10 +54,11 @@ def _free_port() -> int:
         return probe.getsockname()[1]
 
 
-def _start_server(bundle: Path) -> tuple[subprocess.Popen, str]:
-    port = _free_port()
-    process = subprocess.Popen([sys.executable, "-c", SERVE, str(port), str(bundle)],
-                               stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+def _start_server(bundle: Path, loop: str, http: str) -> tuple[subprocess.Popen, str, str]:
+    port, grpc_port = _free_port(), _free_port()
+    process = subprocess.Popen(
+        [sys.executable, "-c", SERVE, str(port), str(grpc_port), str(bundle), loop, http],
+        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     base = f"http://127.0.0.1:{port}"
     deadline = time.monotonic() + STARTUP_SECONDS
     while time.monotonic() < deadline:
@@ -52,7 +66,7 @@ def _start_server(bundle: Path) -> tuple[subprocess.Popen, str]:
             raise RuntimeError(f"the server exited: {process.stderr.read().decode()}")
         try:
             if httpx.get(f"{base}/readyz", timeout=1.0).status_code == 200:
-                return process, base
+                return process, base, f"127.0.0.1:{grpc_port}"
         except httpx.TransportError:
             time.sleep(0.1)
     process.terminate()
@@ -68,99 +82,192 @@ def _states(stepper, batch: int) -> np.ndarray:
             ).astype(stepper.dtype)
 
 
-def _request(encoding: str, states: np.ndarray, t: float) -> tuple[bytes, dict[str, str]]:
+def _datatype(states: np.ndarray) -> str:
+    return "FP32" if states.dtype == np.float32 else "FP64"
+
+
+def http_request(encoding: str, states: np.ndarray, t: float) -> tuple[bytes, dict[str, str]]:
+    """The body and headers of one `infer` request in `encoding` (JSON, MessagePack, binary)."""
+    shape, datatype = list(states.shape), _datatype(states)
+    if encoding == "binary":
+        raw_state, raw_time = states.astype(states.dtype.newbyteorder("<")).tobytes(), \
+            np.asarray([t], "<f8").tobytes()
+        header = json.dumps({"inputs": [
+            {"name": "state", "shape": shape, "datatype": datatype,
+             "parameters": {"binary_data_size": len(raw_state)}},
+            {"name": "t", "shape": [1], "datatype": "FP64",
+             "parameters": {"binary_data_size": len(raw_time)}}],
+            "parameters": {"binary_data_output": True}}).encode()
+        return header + raw_state + raw_time, {"Inference-Header-Content-Length":
+                                               str(len(header))}
     if encoding == "msgpack":
-        typed = {"dtype": states.dtype.str, "shape": list(states.shape), "data": states.tobytes()}
-        return (msgpack.packb({"state": typed, "t": t}),
-                {"content-type": "application/msgpack", "accept": "application/msgpack"})
-    return (json.dumps({"state": states.tolist(), "t": t}).encode(),
-            {"content-type": "application/json"})
+        typed = {"dtype": states.dtype.str, "shape": shape, "data": states.tobytes()}
+        document = {"inputs": [{"name": "state", "shape": shape, "datatype": datatype,
+                                "data": typed},
+                               {"name": "t", "shape": [1], "datatype": "FP64", "data": [t]}]}
+        return msgpack.packb(document), {"content-type": "application/msgpack",
+                                         "accept": "application/msgpack"}
+    document = {"inputs": [{"name": "state", "shape": shape, "datatype": datatype,
+                            "data": states.reshape(-1).tolist()},
+                           {"name": "t", "shape": [1], "datatype": "FP64", "data": [t]}]}
+    return json.dumps(document).encode(), {"content-type": "application/json"}
 
 
-async def _drive(url: str, body: bytes, headers: dict[str, str], concurrency: int,
-                 budget: Budget) -> tuple[np.ndarray, float]:
-    """`concurrency` clients post `body` until the budget is spent; latencies and wall time."""
-    latencies: list[float] = []
+def decode_http(encoding: str, response: httpx.Response) -> np.ndarray:
+    """The output state of an `infer` answer (so every cell pays for decoding its answer)."""
+    if encoding == "binary":
+        length = int(response.headers["inference-header-content-length"])
+        output = json.loads(response.content[:length])["outputs"][0]
+        dtype = "<f4" if output["datatype"] == "FP32" else "<f8"
+        return np.frombuffer(response.content[length:], dtype).reshape(output["shape"])
+    if encoding == "msgpack":
+        data = msgpack.unpackb(response.content)["outputs"][0]["data"]
+        return np.frombuffer(data["data"], data["dtype"]).reshape(data["shape"])
+    output = response.json()["outputs"][0]
+    return np.asarray(output["data"]).reshape(output["shape"])
+
+
+def grpc_request(model: str, states: np.ndarray, t: float) -> Any:
+    from stridecast.service.grpc_messages import messages
+
+    request = messages().ModelInferRequest(model_name=model)
+    request.inputs.add(name="state", datatype=_datatype(states), shape=list(states.shape))
+    request.inputs.add(name="t", datatype="FP64", shape=[1])
+    request.raw_input_contents.extend([states.tobytes(), np.asarray([t], "<f8").tobytes()])
+    return request
+
+
+async def _drive_http(url: str, encoding: str, body: bytes, headers: dict[str, str],
+                      concurrency: int, budget: Budget) -> tuple[np.ndarray, float]:
     limits = httpx.Limits(max_connections=concurrency, max_keepalive_connections=concurrency)
     async with httpx.AsyncClient(limits=limits, timeout=30.0) as client:
-        for _ in range(budget.warmup):
-            (await client.post(url, content=body, headers=headers)).raise_for_status()
-        start = time.perf_counter()
+        async def call() -> None:
+            response = await client.post(url, content=body, headers=headers)
+            response.raise_for_status()
+            decode_http(encoding, response)
 
-        async def worker() -> None:
-            while (len(latencies) < budget.max_rounds
-                   and (len(latencies) < budget.min_rounds
-                        or time.perf_counter() - start < budget.seconds)):
-                begin = time.perf_counter()
-                response = await client.post(url, content=body, headers=headers)
-                response.raise_for_status()
-                if headers.get("accept") == "application/msgpack":
-                    msgpack.unpackb(response.content)
-                else:
-                    response.json()
-                latencies.append(time.perf_counter() - begin)
-
-        await asyncio.gather(*(worker() for _ in range(concurrency)))
-        elapsed = time.perf_counter() - start
-    return np.asarray(latencies), elapsed
+        return await _drive(call, concurrency, budget)
 
 
-def run(bundle: Path, *, quick: bool = False) -> list[dict[str, Any]]:
-    """Measure every (batch, encoding, concurrency) cell and the in-process floor."""
+async def _drive_grpc(target: str, request: Any, concurrency: int,
+                      budget: Budget) -> tuple[np.ndarray, float]:
+    import grpc
+
+    from stridecast.service.grpc_messages import SERVICE, messages
+
+    async with grpc.aio.insecure_channel(target) as channel:
+        infer = channel.unary_unary(f"/{SERVICE}/ModelInfer",
+                                    request_serializer=type(request).SerializeToString,
+                                    response_deserializer=messages().ModelInferResponse.FromString)
+
+        async def call() -> None:
+            response = await infer(request)
+            output = response.outputs[0]
+            dtype = "<f4" if output.datatype == "FP32" else "<f8"
+            np.frombuffer(response.raw_output_contents[0], dtype).reshape(list(output.shape))
+
+        return await _drive(call, concurrency, budget)
+
+
+async def _drive(call, concurrency: int, budget: Budget) -> tuple[np.ndarray, float]:
+    """`concurrency` clients repeat `call` until the budget is spent; latencies and wall time."""
+    for _ in range(budget.warmup):
+        await call()
+    latencies: list[float] = []
+    start = time.perf_counter()
+
+    async def worker() -> None:
+        while (len(latencies) < budget.max_rounds
+               and (len(latencies) < budget.min_rounds
+                    or time.perf_counter() - start < budget.seconds)):
+            begin = time.perf_counter()
+            await call()
+            latencies.append(time.perf_counter() - begin)
+
+    await asyncio.gather(*(worker() for _ in range(concurrency)))
+    return np.asarray(latencies), time.perf_counter() - start
+
+
+def _row(stack: str, batch: int, encoding: str, concurrency: int, latencies: np.ndarray,
+         elapsed: float) -> dict[str, Any]:
+    return {"stack": stack, "batch": batch, "encoding": encoding, "concurrency": concurrency,
+            "requests_per_second": latencies.size / elapsed, **summary(latencies)}
+
+
+def run(bundle: Path, *, quick: bool = False) -> dict[str, Any]:
+    """Measure the floors and every (stack, batch, encoding, concurrency) cell."""
     bundle = Path(bundle)
     stepper = load(bundle)
-    name = bundle.resolve().name
+    name = bundle.resolve().name.removesuffix(".bundle")
     t = 100 * stepper.base_step  # a grid time: the plan is the same for every request
-    budget = (Budget(seconds=0.5, min_rounds=20, max_rounds=500, warmup=5) if quick
+    budget = (Budget(seconds=0.4, min_rounds=20, max_rounds=400, warmup=5) if quick
               else Budget(seconds=2.0, min_rounds=50, max_rounds=5000, warmup=20))
     rows: list[dict[str, Any]] = []
-    process, base = _start_server(bundle)
-    try:
-        url = f"{base}/v1/models/{name}/advance"
-        for batch in BATCHES:
-            states = _states(stepper, batch)
-            floor = interleaved({"runtime": lambda states=states: stepper.advance(states, t)},
-                                budget)["runtime"]
-            rows.append({"batch": batch, "encoding": "in-process", "concurrency": 1,
-                         "requests_per_second": 1.0 / float(np.mean(floor)), **summary(floor)})
-            for encoding in ENCODINGS:
-                body, headers = _request(encoding, states, t)
-                for concurrency in CONCURRENCY:
-                    latencies, elapsed = asyncio.run(
-                        _drive(url, body, headers, concurrency, budget))
-                    rows.append({"batch": batch, "encoding": encoding,
-                                 "concurrency": concurrency,
-                                 "requests_per_second": latencies.size / elapsed,
-                                 **summary(latencies)})
-    finally:
-        process.terminate()
-        process.wait(timeout=30)
-    return rows
+    onnxruntime_loop = OnnxRuntimeLoop(stepper, bundle)
+    steps = plan_steps(stepper, 100)
+    for batch in BATCHES:
+        states = _states(stepper, batch)
+        floors = interleaved({
+            "onnxruntime in process": lambda s=states: onnxruntime_loop.advance(s, steps),
+            "runtime in process": lambda s=states: stepper.advance(s, t)}, budget)
+        for label, samples in floors.items():
+            rows.append(_row("-", batch, label, 1, samples, float(np.sum(samples))))
+    for stack, (loop, http) in STACKS.items():
+        process, base, grpc_target = _start_server(bundle, loop, http)
+        try:
+            url = f"{base}/v2/models/{name}/infer"
+            for batch in BATCHES:
+                states = _states(stepper, batch)
+                for encoding in ENCODINGS:
+                    for concurrency in CONCURRENCY:
+                        if encoding == "grpc":
+                            measured = asyncio.run(_drive_grpc(
+                                grpc_target, grpc_request(name, states, t), concurrency,
+                                budget))
+                        else:
+                            body, headers = http_request(encoding, states, t)
+                            measured = asyncio.run(_drive_http(url, encoding, body, headers,
+                                                               concurrency, budget))
+                        rows.append(_row(stack, batch, encoding, concurrency, *measured))
+        finally:
+            process.terminate()
+            process.wait(timeout=30)
+    return {"rows": rows, "blas": numpy_blas_threads(), "thread_variables": thread_variables(),
+            "openblas_coretype": os.environ.get("OPENBLAS_CORETYPE"),
+            "bundle": name, "t": t}
 
 
-def to_markdown(rows: list[dict[str, Any]]) -> str:
-    lines = ["| batch | encoding | clients | requests/s | p50 | p99 |",
-             "|---:|---|---:|---:|---:|---:|"]
+def to_markdown(result: dict[str, Any]) -> str:
+    rows = result["rows"]
+    floor = {row["batch"]: row["p50"] for row in rows
+             if row["encoding"] == "onnxruntime in process"}
+    lines = [f"BLAS: {result['blas']}; OPENBLAS_CORETYPE={result['openblas_coretype']}; "
+             f"bundle {result['bundle']}, t = {result['t']:g}", "",
+             "| server stack | batch | encoding | clients | requests/s | p50 | p99 | "
+             "p50 / onnxruntime |", "|---|---:|---|---:|---:|---:|---:|---:|"]
     for row in rows:
-        lines.append(f"| {row['batch']} | {row['encoding']} | {row['concurrency']} | "
-                     f"{format_rate(row['requests_per_second'])} | {format_seconds(row['p50'])} | "
-                     f"{format_seconds(row['p99'])} |")
+        ratio = row["p50"] / floor[row["batch"]]
+        lines.append(f"| {row['stack']} | {row['batch']} | {row['encoding']} | "
+                     f"{row['concurrency']} | {format_rate(row['requests_per_second'])} | "
+                     f"{format_seconds(row['p50'])} | {format_seconds(row['p99'])} | "
+                     f"{ratio:.1f}x |")
     return "\n".join(lines)
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(
         description=__doc__.splitlines()[0],
-        epilog="example:\n  python -m benchmarks.service_bench crane-demo.bundle --quick",
+        epilog="example:\n  env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "
+               "python -m benchmarks.service_bench crane-demo.bundle --quick",
         formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("bundle", type=Path, help="bundle directory to serve")
     parser.add_argument("--quick", action="store_true", help="short budgets (a smoke run)")
     parser.add_argument("--json", type=Path, help="also write the rows as JSON")
     arguments = parser.parse_args(argv)
-    rows = run(arguments.bundle, quick=arguments.quick)
-    print(to_markdown(rows))
+    result = run(arguments.bundle, quick=arguments.quick)
+    print(to_markdown(result))
     if arguments.json:
-        arguments.json.write_text(json.dumps(rows, indent=2) + "\n")
+        arguments.json.write_text(json.dumps(result, indent=2, default=str) + "\n")
     return 0
 
 

@@ -63,9 +63,12 @@ def create_app(models: Mapping[str, ModelSource] | Iterable[ModelSource] = (),
         async with anyio.create_task_group() as task_group:
             app.state.gate = Gate(task_group, max_running=settings.max_concurrency,
                                   max_waiting=settings.max_waiting)
+            grpc_server = await _start_grpc(app, settings)
             try:
                 yield
             finally:
+                if grpc_server is not None:
+                    await grpc_server.stop(grace=settings.request_timeout)
                 app.state.gate = None
                 task_group.cancel_scope.cancel()
 
@@ -83,6 +86,24 @@ def create_app(models: Mapping[str, ModelSource] | Iterable[ModelSource] = (),
                        known_model=lambda name: app.state.registry.get(name) is not None)
     install_openapi(app)
     return app
+
+
+async def _start_grpc(app: FastAPI, settings: Settings):
+    """Start the gRPC server when `settings.grpc_port` asks for one; its port goes to
+    `app.state.grpc_port`."""
+    app.state.grpc_port = None
+    if settings.grpc_port is None:
+        return None
+    try:
+        from .grpc_server import build_server
+    except ImportError as error:
+        raise RuntimeError("`grpc_port` is set but gRPC is not installed; install it with "
+                           "`pip install 'stridecast[grpc]'`.") from error
+    server, port = build_server(app, host=settings.grpc_host, port=settings.grpc_port)
+    await server.start()
+    app.state.grpc_port = port
+    logger.info("open inference protocol over gRPC on %s:%d", settings.grpc_host, port)
+    return server
 
 
 def app_from_environment() -> FastAPI:

@@ -37,8 +37,13 @@ def media_type(content_type: str | None) -> str:
     return (content_type or "").split(";", 1)[0].strip().lower()
 
 
-def decode_body(content_type: str | None, body: bytes, *, max_depth: int) -> Any:
+def decode_body(content_type: str | None, body: bytes, *, max_depth: int,
+                any_type_is_json: bool = False) -> Any:
     """Decode a request body according to its Content-Type.
+
+    A body without a Content-Type is read as JSON. With `any_type_is_json` (the inference
+    protocol's route, whose clients send bodies as `application/octet-stream`, form data or
+    untyped), every type other than MessagePack is read as JSON too.
 
     Parameters
     ----------
@@ -55,7 +60,9 @@ def decode_body(content_type: str | None, body: bytes, *, max_depth: int) -> Any
         415 for an unsupported type, 400 for malformed input, 422 for non-finite numbers.
     """
     kind = media_type(content_type)
-    if kind == JSON_MEDIA:
+    if kind == "" or (any_type_is_json and kind not in _MSGPACK_ALIASES):
+        document = _decode_json(body)
+    elif kind == JSON_MEDIA:
         charset = _parameter(content_type or "", "charset")
         if charset not in (None, "utf-8", "utf8"):
             raise DecodeError(415, f"the JSON body has charset {charset!r}; expected UTF-8.")
@@ -226,7 +233,7 @@ def encoded_response(body: bytes, media: str, *, status: int = 200,
                      headers: dict[str, str] | None = None) -> Response:
     """A response around a body already encoded as `media`."""
     return Response(body, status_code=status, media_type=media,
-                    headers={"Vary": "Accept", **(headers or {})})
+                    headers={"Vary": "Accept, Accept-Encoding", **(headers or {})})
 
 
 def encode_response(request: Request, document: Any, *, status: int = 200,

@@ -14,6 +14,7 @@ from fastapi import Request
 
 from .body import read_body
 from .codec import DecodeError, decode_body
+from .compression import decode_content, request_codings
 from .errors import ApiError
 from .execution import Gate
 from .metrics import Metrics
@@ -54,15 +55,27 @@ def served_stepper(request: Request, name: str) -> Any:
     return entry.stepper
 
 
-async def read_document(request: Request, settings: Settings) -> Any:
-    """Read (size-limited) and decode (safely) the request body."""
+async def read_bytes(request: Request, settings: Settings) -> bytes:
+    """The request body, size-limited while it arrives and after undoing its Content-Encoding."""
+    codings = request_codings(request.headers.get("content-encoding"))
     body = await read_body(request, max_bytes=settings.max_body_bytes,
                            timeout=settings.request_timeout)
+    return decode_content(body, codings, max_bytes=settings.max_body_bytes)
+
+
+def decode_document(request: Request, body: bytes, settings: Settings, *,
+                    any_type_is_json: bool = False) -> Any:
+    """Decode (safely) a request body read by `read_bytes`."""
     try:
         return decode_body(request.headers.get("content-type"), body,
-                           max_depth=settings.max_depth)
+                           max_depth=settings.max_depth, any_type_is_json=any_type_is_json)
     except DecodeError as error:
         raise ApiError(error.status, error.message) from error
+
+
+async def read_document(request: Request, settings: Settings) -> Any:
+    """Read (size-limited) and decode (safely) the request body."""
+    return decode_document(request, await read_bytes(request, settings), settings)
 
 
 def batch_rows(state: np.ndarray) -> int:

@@ -1,15 +1,18 @@
 """Running model computations off the event loop, bounded in number, queue and time.
 
-A `Gate` admits at most `max_running + max_waiting` computations (503 beyond that), runs at
-most `max_running` of them at once in worker threads, and answers 504 once a request's budget
-has passed. The runtime has no cancellation hook, so a computation that outlives its budget
+A `Gate` admits at most `max_running + max_waiting` requests (503 beyond that), runs at
+most `max_running` computations at once in worker threads, and answers 504 once a request's
+budget has passed. Requests are admitted before their bodies are read, so memory held by
+uploads is bounded by the admitted requests times the body limit, not by open connections.
+The runtime has no cancellation hook, so a computation that outlives its budget
 finishes in its thread (its result is discarded) and keeps its slot until then: the CPU bound
 holds even when clients give up.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import AsyncIterator, Callable
+from contextlib import asynccontextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -28,6 +31,13 @@ class _Job:
     abandoned: bool = False
     result: Any = None
     error: BaseException | None = None
+
+
+@dataclass
+class Ticket:
+    """An admitted request's place in the gate; handed to `Gate.run` with its computation."""
+
+    handed_over: bool = False
 
 
 class Gate:
@@ -57,7 +67,30 @@ class Gate:
         """Computations waiting or running (including ones whose request timed out)."""
         return self._admitted
 
-    async def run(self, function: Callable[[], Any], *, started: float, budget: float) -> Any:
+    @asynccontextmanager
+    async def admit(self) -> AsyncIterator[Ticket]:
+        """Hold a place for one request (503 when full) until its computation is handed over.
+
+        Use around reading the body and validating it; pass the ticket to `run`. A request that
+        fails before `run` gives its place back on leaving the block.
+        """
+        self._check_room()
+        self._admitted += 1
+        ticket = Ticket()
+        try:
+            yield ticket
+        finally:
+            if not ticket.handed_over:
+                self._admitted -= 1
+
+    def _check_room(self) -> None:
+        if self._admitted >= self._max_running + self._max_waiting:
+            raise ApiError(503, f"the service is busy: {self._max_running} computations are "
+                                f"running and {self._max_waiting} waiting; try again shortly.",
+                           code="overloaded", headers={"Retry-After": "1"})
+
+    async def run(self, function: Callable[[], Any], *, started: float, budget: float,
+                  ticket: Ticket | None = None) -> Any:
         """Run `function()` in a worker thread and return its result (or raise its error).
 
         Parameters
@@ -68,18 +101,20 @@ class Gate:
             When the request started, in `anyio.current_time()` seconds.
         budget : float
             Seconds the request may take in total, queueing included.
+        ticket : Ticket, optional
+            The place `admit` gave this request; without one, the request is admitted here.
 
         Raises
         ------
         ApiError
             503 when too many computations are waiting, 504 when the budget runs out.
         """
-        if self._admitted >= self._max_running + self._max_waiting:
-            raise ApiError(503, f"the service is busy: {self._max_running} computations are "
-                                f"running and {self._max_waiting} waiting; try again shortly.",
-                           code="overloaded", headers={"Retry-After": "1"})
+        if ticket is None:
+            self._check_room()
+            self._admitted += 1
+        else:
+            ticket.handed_over = True  # from here `_execute` gives the place back
         job = _Job(function)
-        self._admitted += 1
         self._task_group.start_soon(self._execute, job)
         remaining = budget - (anyio.current_time() - started)
         try:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from functools import partial
 from typing import Annotated, Any
 
 import anyio
@@ -10,6 +11,7 @@ from starlette.responses import Response
 
 from .auth import require_token
 from .codec import encode, encode_response, encoded_response, response_media
+from .compression import compress, response_coding
 from .context import (
     answer_warnings,
     batch_rows,
@@ -86,27 +88,44 @@ async def describe_model(name: str, request: Request) -> Response:
 async def advance(name: str, request: Request, settings: SettingsDep) -> Response:
     started = anyio.current_time()
     stepper = served_stepper(request, name)
-    query = parse_advance(await read_document(request, settings), state_rules(stepper, settings))
-    media, metrics = response_media(request), metrics_of(request)
+    gate = gate_of(request)
+    async with gate.admit() as ticket:  # admitted before a byte of the body is read
+        query = parse_advance(await read_document(request, settings),
+                              state_rules(stepper, settings))
+        media, metrics = response_media(request), metrics_of(request)
+        coding = response_coding(request.headers.get("accept-encoding"))
+        return await gate.run(partial(_advance, stepper, name, query, media, metrics, coding),
+                              started=started, budget=settings.request_timeout, ticket=ticket)
 
-    def work() -> bytes:
-        # Runs in a worker thread: computing and encoding both stay off the event loop.
-        result, plan = stepper.advance_with_plan(query.state, query.t, off_grid=query.off_grid)
-        metrics.record_computation(name, "advance", evaluations=plan.evaluations,
-                                   states=batch_rows(query.state))
-        return encode({
-            "model": name,
-            "state": result,
-            "t": query.t,
-            "plan": plan.to_dict(),
-            "method": plan.method,
-            "evaluations": plan.evaluations,
-            "dtype": str(stepper.dtype),
-            "warnings": answer_warnings(stepper, query.state, result, [query.t]),
-        }, media)
 
-    body = await gate_of(request).run(work, started=started, budget=settings.request_timeout)
-    return encoded_response(body, media)
+def _advance(stepper: Any, name: str, query: Any, media: str, metrics: Any,
+             coding: str | None) -> Response:
+    # Runs in a worker thread: computing, encoding and compressing stay off the event loop.
+    result, plan = stepper.advance_with_plan(query.state, query.t, off_grid=query.off_grid)
+    metrics.record_computation(name, "advance", evaluations=plan.evaluations,
+                               states=batch_rows(query.state))
+    return finished(advance_document(name, stepper, query, result, plan), media, coding)
+
+
+def advance_document(name: str, stepper: Any, query: Any, result: Any, plan: Any
+                     ) -> dict[str, Any]:
+    """The answer of `advance` (the one place that builds it)."""
+    return {
+        "model": name,
+        "state": result,
+        "t": query.t,
+        "plan": plan.to_dict(),
+        "method": plan.method,
+        "evaluations": plan.evaluations,
+        "dtype": str(stepper.dtype),
+        "warnings": answer_warnings(stepper, query.state, result, [query.t]),
+    }
+
+
+def finished(document: Any, media: str, coding: str | None) -> Response:
+    """`document` encoded as `media` and compressed with `coding` (if worth it)."""
+    body, headers = compress(encode(document, media), coding)
+    return encoded_response(body, media, headers=headers)
 
 
 @router.post("/models/{name}/forecast", dependencies=[Depends(require_token)],
@@ -116,28 +135,37 @@ async def advance(name: str, request: Request, settings: SettingsDep) -> Respons
 async def forecast(name: str, request: Request, settings: SettingsDep) -> Response:
     started = anyio.current_time()
     stepper = served_stepper(request, name)
-    query = parse_forecast(await read_document(request, settings),
-                           state_rules(stepper, settings),
-                           max_points=settings.max_forecast_points,
-                           max_values=settings.max_forecast_values)
-    media, metrics = response_media(request), metrics_of(request)
+    gate = gate_of(request)
+    async with gate.admit() as ticket:  # admitted before a byte of the body is read
+        query = parse_forecast(await read_document(request, settings),
+                               state_rules(stepper, settings),
+                               max_points=settings.max_forecast_points,
+                               max_values=settings.max_forecast_values)
+        media, metrics = response_media(request), metrics_of(request)
+        coding = response_coding(request.headers.get("accept-encoding"))
+        return await gate.run(partial(_forecast, stepper, name, query, media, metrics, coding),
+                              started=started, budget=settings.request_timeout, ticket=ticket)
 
-    def work() -> bytes:
-        states, info = stepper.forecast_with_info(query.state, query.times,
-                                                  off_grid=query.off_grid)
-        metrics.record_computation(name, "forecast", evaluations=info.evaluations,
-                                   states=batch_rows(query.state) * len(query.times))
-        return encode({
-            "model": name,
-            "times": list(query.times),
-            "states": states,
-            "evaluations": info.evaluations,
-            "network_calls": info.network_calls,
-            "depth": info.depth,
-            "methods": list(info.methods),
-            "dtype": str(stepper.dtype),
-            "warnings": answer_warnings(stepper, query.state, states, query.times),
-        }, media)
 
-    body = await gate_of(request).run(work, started=started, budget=settings.request_timeout)
-    return encoded_response(body, media)
+def _forecast(stepper: Any, name: str, query: Any, media: str, metrics: Any,
+              coding: str | None) -> Response:
+    states, info = stepper.forecast_with_info(query.state, query.times, off_grid=query.off_grid)
+    metrics.record_computation(name, "forecast", evaluations=info.evaluations,
+                               states=batch_rows(query.state) * len(query.times))
+    return finished(forecast_document(name, stepper, query, states, info), media, coding)
+
+
+def forecast_document(name: str, stepper: Any, query: Any, states: Any, info: Any
+                      ) -> dict[str, Any]:
+    """The answer of `forecast` (the one place that builds it)."""
+    return {
+        "model": name,
+        "times": list(query.times),
+        "states": states,
+        "evaluations": info.evaluations,
+        "network_calls": info.network_calls,
+        "depth": info.depth,
+        "methods": list(info.methods),
+        "dtype": str(stepper.dtype),
+        "warnings": answer_warnings(stepper, query.state, states, query.times),
+    }

@@ -6,13 +6,16 @@ accept NaN and answer 500 on some inputs); the models say what is accepted and r
 
 from __future__ import annotations
 
-from typing import Any, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-Vector = list[float]
-Matrix = list[list[float]]
+# Non-empty, as the service refuses empty states; `install_openapi` also fixes the row length
+# when every served model has the same state dimension.
+Vector = Annotated[list[float], Field(min_length=1)]
+Matrix = Annotated[list[Vector], Field(min_length=1)]
 StateValue = Vector | Matrix
+Time = Annotated[float, Field(ge=0)]
 OffGrid = Literal["interpolate", "nearest", "error"]
 
 
@@ -41,7 +44,7 @@ class ForecastRequest(_Strict):
     """Forecast one state or a batch at every time in `times`."""
 
     state: StateValue
-    times: list[float] = Field(min_length=1, description="Times ≥ 0, any order.")
+    times: list[Time] = Field(min_length=1, description="Times ≥ 0, any order.")
     off_grid: OffGrid = "interpolate"
 
 
@@ -171,11 +174,15 @@ Parameters = dict[str, str | float | bool]
 
 
 class InferRequestInput(_Strict):
+    """`state` [B, d] (FP32 or FP64) or `t` [1] or [B] (times ≥ 0). `data` holds the product of
+    `shape` numbers, flat or nested; with the binary extension `parameters.binary_data_size`
+    replaces it (see the request description)."""
+
     name: Literal["state", "t"]
-    shape: list[int]
+    shape: list[Annotated[int, Field(ge=0)]] = Field(min_length=1, max_length=2)
     datatype: Literal["FP32", "FP64", "INT32", "INT64"]
     parameters: Parameters | None = None
-    data: list[Any]
+    data: list[Any] = Field(min_length=1)
 
 
 class InferRequestOutput(_Strict):
@@ -184,7 +191,10 @@ class InferRequestOutput(_Strict):
 
 
 class InferRequest(_Strict):
-    """Inputs `state` [B, d] and `t` [1] or [B]; parameter `off_grid` is optional."""
+    """Inputs `state` [B, d] and `t` [1] or [B]; parameter `off_grid` is optional.
+
+    `model_name` and `model_version`, which some clients add, are accepted when they match the
+    path."""
 
     id: str | None = None
     parameters: Parameters | None = None

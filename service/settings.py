@@ -59,8 +59,13 @@ class Settings(BaseSettings):
     max_depth : int
         Deepest nesting of arrays and objects accepted in a request body.
     token, token_file :
-        Bearer token required on every POST route (`STRIDECAST_TOKEN`, or the first line of
-        the file). None of both: no authentication.
+        Bearer token required on every POST route and on gRPC ModelInfer (`STRIDECAST_TOKEN`,
+        or the first line of the file). None of both: no authentication.
+    grpc_port : int, optional
+        Also serve the open inference protocol over gRPC on this port (needs the `grpc`
+        extra); 0 picks a free port. None: no gRPC.
+    grpc_host : str
+        Where the gRPC server listens.
     """
 
     model_config = SettingsConfigDict(env_prefix="STRIDECAST_", frozen=True, extra="forbid")
@@ -78,6 +83,8 @@ class Settings(BaseSettings):
     threads: int = Field(1, ge=1)
     token: SecretStr | None = None
     token_file: Path | None = None
+    grpc_port: int | None = Field(None, ge=0, le=65535)
+    grpc_host: str = "127.0.0.1"
 
     _file_token: SecretStr | None = PrivateAttr(default=None)
 

@@ -59,6 +59,9 @@ def register(subparsers, add) -> None:
     serve.add_argument("--host", default="127.0.0.1")
     serve.add_argument("--port", type=int, default=8000)
     serve.add_argument("--workers", type=int, default=1)
+    serve.add_argument("--grpc-port", type=int, default=None, metavar="PORT",
+                       help="also serve the open inference protocol over gRPC on PORT, same "
+                            "host (needs stridecast[grpc])")
     serve.add_argument("--token-file", default=None,
                        help="file holding the bearer token POST routes require")
     serve.add_argument("--limit-concurrency", type=int, default=None,
@@ -131,6 +134,8 @@ def serve_command(arguments: argparse.Namespace) -> int:
         overrides["max_concurrency"] = arguments.limit_concurrency
     if arguments.threads is not None:
         overrides["threads"] = arguments.threads
+    if arguments.grpc_port is not None:
+        overrides.update(grpc_port=arguments.grpc_port, grpc_host=arguments.host)
     print(CAUTION, file=sys.stderr)
     serve(paths, host=arguments.host, port=arguments.port, workers=arguments.workers,
           token_file=arguments.token_file, **overrides)

@@ -176,11 +176,21 @@ def test_bad_input_error_in_msgpack_when_accepted(limited, case):
     assert document["status"] == status and document["error"]
 
 
-def test_missing_content_type_is_415(limited):
+def test_missing_content_type_is_read_as_json(limited, stepper):
+    # Common practice (requests.post(data=...), some inference clients): an untyped body is
+    # JSON. Expected numbers: the runtime itself.
     response = limited.post(ADVANCE, content=b'{"state": [1, 0], "t": 1}',
                             headers={"content-type": ""})
+    assert response.status_code == 200
+    direct = stepper.advance(np.asarray([1.0, 0.0], dtype=np.float32), 1.0)
+    assert np.asarray(response.json()["state"], np.float32).tobytes() == direct.tobytes()
+
+
+def test_form_content_type_on_v1_is_415(limited):
+    response = limited.post(ADVANCE, content=b'{"state": [1, 0], "t": 1}',
+                            headers={"content-type": "application/x-www-form-urlencoded"})
     assert response.status_code == 415
-    assert "Content-Type is missing" in response.json()["error"]
+    assert "Content-Type is 'application/x-www-form-urlencoded'" in response.json()["error"]
 
 
 def test_chunked_body_over_limit_is_cut_off_while_reading(limited):

@@ -134,3 +134,25 @@ def test_app_answers_504_when_the_budget_runs_out(make_client):
                            json={"state": [1, 0], "times": [0.05 * k for k in range(2000)]})
     assert response.status_code == 504
     assert "longer than its budget of 1e-09 s" in response.json()["error"]
+
+
+def test_admission_is_held_until_the_computation_is_handed_over():
+    # A request admitted before reading its body keeps its place (common practice: bounded
+    # admission), gives it back if it fails before computing, and hands it to the computation.
+    async def scenario() -> list[object]:
+        seen: list[object] = []
+        async with anyio.create_task_group() as task_group:
+            gate = Gate(task_group, max_running=1, max_waiting=0)
+            async with gate.admit():
+                seen.append(gate.admitted)
+                with pytest.raises(ApiError, match="busy"):
+                    async with gate.admit():
+                        pass
+            seen.append(gate.admitted)
+            async with gate.admit() as ticket:
+                seen.append(await gate.run(lambda: "done", started=anyio.current_time(),
+                                           budget=5.0, ticket=ticket))
+            seen.append(gate.admitted)
+        return seen
+
+    assert anyio.run(scenario) == [1, 0, "done", 0]

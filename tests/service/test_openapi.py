@@ -57,7 +57,7 @@ def api_schema(models_dir):
 def test_every_post_route_documents_its_request_body(api_schema):
     posts = [path for path, method in OPERATIONS if method == "POST"]
     assert posts == ["/v1/models/{name}/advance", "/v1/models/{name}/forecast",
-                     "/v2/models/{name}/infer"]
+                     "/v2/models/{name}/infer", "/v2/models/{name}/versions/{version}/infer"]
     for path in posts:
         body = api_schema.raw_schema["paths"][path]["post"]["requestBody"]
         assert set(body["content"]) == {"application/json", "application/msgpack"}
@@ -87,3 +87,30 @@ def test_operation_conforms_to_its_schema(api_schema, path, method, mode):
         case.call_and_validate(checks=CHECKS)
 
     check()
+
+
+def _document(make_client, **settings):
+    return make_client(**settings).get("/openapi.json").json()
+
+
+def test_bearer_auth_is_optional_without_a_token_and_required_with_one(make_client):
+    # OpenAPI 3.1 §4.8.10 (Security Requirement Object): an empty object in `security` makes
+    # authentication optional.
+    for document, expected in ((_document(make_client), [{}, {"HTTPBearer": []}]),
+                               (_document(make_client, token="t"), [{"HTTPBearer": []}])):
+        for path in ("/v1/models/{name}/advance", "/v2/models/{name}/infer"):
+            assert document["paths"][path]["post"]["security"] == expected
+
+
+def test_schema_says_what_the_service_checks(make_client):
+    components = _document(make_client, max_batch=16)["components"]["schemas"]
+    # The served oscillator has 2 components: rows of exactly 2, batches of 1..16 rows.
+    row, batch = components["AdvanceRequest"]["properties"]["state"]["anyOf"]
+    assert (row["minItems"], row["maxItems"]) == (2, 2)
+    assert (batch["minItems"], batch["maxItems"]) == (1, 16)
+    assert components["AdvanceRequest"]["properties"]["t"]["minimum"] == 0
+    times = components["ForecastRequest"]["properties"]["times"]
+    assert times["minItems"] == 1 and times["items"]["minimum"] == 0
+    tensor = components["InferRequestInput"]["properties"]
+    assert (tensor["shape"]["minItems"], tensor["shape"]["maxItems"]) == (1, 2)
+    assert tensor["shape"]["items"]["minimum"] == 0 and tensor["data"]["minItems"] == 1

@@ -29,8 +29,10 @@ def test_health_live_and_ready(client):
 
 def test_server_metadata(client):
     # $metadata_server_response = {"name", "version", "extensions": [...]}.
+    # The binary tensor data extension is listed under the name Triton's server metadata uses
+    # (Triton's protocol/extension_binary_data.md).
     assert client.get("/v2").json() == {"name": "stridecast", "version": __version__,
-                                        "extensions": []}
+                                        "extensions": ["binary_tensor_data"]}
 
 
 def test_model_ready(client):
@@ -45,6 +47,7 @@ def test_model_metadata(client):
     # variable-size dimensions are -1.
     assert client.get("/v2/models/oscillator").json() == {
         "name": "oscillator",
+        "versions": ["1"],
         "platform": "stridecast_onnx",
         "inputs": [
             {"name": "state", "datatype": "FP32", "shape": [-1, 2]},
@@ -78,7 +81,7 @@ def test_infer_request_and_response_as_in_the_specification(client, stepper):
     document = response.json()
     # $inference_response: "model_name", "id" echoed, "outputs" of $response_output
     # {"name", "shape", "datatype", "data"}; "parameters" is optional.
-    assert set(document) == {"model_name", "id", "parameters", "outputs"}
+    assert set(document) == {"model_name", "model_version", "id", "parameters", "outputs"}
     assert document["model_name"] == "oscillator" and document["id"] == "42"
     (output,) = document["outputs"]
     assert set(output) == {"name", "shape", "datatype", "data"}
