@@ -67,7 +67,11 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
             raise ModelFormatError(f"{where}: the network cannot be prepared: {error}.") \
                 from error
         kernels[entry.stride] = kernel
-    return Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root))
+    stepper = Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root))
+    # What `Stepper.__reduce__` needs to load the same bundle the same way elsewhere.
+    stepper._load_arguments = (str(root), {"dtype": compute.name, "verify": verify,
+                                           "limits": limits, "fast_path": fast_path})
+    return stepper
 
 
 def _probe(kernel, mean, dtype: np.dtype, where: str) -> None:
