@@ -106,7 +106,7 @@ class ZarrWriter(_FileWriter):
 
         self._path = self._staging / self._target.name
         # compute=False writes metadata and the per-time variables, none of the lazy zeros.
-        self._template.to_zarr(self._path, compute=False, consolidated=True)
+        self._template.to_zarr(self._path, compute=False, consolidated=False)
         self._group = zarr.open_group(str(self._path), mode="r+")
 
     def write(self, start: int, arrays: dict[str, np.ndarray]) -> None:
@@ -116,7 +116,7 @@ class ZarrWriter(_FileWriter):
     def finish(self) -> xr.Dataset:
         move_into_place(self._path, self._target)
         shutil.rmtree(self._staging, ignore_errors=True)
-        return xr.open_zarr(self._target, decode_timedelta=False)
+        return xr.open_zarr(self._target, consolidated=False, decode_timedelta=False)
 
 
 class NetCDFWriter(_FileWriter):
