@@ -115,7 +115,7 @@ def test_a_killed_worker_loses_and_duplicates_nothing(cluster_client, tmp_path):
     values = stacked(dataset, stepper.state_names)
     exact = np.stack([states @ expm(system * t).T for t in times], axis=1)
     np.testing.assert_allclose(values, exact, rtol=1e-8, atol=1e-8)
-    cluster_client.wait_for_workers(2, timeout=60)
+    cluster_client.wait_for_workers(2, timeout=180)  # the nanny restarts the killed worker
 
 
 def test_wrong_dimension_is_refused_before_work(cluster_client, oscillator, tmp_path):
