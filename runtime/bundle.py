@@ -14,10 +14,15 @@ import stat
 from collections.abc import Mapping
 from dataclasses import replace
 from pathlib import Path, PurePosixPath
+from typing import TYPE_CHECKING
 
 from .errors import BundleError
 from .limits import DEFAULT_LIMITS, Limits
 from .manifest import LevelEntry, Manifest, level_file_name, parse_manifest_text
+from .samples import decode_samples
+
+if TYPE_CHECKING:
+    import numpy as np
 
 MANIFEST_NAME = "manifest.json"
 REPORT_NAME = "report.json"
@@ -129,8 +134,33 @@ def read_levels(root: Path, manifest: Manifest, *, verify: bool = True,
     return contents
 
 
+def read_envelope_samples(root: Path, manifest: Manifest, *, verify: bool = True,
+                          limits: Limits = DEFAULT_LIMITS) -> np.ndarray | None:
+    """Read the envelope samples file, if the manifest names one, with the level files' checks.
+
+    Returns
+    -------
+    ndarray, shape (count, d), read-only, or None
+        Normalised training states, in the file's dtype (float32 or float64).
+    """
+    entry = manifest.envelope_samples
+    if entry is None:
+        return None
+    where = "envelope.samples.file"
+    data = read_bundle_file(root, entry.file, where, max_bytes=limits.max_model_bytes)
+    if verify:
+        digest = sha256_hex(data)
+        if digest != entry.sha256:
+            raise BundleError(
+                f"the checksum of {entry.file!r} (envelope samples) is {digest}; the manifest "
+                f"records {entry.sha256}: the file was changed or corrupted."
+            )
+    return decode_samples(data, count=entry.count, dim=manifest.state_dim, where=where)
+
+
 def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: Mapping[int, bytes],
-                 *, report: Mapping | None = None, overwrite: bool = False) -> Path:
+                 *, report: Mapping | None = None, overwrite: bool = False,
+                 extra_files: Mapping[str, bytes] | None = None) -> Path:
     """Write a bundle atomically and return its path.
 
     Parameters
@@ -139,12 +169,18 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         The bundle directory to create.
     manifest : Manifest
         Its `levels` give strides and input/output names; files and checksums are filled in.
+        The checksum of `envelope_samples`, if set, is filled in from `extra_files`.
     level_files : mapping of stride to bytes
         Serialized ONNX model of each level.
     report : mapping, optional
         Written as `report.json`.
     overwrite : bool
         Replace an existing bundle at `out`; otherwise an existing path is an error.
+    extra_files : mapping of relative path to bytes, optional
+        Further files the manifest refers to: today the envelope samples
+        (``{manifest.envelope_samples.file: encode_samples(z)}``). Each must be referred to
+        by the manifest (nothing unchecked goes into a bundle); its content is checked the way
+        `load` will check it.
     """
     target = Path(out)
     if target.exists() and not overwrite:
@@ -165,6 +201,11 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         for entry in manifest.levels
     )
     final_manifest = replace(manifest, levels=entries)
+    extras = _staged_extras(final_manifest, extra_files or {})
+    if final_manifest.envelope_samples is not None:
+        samples = final_manifest.envelope_samples
+        final_manifest = replace(final_manifest, envelope_samples=replace(
+            samples, sha256=sha256_hex(extras[samples.file])))
     text = json.dumps(final_manifest.to_dict(), indent=2, allow_nan=False)
     parse_manifest_text(text)  # never write a manifest this reader would refuse
 
@@ -181,6 +222,10 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         (staging / "levels").mkdir()
         for entry in entries:
             (staging / entry.file).write_bytes(level_files[entry.stride])
+        for relative, data in extras.items():
+            path = staging.joinpath(*check_relative_path(relative, "extra_files"))
+            path.parent.mkdir(parents=True, exist_ok=True)
+            path.write_bytes(data)
         if report is not None:
             (staging / REPORT_NAME).write_text(
                 json.dumps(report, indent=2, allow_nan=False) + "\n", encoding="utf-8")
@@ -190,6 +235,49 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         shutil.rmtree(staging, ignore_errors=True)
         raise
     return target
+
+
+def _staged_extras(manifest: Manifest, extra_files: Mapping[str, bytes]) -> dict[str, bytes]:
+    """Check the extra files against the manifest; return them keyed by the manifest's path."""
+    referenced = {}
+    if manifest.envelope_samples is not None:
+        referenced[manifest.envelope_samples.file] = "envelope.samples.file"
+    taken = {MANIFEST_NAME, REPORT_NAME, *(entry.file for entry in manifest.levels)}
+    extras = {}
+    for relative, data in extra_files.items():
+        parts = check_relative_path(relative, "extra_files")
+        normal = "/".join(parts)
+        if normal in taken or parts[0] == "levels":
+            raise BundleError(
+                f"`extra_files` names {relative!r}, which is the manifest, the report or under "
+                "levels/; expected a file of its own."
+            )
+        if normal not in referenced:
+            raise BundleError(
+                f"`extra_files` names {relative!r}, which the manifest does not refer to; "
+                f"referred files: {sorted(referenced)}."
+            )
+        if not isinstance(data, bytes | bytearray | memoryview):
+            raise BundleError(
+                f"`extra_files[{relative!r}]` is {type(data).__name__}; expected bytes."
+            )
+        extras[normal] = bytes(data)
+    for relative, where in referenced.items():
+        normal = "/".join(check_relative_path(relative, where))
+        if normal not in extras:
+            raise BundleError(
+                f"the manifest's `{where}` is {relative!r} but `extra_files` does not hold it; "
+                f"pass extra_files={{{relative!r}: encode_samples(samples)}}."
+            )
+        if normal != relative:
+            raise BundleError(
+                f"`{where}` is {relative!r}; write it in its plain form {normal!r}."
+            )
+    samples = manifest.envelope_samples
+    if samples is not None:
+        decode_samples(extras[samples.file], count=samples.count, dim=manifest.state_dim,
+                       where=f"extra_files[{samples.file!r}]")
+    return extras
 
 
 def move_into_place(staging: Path, target: Path) -> None:

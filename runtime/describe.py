@@ -7,7 +7,13 @@ import os
 from collections import Counter
 from typing import Any
 
-from .bundle import REPORT_NAME, open_bundle_root, read_levels, read_manifest
+from .bundle import (
+    REPORT_NAME,
+    open_bundle_root,
+    read_envelope_samples,
+    read_levels,
+    read_manifest,
+)
 from .errors import BundleError
 from .limits import DEFAULT_LIMITS, Limits
 from .onnx_reader import read_model
@@ -19,6 +25,7 @@ def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LI
     root = open_bundle_root(path)
     manifest = read_manifest(root, limits=limits)
     contents = read_levels(root, manifest, verify=True, limits=limits)
+    read_envelope_samples(root, manifest, verify=True, limits=limits)  # checksum and shape
     levels = []
     for entry in manifest.levels:
         model = read_model(contents[entry.stride], limits=limits, source=entry.file)

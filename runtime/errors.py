@@ -33,3 +33,13 @@ class TimeError(StridecastError, ValueError):
 
 class NonFiniteError(StateError):
     """A network step produced NaN or infinity; the message names the step and the level."""
+
+
+class ExtrapolationError(StridecastError, ValueError):
+    """An answer would rest on extrapolation (a state outside the training envelope, or a time
+    past the validated horizon) and the stepper was loaded with on_extrapolation="error"."""
+
+
+class ExtrapolationWarning(UserWarning):
+    """An answer rests on extrapolation: the message names the states, components, times and
+    by how much (see `Finding`)."""

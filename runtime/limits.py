@@ -23,6 +23,9 @@ class Limits:
     max_steps_per_query: int = 1_000_000
     max_batch: int = 65_536
     max_forecast_points: int = 100_000
+    # State-sample distances the data-based envelope check may compute per call; beyond it an
+    # evenly spaced subset of the visited states is measured (about 20 ms at d = 4).
+    max_envelope_work: int = 1 << 24
 
 
 DEFAULT_LIMITS = Limits()

@@ -6,9 +6,10 @@ import os
 
 import numpy as np
 
-from .bundle import open_bundle_root, read_levels, read_manifest
+from .bundle import open_bundle_root, read_envelope_samples, read_levels, read_manifest
 from .compile import make_kernel
 from .errors import BundleError, ModelFormatError, StridecastError
+from .findings import POLICIES
 from .graph import build_program
 from .limits import DEFAULT_LIMITS, Limits
 from .onnx_reader import read_model
@@ -18,7 +19,8 @@ DTYPES = ("float32", "float64")
 
 
 def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool = True,
-         limits: Limits = DEFAULT_LIMITS, fast_path: bool = True) -> Stepper:
+         limits: Limits = DEFAULT_LIMITS, fast_path: bool = True,
+         on_extrapolation: str = "warn") -> Stepper:
     """Load a bundle directory and return a `Stepper`.
 
     Parameters
@@ -36,7 +38,17 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
     fast_path : bool
         Use the compiled affine-chain kernels where the graph allows (default); False runs
         every level in the generic interpreter.
+    on_extrapolation : {"warn", "error", "ignore"}
+        What `advance` and `forecast` do when a state they visit leaves the training
+        envelope (the min/max box, or farther than the radius from the kept training
+        samples) or a requested time passes the validated horizon: issue one
+        `ExtrapolationWarning` per call (default), raise `ExtrapolationError`, or nothing.
+        The findings are in `Plan.findings` / `ForecastInfo.findings` in every case.
     """
+    if on_extrapolation not in POLICIES:
+        raise BundleError(
+            f"`on_extrapolation` is {on_extrapolation!r}; expected one of {list(POLICIES)}."
+        )
     if dtype not in DTYPES and np.dtype(dtype).name not in DTYPES:
         raise BundleError(f"`dtype` is {dtype!r}; expected one of {list(DTYPES)}.")
     compute = np.dtype(dtype)
@@ -67,10 +79,13 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
             raise ModelFormatError(f"{where}: the network cannot be prepared: {error}.") \
                 from error
         kernels[entry.stride] = kernel
-    stepper = Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root))
+    samples = read_envelope_samples(root, manifest, verify=verify, limits=limits)
+    stepper = Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root),
+                      envelope_samples=samples, on_extrapolation=on_extrapolation)
     # What `Stepper.__reduce__` needs to load the same bundle the same way elsewhere.
     stepper._load_arguments = (str(root), {"dtype": compute.name, "verify": verify,
-                                           "limits": limits, "fast_path": fast_path})
+                                           "limits": limits, "fast_path": fast_path,
+                                           "on_extrapolation": on_extrapolation})
     return stepper
 
 

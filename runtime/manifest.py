@@ -6,6 +6,7 @@ expected. The reader refuses fields it does not know where they could change mea
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 import re
@@ -21,8 +22,11 @@ UPDATE_FORMS = ("increment", "replace")
 _SHA256 = re.compile(r"^[0-9a-f]{64}$")
 _TOP_LEVEL = {
     "format", "format_version", "name", "description", "state", "time", "normalization",
-    "update", "levels", "envelope", "validated_horizon", "producer",
+    "update", "levels", "envelope", "validated_horizon", "validation", "producer",
 }
+VALIDATION_METRICS = ("normalised_rms",)
+SAMPLES_FILE = "envelope/samples.npy"
+"""The conventional path of the envelope samples inside a bundle."""
 _REQUIRED = {"format", "format_version", "state", "time", "normalization", "update", "levels"}
 
 
@@ -35,6 +39,68 @@ class LevelEntry:
     sha256: str
     input: str = "state"
     output: str = "next"
+
+
+@dataclass(frozen=True)
+class ValidationCurve:
+    """The held-out error curve of the deployed hierarchy (manifest block `validation`).
+
+    Attributes
+    ----------
+    metric : str
+        How `errors` were measured; "normalised_rms": per-component error divided by
+        `reference_std`, root-mean-square over components and held-out start states.
+    tolerance : float
+        The error the validated horizon was judged against.
+    reference_std : tuple of float, length d
+        Each component's standard deviation over the training data.
+    times : tuple of float
+        Horizons, ascending, ≥ 0, in time units.
+    errors : tuple of float
+        The error at each horizon; `math.inf` where the forecast diverged (null in JSON).
+    """
+
+    metric: str
+    tolerance: float
+    reference_std: tuple[float, ...]
+    times: tuple[float, ...]
+    errors: tuple[float, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "metric": self.metric,
+            "tolerance": self.tolerance,
+            "reference_std": list(self.reference_std),
+            "times": list(self.times),
+            "errors": [error if math.isfinite(error) else None for error in self.errors],
+        }
+
+
+@dataclass(frozen=True)
+class EnvelopeSamples:
+    """Normalised training states kept in the bundle (manifest block `envelope.samples`).
+
+    Attributes
+    ----------
+    file : str
+        Path of the `.npy` file inside the bundle, shape (count, d), float32 or float64.
+    sha256 : str
+        Its checksum (`write_bundle` fills it in).
+    count : int
+        Rows of the file.
+    radius : float
+        A state is far from the data when its distance, in normalised units
+        z = (x − mean) / scale, to the nearest sample exceeds this.
+    """
+
+    file: str
+    sha256: str
+    count: int
+    radius: float
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"file": self.file, "sha256": self.sha256, "count": self.count,
+                "radius": self.radius}
 
 
 @dataclass(frozen=True)
@@ -55,6 +121,8 @@ class Manifest:
     envelope_max: tuple[float, ...] | None = None
     validated_horizon: float | None = None
     producer: Mapping[str, Any] = field(default_factory=dict)
+    validation: ValidationCurve | None = None
+    envelope_samples: EnvelopeSamples | None = None
 
     @property
     def state_dim(self) -> int:
@@ -75,7 +143,9 @@ class Manifest:
         envelope = None
         if self.envelope_min is not None and self.envelope_max is not None:
             envelope = {"min": list(self.envelope_min), "max": list(self.envelope_max)}
-        return {
+            if self.envelope_samples is not None:
+                envelope["samples"] = self.envelope_samples.to_dict()
+        document = {
             "format": FORMAT_NAME,
             "format_version": FORMAT_VERSION,
             "name": self.name,
@@ -97,6 +167,9 @@ class Manifest:
             "validated_horizon": self.validated_horizon,
             "producer": dict(self.producer),
         }
+        if self.validation is not None:
+            document["validation"] = self.validation.to_dict()
+        return document
 
 
 def level_file_name(stride: int) -> str:
@@ -176,14 +249,24 @@ def parse_manifest(document: Any) -> Manifest:
 
     levels = _levels(document["levels"])
 
-    envelope_min = envelope_max = None
+    envelope_min = envelope_max = samples = None
     envelope = document.get("envelope")
     if envelope is not None:
-        envelope = _object(envelope, "envelope", required={"min", "max"})
+        envelope = _object(envelope, "envelope", required={"min", "max"}, optional={"samples"})
         envelope_min = _floats(envelope["min"], "envelope.min", dim)
         envelope_max = _floats(envelope["max"], "envelope.max", dim)
         if any(lo > hi for lo, hi in zip(envelope_min, envelope_max, strict=True)):
             raise BundleError("`envelope.min` must not exceed `envelope.max` in any component.")
+        if envelope.get("samples") is not None:
+            samples = _envelope_samples(envelope["samples"])
+    if samples is not None and samples.file in {level.file for level in levels}:
+        raise BundleError(
+            f"`envelope.samples.file` is {samples.file!r}, the file of a level; expected a file "
+            f"of its own such as {SAMPLES_FILE!r}."
+        )
+    validation = document.get("validation")
+    if validation is not None:
+        validation = _validation(validation, dim)
 
     horizon = document.get("validated_horizon")
     if horizon is not None:
@@ -210,7 +293,69 @@ def parse_manifest(document: Any) -> Manifest:
         envelope_max=envelope_max,
         validated_horizon=horizon,
         producer=producer,
+        validation=validation,
+        envelope_samples=samples,
     )
+
+
+def _validation(value: Any, dim: int) -> ValidationCurve:
+    block = _object(value, "validation",
+                    required={"metric", "tolerance", "reference_std", "times", "errors"})
+    metric = _string(block["metric"], "validation.metric")
+    if metric not in VALIDATION_METRICS:
+        raise BundleError(
+            f"`validation.metric` is {metric!r}; expected one of {list(VALIDATION_METRICS)}."
+        )
+    tolerance = _finite(block["tolerance"], "validation.tolerance")
+    if tolerance <= 0:
+        raise BundleError(f"`validation.tolerance` must be > 0; got {tolerance!r}.")
+    reference_std = _floats(block["reference_std"], "validation.reference_std", dim)
+    if any(std <= 0 for std in reference_std):
+        raise BundleError(
+            f"`validation.reference_std` must be > 0 everywhere; got {list(reference_std)}."
+        )
+    times, errors = block["times"], block["errors"]
+    if not isinstance(times, list) or not times:
+        raise BundleError(f"`validation.times` must be a non-empty list of times; got {times!r}.")
+    if not isinstance(errors, list) or len(errors) != len(times):
+        raise BundleError(
+            f"`validation.errors` must be a list of {len(times)} numbers or nulls (one per "
+            f"entry of `validation.times`); got {errors!r}."
+        )
+    times = tuple(_finite(t, f"validation.times[{i}]") for i, t in enumerate(times))
+    if times[0] < 0 or any(b <= a for a, b in itertools.pairwise(times)):
+        raise BundleError(
+            f"`validation.times` must be ≥ 0 and strictly ascending; got {list(times)}."
+        )
+    curve = []
+    for index, error in enumerate(errors):
+        if error is None:  # the forecast diverged at that horizon
+            curve.append(math.inf)
+            continue
+        error = _finite(error, f"validation.errors[{index}]")
+        if error < 0:
+            raise BundleError(
+                f"`validation.errors[{index}]` must be ≥ 0 or null; got {error!r}."
+            )
+        curve.append(error)
+    return ValidationCurve(metric=metric, tolerance=tolerance, reference_std=reference_std,
+                           times=times, errors=tuple(curve))
+
+
+def _envelope_samples(value: Any) -> EnvelopeSamples:
+    block = _object(value, "envelope.samples", required={"file", "sha256", "count", "radius"})
+    file = _string(block["file"], "envelope.samples.file")
+    digest = _string(block["sha256"], "envelope.samples.sha256")
+    if not _SHA256.match(digest):
+        raise BundleError(
+            "`envelope.samples.sha256` must be 64 lowercase hexadecimal digits; "
+            f"got {digest!r}."
+        )
+    count = _positive_int(block["count"], "envelope.samples.count")
+    radius = _finite(block["radius"], "envelope.samples.radius")
+    if radius <= 0:
+        raise BundleError(f"`envelope.samples.radius` must be > 0; got {radius!r}.")
+    return EnvelopeSamples(file=file, sha256=digest, count=count, radius=radius)
 
 
 def _levels(value: Any) -> tuple[LevelEntry, ...]:

@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any
+
+from .findings import Finding
 
 METHODS = ("grid", "interpolate", "nearest", "integrate", "hybrid")
 
@@ -33,6 +36,12 @@ class Plan:
         Vector-field evaluations spent by the Runge–Kutta integrator (0 when none).
     anchors : tuple of int
         Grid times (base steps) the answer was built from.
+    expected_error : float
+        The bundle's held-out error curve at `t` (normalised RMS; nan without a curve, inf
+        past it); see `Stepper.expected_error`.
+    findings : tuple of Finding
+        Why not to trust the answer: from `plan`, the time against the validated horizon;
+        from `advance_with_plan`, also every state the call visited against the envelope.
     """
 
     t: float
@@ -43,6 +52,8 @@ class Plan:
     method: str = "grid"
     integrator_evaluations: int = 0
     anchors: tuple[int, ...] = ()
+    expected_error: float = math.nan
+    findings: tuple[Finding, ...] = ()
 
     @property
     def network_steps(self) -> int:
@@ -58,4 +69,7 @@ class Plan:
             "method": self.method,
             "integrator_evaluations": self.integrator_evaluations,
             "anchors": list(self.anchors),
+            "expected_error": (self.expected_error if math.isfinite(self.expected_error)
+                               else None),
+            "findings": [finding.to_dict() for finding in self.findings],
         }

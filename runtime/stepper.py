@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 import threading
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -19,7 +19,16 @@ from .anchors import (
     interpolation_rows,
     walk_to_reachable,
 )
-from .errors import NonFiniteError, StateError, TimeError
+from .curve import expected_errors
+from .envelope import Envelope
+from .errors import BundleError, NonFiniteError, StateError, TimeError
+from .findings import (
+    POLICIES,
+    Finding,
+    envelope_findings,
+    horizon_findings,
+    warn_or_raise,
+)
 from .integrate import integrate
 from .interpolate import interpolate_states
 from .limits import DEFAULT_LIMITS, Limits
@@ -32,7 +41,7 @@ from .validation import (
     check_time,
     check_times,
 )
-from .waves import build_schedule, run_schedule
+from .waves import build_schedule, node_base_steps, run_schedule
 
 _PLAN_CACHE_SIZE = 4096
 VectorField = Callable[[np.ndarray], np.ndarray]
@@ -52,13 +61,17 @@ class _Resolution:
 
 @dataclass(frozen=True)
 class ForecastInfo:
-    """What a forecast cost: network evaluations (tree nodes), waves and sequential depth."""
+    """What a forecast cost (network evaluations, waves, sequential depth) and how far to
+    trust it: `expected_error` per requested time (request order; nan when the bundle has no
+    validation curve) and the `findings` of the call."""
 
     evaluations: int
     network_calls: int
     depth: int
     integrator_evaluations: int
     methods: tuple[str, ...]
+    expected_error: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    findings: tuple[Finding, ...] = ()
 
 
 class Stepper:
@@ -69,20 +82,33 @@ class Stepper:
 
     def __init__(self, manifest: Manifest, kernels: Mapping[int, Kernel], *,
                  dtype: np.dtype | str = "float32", limits: Limits = DEFAULT_LIMITS,
-                 source: str = ""):
+                 source: str = "", envelope_samples: np.ndarray | None = None,
+                 on_extrapolation: str = "warn"):
+        if on_extrapolation not in POLICIES:
+            raise BundleError(
+                f"`on_extrapolation` is {on_extrapolation!r}; expected one of {list(POLICIES)}."
+            )
+        self._policy = on_extrapolation
         self._manifest = manifest
         self._kernels = dict(kernels)
         self._dtype = np.dtype(dtype)
         self._limits = limits
         self._source = source
+        self._samples = envelope_samples
         self._planner = StridePlanner(self._kernels, max_steps=limits.max_steps_per_query)
         self._hybrid_planners: dict[int, StridePlanner] = {}
         self._lock = threading.Lock()
         # Plans depend only on the time and options; dict reads/writes are atomic.
-        self._plan_cache: dict[tuple, tuple[_Resolution, Plan, object]] = {}
+        self._plan_cache: dict[tuple, tuple[_Resolution, Plan, object, np.ndarray]] = {}
         lower = manifest.envelope_min
         self._envelope = None if lower is None else (
             np.asarray(lower, dtype=np.float64), np.asarray(manifest.envelope_max, np.float64))
+        entry = manifest.envelope_samples
+        self._data_envelope = Envelope(
+            lower, manifest.envelope_max, mean=manifest.mean, scale=manifest.scale,
+            samples=envelope_samples if entry is not None else None,
+            radius=entry.radius if entry is not None else 1.0,
+            max_work=limits.max_envelope_work)
 
     # ----------------------------------------------------------------- descriptive attributes
     @property
@@ -119,6 +145,11 @@ class Stepper:
         return self._limits
 
     @property
+    def on_extrapolation(self) -> str:
+        """What `advance`/`forecast` do with findings: "warn", "error" or "ignore"."""
+        return self._policy
+
+    @property
     def kernel_paths(self) -> dict[int, str]:
         """Which execution path each level uses ("affine-chain" or "interpreter")."""
         return {stride: getattr(kernel, "path", "custom")
@@ -145,8 +176,9 @@ class Stepper:
         return self._planned(t, off_grid, vector_field, hybrid_below)[1]
 
     def _planned(self, t: float, off_grid: str, vector_field: VectorField | None,
-                 hybrid_below: int | None) -> tuple[_Resolution, Plan, object]:
-        """Resolution, plan and (for several anchors) schedule of one time, memoised."""
+                 hybrid_below: int | None) -> tuple[_Resolution, Plan, object, np.ndarray]:
+        """Resolution, plan, (for several anchors) schedule, and the time of every state the
+        plan visits (the initial state first; node order for a schedule), memoised."""
         time = check_time(t, unit=self._manifest.time_unit)
         key = (time, off_grid, hybrid_below, vector_field is None)
         cached = self._plan_cache.get(key)
@@ -157,7 +189,12 @@ class Stepper:
                 schedule = self._schedule(self._planner_for(resolution), resolution.anchors)
             plan = self._describe(resolution, integrator_evaluations=0, evaluations=(
                 None if schedule is None else schedule.evaluations))
-            cached = (resolution, plan, schedule)
+            if schedule is None:
+                strides = [stride for stride, count in plan.steps for _ in range(count)]
+                visited = np.cumsum([0, *strides]) * self.base_step
+            else:
+                visited = node_base_steps(schedule) * self.base_step
+            cached = (resolution, plan, schedule, visited)
             if len(self._plan_cache) >= _PLAN_CACHE_SIZE:
                 self._plan_cache.clear()
             self._plan_cache[key] = cached
@@ -201,17 +238,29 @@ class Stepper:
     def advance_with_plan(self, state: np.ndarray, t: float, *, off_grid: str = "interpolate",
                           vector_field: VectorField | None = None,
                           hybrid_below: int | None = None) -> tuple[np.ndarray, Plan]:
-        """`advance`, also returning the `Plan` that says how the answer was produced."""
+        """`advance`, also returning the `Plan` that says how the answer was produced and
+        the findings of this call (every visited state checked against the envelope, `t`
+        against the validated horizon); warns, raises or not as `on_extrapolation` says."""
         states, single = self._states(state)
-        resolution, plan, schedule = self._planned(t, off_grid, vector_field, hybrid_below)
+        resolution, plan, schedule, visited = self._planned(t, off_grid, vector_field,
+                                                            hybrid_below)
+        # States are kept for the envelope check only when the bundle has an envelope.
+        visits = [] if self._data_envelope.active else None
         if schedule is None:
-            anchor_states = self._run_sequential(states, plan.steps)[None]
+            anchor_states = self._run_sequential(states, plan.steps, visits)[None]
         else:
-            anchor_states = self._run_schedule(schedule, states)
+            anchor_states = self._run_schedule(schedule, states, visits)
         result, rk_evaluations = self._finish(resolution, resolution.anchors, anchor_states,
                                               vector_field)
         if rk_evaluations:
             plan = replace(plan, integrator_evaluations=rk_evaluations)
+        if visits is not None:
+            answer = None if resolution.method in ("grid", "nearest") else result[None]
+            found = self._path_findings(states, visits, visited, answer,
+                                        np.array([resolution.t]))
+            if found:
+                plan = replace(plan, findings=found + plan.findings)
+        warn_or_raise(plan.findings, self._policy)
         return (result[0] if single else result), plan
 
     def forecast(self, state: np.ndarray, times: Sequence[float], *,
@@ -228,20 +277,37 @@ class Stepper:
     def forecast_with_info(self, state: np.ndarray, times: Sequence[float], *,
                            off_grid: str = "interpolate", vector_field: VectorField | None = None,
                            hybrid_below: int | None = None) -> tuple[np.ndarray, ForecastInfo]:
-        """`forecast`, also returning what it cost."""
+        """`forecast`, also returning what it cost, the expected error at each requested time
+        and the findings of the call (every visited state checked against the envelope, the
+        times against the validated horizon); warns, raises or not as `on_extrapolation`
+        says."""
         states, single = self._states(state)
         requested = check_times(times, max_points=self._limits.max_forecast_points)
         distinct, inverse = np.unique(requested, return_inverse=True)
         if vector_field is None and hybrid_below is None:
             output, info = self._forecast_on_grid(states, distinct, off_grid)
-            output = output[inverse.reshape(-1)]
-            return (output[:, 0, :] if single else output), info
+        else:
+            output, info = self._forecast_integrated(states, distinct, off_grid, vector_field,
+                                                     hybrid_below)
+        output = output[inverse.reshape(-1)]
+        findings = info.findings + self._horizon_findings(distinct)
+        info = replace(info, findings=findings,
+                       expected_error=expected_errors(self._manifest.validation, requested))
+        warn_or_raise(findings, self._policy)
+        return (output[:, 0, :] if single else output), info
+
+    def _forecast_integrated(self, states: np.ndarray, distinct: np.ndarray, off_grid: str,
+                             vector_field: VectorField | None, hybrid_below: int | None
+                             ) -> tuple[np.ndarray, ForecastInfo]:
+        """`forecast` for distinct sorted times when a vector field finishes or replaces the
+        finest levels."""
         resolutions = [self._resolve(float(t), off_grid, vector_field, hybrid_below)
                        for t in distinct]
         anchors = sorted({a for r in resolutions for a in r.anchors})
         planner = self._planner_for(resolutions[0]) if resolutions else self._planner
         schedule = self._schedule(planner, anchors)
-        anchor_states = self._run_schedule(schedule, states)
+        visits = [] if self._data_envelope.active else None
+        anchor_states = self._run_schedule(schedule, states, visits)
         position = {anchor: index for index, anchor in enumerate(anchors)}
         results = np.empty((len(distinct), *states.shape), dtype=self._dtype)
         jobs = []  # (result index, anchor row, remainder) of the times the integrator finishes
@@ -252,17 +318,20 @@ class Stepper:
             rows = anchor_states[[position[a] for a in resolution.anchors]]
             results[index], _ = self._finish(resolution, resolution.anchors, rows, vector_field)
         rk_total = self._integrate_jobs(jobs, anchor_states, vector_field, results)
-        output = results[inverse.reshape(-1)]
-        if single:
-            output = output[:, 0, :]
+        findings = ()
+        if visits is not None:
+            findings = self._path_findings(states, visits,
+                                           node_base_steps(schedule) * self.base_step,
+                                           results, distinct)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
             network_calls=sum(len(wave) for wave in schedule.waves),
             depth=schedule.depth,
             integrator_evaluations=rk_total,
             methods=tuple(sorted({r.method for r in resolutions})),
+            findings=findings,
         )
-        return output, info
+        return results, info
 
     def _forecast_on_grid(self, states: np.ndarray, times: np.ndarray, off_grid: str
                           ) -> tuple[np.ndarray, ForecastInfo]:
@@ -294,19 +363,27 @@ class Stepper:
                 methods.add("interpolate")
         distinct = np.unique(anchors)
         schedule = self._schedule(planner, distinct)
-        anchor_states = self._run_schedule(schedule, states)
+        visits = [] if self._data_envelope.active else None
+        anchor_states = self._run_schedule(schedule, states, visits)
         rows = np.searchsorted(distinct, anchors)
         if weights is None:
             results = anchor_states[rows[:, 0]]
         else:
             gathered = anchor_states[rows].astype(np.float64)  # (T, 4, B, d)
             results = np.einsum("tk,tkbd->tbd", weights, gathered).astype(self._dtype)
+        findings = ()
+        if visits is not None:
+            # Grid and nearest answers are visited nodes already; interpolated ones are not.
+            findings = self._path_findings(states, visits,
+                                           node_base_steps(schedule) * self.base_step,
+                                           None if weights is None else results, times)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
             network_calls=sum(len(wave) for wave in schedule.waves),
             depth=schedule.depth,
             integrator_evaluations=0,
             methods=tuple(sorted(methods)),
+            findings=findings,
         )
         return results, info
 
@@ -323,6 +400,118 @@ class Stepper:
             lower, upper = self._envelope
             flags = ((states < lower) | (states > upper)).any(axis=1)
         return flags[0] if single else flags
+
+    # ---------------------------------------------------------------------------------- trust
+    def expected_error(self, t: float | Sequence[float] | np.ndarray) -> float | np.ndarray:
+        """The held-out error of this bundle's forecasts at time `t` (normalised RMS).
+
+        Linear interpolation of the manifest's validation curve (from 0 at t = 0 up to its
+        first point); `inf` past the last point or after a diverged point; `nan` when the
+        bundle has no validation curve (also for a true subset from `with_levels`).
+
+        Parameters
+        ----------
+        t : float or array_like of float, shape (T,)
+
+        Returns
+        -------
+        float, or ndarray of shape (T,) for an array of times
+        """
+        if np.ndim(t) == 0:
+            values = expected_errors(self._manifest.validation,
+                                     np.array([check_time(t, unit=self._manifest.time_unit)]))
+            return float(values[0])
+        times = check_times(t, max_points=self._limits.max_forecast_points)
+        return expected_errors(self._manifest.validation, times)
+
+    def check(self, states: np.ndarray, t: float | Sequence[float] | None = None
+              ) -> tuple[Finding, ...]:
+        """Findings for `states` against the envelope and, if given, times `t` against the
+        validated horizon; issues no warning (what the CLI and HTTP use for initial states).
+
+        Parameters
+        ----------
+        states : array_like, shape (d,) or (B, d)
+        t : float or sequence of float, optional
+
+        Returns
+        -------
+        tuple of Finding
+        """
+        batch, _ = self._states(states)
+        findings = self._envelope_findings(batch[None], np.zeros(1), path=False)
+        if t is not None:
+            times = (np.array([check_time(t, unit=self._manifest.time_unit)]) if np.ndim(t) == 0
+                     else check_times(t, max_points=self._limits.max_forecast_points))
+            findings += self._horizon_findings(times)
+        return findings
+
+    def with_levels(self, strides: Sequence[int]) -> Stepper:
+        """A stepper over a subset of this one's levels, sharing the loaded kernels.
+
+        The planner is rebuilt for the subset. The validation curve and validated horizon
+        were measured for the full set of levels, so a true subset has neither
+        (`expected_error` is nan; findings say "no_validation").
+
+        Parameters
+        ----------
+        strides : sequence of int
+            Non-empty, distinct, each one of `self.strides`.
+        """
+        try:
+            chosen = sorted(strides)
+        except TypeError as error:
+            raise TimeError(f"`strides` is {strides!r}; expected a list of strides.") from error
+        bad = [s for s in chosen if isinstance(s, bool) or not isinstance(s, int | np.integer)
+               or int(s) not in self._kernels]
+        if not chosen or bad or len(set(chosen)) != len(chosen):
+            raise TimeError(
+                f"`strides` is {list(strides)!r}; expected a non-empty list of distinct strides "
+                f"of this bundle, {list(self.strides)}."
+            )
+        chosen = [int(s) for s in chosen]
+        manifest = replace(self._manifest,
+                           levels=tuple(self._manifest.level(s) for s in chosen))
+        if tuple(chosen) != self.strides:
+            manifest = replace(manifest, validation=None, validated_horizon=None)
+        subset = Stepper(manifest, {s: self._kernels[s] for s in chosen}, dtype=self._dtype,
+                         limits=self._limits, source=self._source,
+                         on_extrapolation=self._policy)
+        subset._data_envelope = self._data_envelope  # immutable; share its precomputed norms
+        return subset
+
+    def _horizon_findings(self, times: np.ndarray) -> tuple[Finding, ...]:
+        curve = self._manifest.validation
+        return horizon_findings(times, horizon=self._manifest.validated_horizon,
+                                errors=expected_errors(curve, times),
+                                tolerance=None if curve is None else curve.tolerance,
+                                unit=self._manifest.time_unit)
+
+    def _envelope_findings(self, visits: np.ndarray, times: np.ndarray, *, path: bool
+                           ) -> tuple[Finding, ...]:
+        if not self._data_envelope.active:
+            return ()
+        manifest = self._manifest
+        entry = manifest.envelope_samples
+        return envelope_findings(
+            self._data_envelope.assess(visits, times), names=manifest.state_names,
+            units=manifest.state_units, lower=manifest.envelope_min, upper=manifest.envelope_max,
+            radius=None if entry is None else entry.radius, visit_times=path,
+            unit=manifest.time_unit)
+
+    def _path_findings(self, states: np.ndarray, visits: list[np.ndarray],
+                       visit_times: np.ndarray, answers: np.ndarray | None,
+                       answer_times: np.ndarray) -> tuple[Finding, ...]:
+        """Envelope findings over a call's path: the initial states, every network output
+        (`visits`, in the order of `visit_times` after the initial state) and, if given,
+        answers not on the path (interpolated or integrated), all in one batched check."""
+        batch, dim = states.shape
+        parts = [states[None], *(visit.reshape(-1, batch, dim) for visit in visits)]
+        times = visit_times
+        if answers is not None:
+            parts.append(answers.reshape(-1, batch, dim))
+            times = np.concatenate((visit_times, answer_times))
+        return self._envelope_findings(np.concatenate(parts), times, path=True)
 
     # ------------------------------------------------------------------------------ internals
     def _resolve(self, t: float, off_grid: str, vector_field: VectorField | None,
@@ -411,14 +600,15 @@ class Stepper:
             self._report_bad_step(stride, result, states.shape, depth)
         return result
 
-    def _run_sequential(self, states: np.ndarray, steps: tuple[tuple[int, int], ...]
-                        ) -> np.ndarray:
+    def _run_sequential(self, states: np.ndarray, steps: tuple[tuple[int, int], ...],
+                        visits: list[np.ndarray] | None = None) -> np.ndarray:
         # The hot path of `advance`. Under the increment update x' = x + f(x) a non-finite
         # state never becomes finite again (NaN propagates; ±inf plus anything is ±inf or NaN),
         # so one check after the whole plan finds every failure; the plan is then replayed
         # with a check after each step, only to name the failing step and level.
+        # `visits`, when given, receives every network output (the envelope check's input).
         if self._manifest.update != "increment":
-            return self._run_checked(states, steps)
+            return self._run_checked(states, steps, visits)
         shape = states.shape
         result = states
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
@@ -427,14 +617,18 @@ class Stepper:
                 for _ in range(count):
                     result = kernel(result)
                     if result.shape != shape:
-                        return self._run_checked(states, steps)
+                        return self._run_checked(states, steps, visits)
+                    if visits is not None:
+                        visits.append(result)
         if not np.isfinite(result).all():
-            return self._run_checked(states, steps)
+            return self._run_checked(states, steps, visits)
         return result
 
-    def _run_checked(self, states: np.ndarray, steps: tuple[tuple[int, int], ...]
-                     ) -> np.ndarray:
+    def _run_checked(self, states: np.ndarray, steps: tuple[tuple[int, int], ...],
+                     visits: list[np.ndarray] | None = None) -> np.ndarray:
         """Run a plan with a shape and finiteness check after every step."""
+        if visits is not None:
+            visits.clear()  # a replay after the fast path: start the record again
         depth = 0
         shape = states.shape
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
@@ -444,6 +638,8 @@ class Stepper:
                     states = kernel(states)
                     if states.shape != shape or not np.isfinite(states).all():
                         self._report_bad_step(stride, states, shape, depth)
+                    if visits is not None:
+                        visits.append(states)
                     depth += 1
         return states
 
@@ -460,9 +656,15 @@ class Stepper:
             "region the network was trained on)."
         )
 
-    def _run_schedule(self, schedule, states: np.ndarray) -> np.ndarray:
+    def _run_schedule(self, schedule, states: np.ndarray,
+                      visits: list[np.ndarray] | None = None) -> np.ndarray:
+        """Run a schedule; `visits`, when given, receives every wave's outputs in call order,
+        which is node order (nodes are numbered by depth, then stride, like the calls)."""
+        record = None if visits is None else (lambda depth, stride, outputs:
+                                              visits.append(outputs))
         return run_schedule(schedule, states,
-                            lambda stride, batch, depth: self._apply(stride, batch, depth=depth))
+                            lambda stride, batch, depth: self._apply(stride, batch, depth=depth),
+                            record)
 
     def _integrate_jobs(self, jobs: list[tuple[int, int, float]], anchor_states: np.ndarray,
                         vector_field: VectorField | None, results: np.ndarray) -> int:
@@ -533,6 +735,9 @@ class Stepper:
             method=resolution.method,
             integrator_evaluations=integrator_evaluations,
             anchors=resolution.anchors,
+            expected_error=float(expected_errors(self._manifest.validation,
+                                                 np.array([resolution.t]))[0]),
+            findings=self._horizon_findings(np.array([resolution.t])),
         )
 
 

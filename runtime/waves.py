@@ -202,6 +202,20 @@ def build_schedule(targets: Sequence[int], planner: Planner) -> Schedule:
     )
 
 
+def node_base_steps(schedule: Schedule) -> np.ndarray:
+    """The grid time (base steps) of every node, node order; the root is 0.
+
+    Returns
+    -------
+    ndarray of int64, shape (node_count,)
+    """
+    steps = np.zeros(schedule.node_count, dtype=np.int64)
+    for wave in schedule.waves:
+        for stride, parents, children in wave:
+            steps[children] = steps[parents] + stride
+    return steps
+
+
 def run_schedule(
     schedule: Schedule,
     initial: np.ndarray,

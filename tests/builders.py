@@ -14,7 +14,15 @@ import onnx
 from onnx import TensorProto, helper, numpy_helper
 from scipy.linalg import expm
 
-from stridecast.runtime import LevelEntry, Manifest, write_bundle
+from stridecast.runtime import (
+    SAMPLES_FILE,
+    EnvelopeSamples,
+    LevelEntry,
+    Manifest,
+    ValidationCurve,
+    encode_samples,
+    write_bundle,
+)
 
 PLACEHOLDER_SHA = "0" * 64
 
@@ -54,11 +62,17 @@ def linear_level_model(matrix: np.ndarray, bias: np.ndarray | None = None, *,
 def linear_bundle(out: Path, system: np.ndarray, *, base_step: float, strides: Sequence[int],
                   mean: Sequence[float] | None = None, scale: Sequence[float] | None = None,
                   update: str = "replace", dtype=np.float64, use_gemm: bool = False,
-                  name: str = "linear", overwrite: bool = False) -> Path:
+                  name: str = "linear", overwrite: bool = False,
+                  envelope: tuple[Sequence[float], Sequence[float]] | None = None,
+                  samples: np.ndarray | None = None, radius: float = 0.5,
+                  validation: ValidationCurve | None = None,
+                  validated_horizon: float | None = None) -> Path:
     """A bundle whose level k is the exact flow map expm(A k Δt), in normalised coordinates.
 
     With z = (x − m)/s and x' = M x, the network must give z' = S⁻¹ M S z + S⁻¹ (M m − m)
-    ("replace"), or that minus z ("increment").
+    ("replace"), or that minus z ("increment"). `envelope` is (min, max) in physical units;
+    `samples` are normalised states (count, d) kept as the data-based envelope with `radius`
+    (they need `envelope`).
     """
     dim = system.shape[0]
     mean = np.zeros(dim) if mean is None else np.asarray(mean, dtype=np.float64)
@@ -83,8 +97,15 @@ def linear_bundle(out: Path, system: np.ndarray, *, base_step: float, strides: S
         update=update,
         levels=tuple(LevelEntry(stride=s, file="", sha256=PLACEHOLDER_SHA,
                                 input="state", output="next") for s in strides),
+        envelope_min=None if envelope is None else tuple(float(v) for v in envelope[0]),
+        envelope_max=None if envelope is None else tuple(float(v) for v in envelope[1]),
+        envelope_samples=None if samples is None else EnvelopeSamples(
+            file=SAMPLES_FILE, sha256=PLACEHOLDER_SHA, count=len(samples), radius=radius),
+        validation=validation,
+        validated_horizon=validated_horizon,
     )
-    return write_bundle(out, manifest, files, overwrite=overwrite)
+    extra = None if samples is None else {SAMPLES_FILE: encode_samples(samples)}
+    return write_bundle(out, manifest, files, overwrite=overwrite, extra_files=extra)
 
 
 def oscillator_matrix(omega: float = 2.0, damping: float = 0.0) -> np.ndarray:

@@ -160,3 +160,121 @@ def test_interrupted_write_leaves_nothing(tmp_path, monkeypatch, bundle):
     assert (bundle / "manifest.json").read_bytes() == before
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
     np.testing.assert_equal(load(bundle).strides, (1, 4))
+
+
+# ------------------------------------------------------------------- envelope samples file
+SAMPLES = np.array([[0.0, 0.0], [1.0, -1.0], [0.5, 0.25]])
+
+
+@pytest.fixture
+def sampled(tmp_path) -> Path:
+    return linear_bundle(tmp_path / "sampled.bundle", oscillator_matrix(), base_step=0.1,
+                         strides=(1, 4), envelope=([-2.0, -4.0], [2.0, 4.0]),
+                         samples=SAMPLES, radius=0.3)
+
+
+def write_samples_file(bundle: Path, array: np.ndarray, *, fortran: bool = False) -> None:
+    """Replace the samples file and record its new checksum, as a tamperer would."""
+    import io
+
+    buffer = io.BytesIO()
+    np.save(buffer, np.asfortranarray(array) if fortran else array, allow_pickle=True)
+    data = buffer.getvalue()
+    (bundle / "envelope" / "samples.npy").write_bytes(data)
+    edit_manifest(bundle, lambda d: d["envelope"]["samples"].__setitem__(
+        "sha256", bundle_module.sha256_hex(data)))
+
+
+def test_samples_file_written_checksummed_and_read_back(sampled):
+    document = json.loads((sampled / "manifest.json").read_text())
+    entry = document["envelope"]["samples"]
+    assert entry["file"] == "envelope/samples.npy" and entry["count"] == 3
+    data = (sampled / entry["file"]).read_bytes()
+    assert entry["sha256"] == bundle_module.sha256_hex(data)
+    # numpy.load (the reference reader of its own format) sees the same array.
+    import io
+    np.testing.assert_array_equal(np.load(io.BytesIO(data), allow_pickle=False), SAMPLES)
+    manifest = bundle_module.read_manifest(sampled)
+    read = bundle_module.read_envelope_samples(sampled, manifest)
+    np.testing.assert_array_equal(read, SAMPLES)
+    assert load(sampled).manifest.envelope_samples.radius == 0.3
+
+
+def test_samples_checksum_mismatch(sampled):
+    path = sampled / "envelope" / "samples.npy"
+    data = bytearray(path.read_bytes())
+    data[-1] ^= 0x01
+    path.write_bytes(bytes(data))
+    with pytest.raises(BundleError, match=r"checksum of 'envelope/samples\.npy' \(envelope"):
+        load(sampled)
+
+
+@pytest.mark.parametrize(("array", "fortran", "message"), [
+    (SAMPLES[:2], False, r"has shape \(2, 2\); the manifest promises \(3, 2\)"),
+    (SAMPLES.astype(">f8"), False, r"holds dtype '>f8'; expected one of \['<f4', '<f8'\]"),
+    (SAMPLES.astype(np.int64), False, r"holds dtype '<i8'"),
+    (np.array([[1, 2], [3, 4], [5, 6]], dtype=object), False, r"holds dtype '\|O'"),
+    (SAMPLES, True, r"is stored in Fortran order; expected C order"),
+    (np.where(SAMPLES == 1.0, np.nan, SAMPLES), False, r"holds non-finite values"),
+])
+def test_bad_samples_file_refused(sampled, array, fortran, message):
+    write_samples_file(sampled, array, fortran=fortran)
+    with pytest.raises(BundleError, match=r"`envelope.samples.file` " + message):
+        load(sampled)
+
+
+def test_samples_file_not_npy_or_truncated(sampled):
+    path = sampled / "envelope" / "samples.npy"
+    good = path.read_bytes()
+    for data, message in ((b"not a numpy file", "is not a readable .npy file"),
+                          (good[:-8], "holds 40 bytes of data; shape \\(3, 2\\) of <f8 needs 48")):
+        path.write_bytes(data)
+        edit_manifest(sampled, lambda d, data=data: d["envelope"]["samples"].__setitem__(
+            "sha256", bundle_module.sha256_hex(data)))
+        with pytest.raises(BundleError, match=message):
+            load(sampled)
+
+
+@pytest.mark.parametrize("path", ["../samples.npy", "/etc/passwd", "envelope/../../x.npy"])
+def test_samples_path_escapes_refused(sampled, path):
+    edit_manifest(sampled, lambda d: d["envelope"]["samples"].__setitem__("file", path))
+    with pytest.raises(BundleError, match=r"`envelope\.samples\.file`"):
+        load(sampled)
+
+
+def test_samples_symlink_and_size_limit_refused(sampled, tmp_path):
+    size = (sampled / "envelope" / "samples.npy").stat().st_size
+    level_size = max(p.stat().st_size for p in (sampled / "levels").iterdir())
+    assert level_size < size  # so a limit between them stops only the samples file
+    with pytest.raises(BundleError, match=rf"samples\.npy' of {size} bytes; the limit is"):
+        load(sampled, limits=Limits(max_model_bytes=level_size))
+    target = sampled / "envelope" / "samples.npy"
+    outside = tmp_path / "outside.npy"
+    outside.write_bytes(target.read_bytes())
+    target.unlink()
+    target.symlink_to(outside)
+    with pytest.raises(BundleError, match="symlink"):
+        load(sampled)
+
+
+def test_write_bundle_checks_extra_files(sampled, tmp_path):
+    from dataclasses import replace
+
+    manifest = bundle_module.read_manifest(sampled)
+    level = {stride: (sampled / f"levels/stride-{stride:05d}.onnx").read_bytes()
+             for stride in (1, 4)}
+    samples = (sampled / "envelope" / "samples.npy").read_bytes()
+    with pytest.raises(BundleError, match=r"names 'notes.txt', which the manifest does not"):
+        bundle_module.write_bundle(tmp_path / "b", manifest, level, extra_files={
+            "envelope/samples.npy": samples, "notes.txt": b"hi"})
+    with pytest.raises(BundleError, match=r"`extra_files` does not hold it"):
+        bundle_module.write_bundle(tmp_path / "c", manifest, level)
+    with pytest.raises(BundleError, match=r"has shape \(3, 2\); the manifest promises \(5, 2\)"):
+        bundle_module.write_bundle(
+            tmp_path / "d", replace(manifest, envelope_samples=replace(
+                manifest.envelope_samples, count=5)), level,
+            extra_files={"envelope/samples.npy": samples})
+    with pytest.raises(BundleError, match=r"is the manifest, the report or under levels/"):
+        bundle_module.write_bundle(tmp_path / "e", manifest, level,
+                                   extra_files={"levels/x.onnx": b""})
+    assert not any((tmp_path / name).exists() for name in "bcde")
