@@ -89,8 +89,13 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
                 from error
         kernels[entry.stride] = kernel
     samples = read_envelope_samples(root, manifest, verify=verify, limits=limits)
-    return Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root),
-                   envelope_samples=samples, on_extrapolation=on_extrapolation)
+    stepper = Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root),
+                      envelope_samples=samples, on_extrapolation=on_extrapolation)
+    # What `Stepper.__reduce__` needs to load the same bundle the same way elsewhere.
+    stepper._load_arguments = (str(root), {"dtype": compute.name, "verify": verify,
+                                           "limits": limits, "fast_path": fast_path,
+                                           "on_extrapolation": on_extrapolation})
+    return stepper
 
 
 def _probe(kernel, mean, dtype: np.dtype, where: str) -> None:

@@ -158,6 +158,16 @@ class Stepper:
         return {stride: getattr(kernel, "path", "custom")
                 for stride, kernel in sorted(self._kernels.items())}
 
+    def __reduce__(self):
+        # A stepper travels (pickle, Dask, multiprocessing) as its bundle path, load options
+        # and level checksums, never as weights or code: the receiver loads and verifies the
+        # bundle itself, and refuses a bundle that changed since.
+        arguments = getattr(self, "_load_arguments", None)
+        if arguments is None:
+            raise TypeError("only a Stepper made by `stridecast.runtime.load` can be pickled.")
+        checksums = tuple((entry.stride, entry.sha256) for entry in self._manifest.levels)
+        return _load_again, (*arguments, checksums)
+
     def __repr__(self) -> str:
         return (f"Stepper(name={self._manifest.name!r}, state_dim={self.state_dim}, "
                 f"base_step={self.base_step}, strides={self.strides}, dtype={self._dtype})")
@@ -737,3 +747,16 @@ class Stepper:
                                                  np.array([resolution.t]))[0]),
             findings=self._horizon_findings(np.array([resolution.t])),
         )
+
+
+def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...]) -> Stepper:
+    """Unpickle a `Stepper`: load the bundle at `path` again and check it is the same one."""
+    from .errors import BundleError
+    from .loader import load
+
+    stepper = load(path, **options)
+    found = tuple((entry.stride, entry.sha256) for entry in stepper.manifest.levels)
+    if found != checksums:
+        raise BundleError(f"the bundle at {path!r} changed since the stepper was pickled "
+                          "(its levels or checksums differ); refusing to use it.")
+    return stepper

@@ -89,9 +89,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _register_optional(subparsers) -> None:
     """Commands of the other parts; each module adds its own parser."""
-    from . import commands_optional
+    from . import commands_ensemble, commands_optional
 
     commands_optional.register(subparsers, _add)
+    commands_ensemble.register(subparsers, _add)
 
 
 def _resolve(handler: str) -> Handler:
