@@ -1,4 +1,4 @@
-"""`python -m benchmarks`: run the suite, print the Markdown report, write JSON and the plot."""
+"""`python -m stridecast.benchmarks`: run the suite, print the report, write JSON and the plot."""
 
 from __future__ import annotations
 
@@ -16,12 +16,12 @@ from .suite import measure_pass, run_suite
 
 RESULTS_NAME = "bench-results.json"
 PLOT_NAME = "bench-horizon.png"
-COMMAND = "python -m benchmarks --out-dir docs --markdown docs/benchmarks.md"
+COMMAND = "python -m stridecast.benchmarks --out-dir docs --markdown docs/benchmarks.md"
 
 
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="python -m benchmarks",
+        prog="python -m stridecast.benchmarks",
         description="Benchmark the stridecast runtime against onnxruntime, torch eager, the "
                     "naive finest-level rollout and SciPy's solve_ivp.",
         epilog=f"example:\n  {COMMAND}", formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -96,7 +96,7 @@ def _print_and_write(results: dict[str, Any], plot: Path, markdown: Path | None)
 
 
 def _command(arguments: argparse.Namespace) -> str:
-    parts = ["python -m benchmarks"]
+    parts = ["python -m stridecast.benchmarks"]
     if arguments.quick:
         parts.append("--quick")
     out_dir = None if arguments.out_dir == Path(".") else arguments.out_dir

@@ -1,6 +1,6 @@
 """HTTP service throughput and latency, against the in-process runtime call.
 
-``python -m benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts
+``python -m stridecast.benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts
 `stridecast.service.serve` in a subprocess on 127.0.0.1 (a free port), then times
 `POST /v1/models/{name}/advance` for batches of 1 and 256 states, 1, 8 and 32 concurrent
 clients, JSON and MessagePack bodies, in bounded loops (a time budget and a request cap per
@@ -151,7 +151,8 @@ def to_markdown(rows: list[dict[str, Any]]) -> str:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(
         description=__doc__.splitlines()[0],
-        epilog="example:\n  python -m benchmarks.service_bench crane-demo.bundle --quick",
+        epilog="example:\n"
+               "  python -m stridecast.benchmarks.service_bench crane-demo.bundle --quick",
         formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("bundle", type=Path, help="bundle directory to serve")
     parser.add_argument("--quick", action="store_true", help="short budgets (a smoke run)")

@@ -30,9 +30,7 @@ SINGLE_THREAD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1",
 # seconds per call and adds nothing the log-log slope does not already show.
 MAX_SOLVER_TIME = 120.0
 QUICK_SOLVER_STEPS = (100, 1_000, 3_000)
-# Installed as `stridecast.benchmarks`; run from a checkout as `benchmarks`.
-PACKAGE = __name__.rsplit(".", 1)[0]
-REPOSITORY = Path(__file__).resolve().parent.parent
+PACKAGE = __name__.rsplit(".", 1)[0]  # stridecast.benchmarks, its only import name
 
 
 def shipped_crane_bundle() -> Path | None:
@@ -87,7 +85,7 @@ def single_thread_pass(bundle: Path, *, quick: bool, out: Path) -> dict[str, Any
         command.append("--quick")
     logger.info("single-thread pass: %s", " ".join(f"{k}={v}" for k, v in
                                                      SINGLE_THREAD_ENV.items()))
-    subprocess.run(command, cwd=REPOSITORY if PACKAGE == "benchmarks" else None, env=env,
+    subprocess.run(command, env=env,
                    check=True)
     return json.loads(out.read_text(encoding="utf-8"))
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from onnx import helper
 
-from tests.runtime.test_ops import FLOATS, Case, check_against_references, ids, sample
+from tests.builders import FLOATS, Case, check_against_references, ids, sample
 
 RNG = np.random.default_rng(20250112)
 INT64_MAX, INT64_MIN = np.iinfo(np.int64).max, np.iinfo(np.int64).min
