@@ -133,7 +133,7 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
     if "--crane-bundle" in results["command"]:
         crane_text = (" `--crane-bundle` names a bundle trained on the crane scenario (made "
                       "with `stridecast demo --quick --out PATH`); without it the bundle shipped "
-                      "as `stridecast/data/crane-demo.bundle` is used when present.")
+                      "in the package (`stridecast.demo_bundle()`) is used when present.")
     sections = [
         "# Benchmarks",
         f"Regenerate with `{results['command']}` from the repository root ("

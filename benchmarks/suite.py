@@ -34,11 +34,13 @@ PACKAGE = __name__.rsplit(".", 1)[0]  # stridecast.benchmarks, its only import n
 
 
 def shipped_crane_bundle() -> Path | None:
-    """`stridecast/data/crane-demo.bundle` if the package ships it, else None."""
+    """`stridecast.demo_bundle()` if the package ships it, else None."""
     import stridecast
 
-    path = Path(stridecast.__file__).resolve().parent / "data" / "crane-demo.bundle"
-    return path if (path / "manifest.json").is_file() else None
+    try:
+        return stridecast.demo_bundle()
+    except FileNotFoundError:
+        return None
 
 
 def measure_pass(bundle: Path, *, quick: bool, modules=None, crane_bundle: Path | None = None,

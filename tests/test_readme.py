@@ -20,9 +20,11 @@ from pathlib import Path
 
 import pytest
 
+import stridecast
+
 ROOT = Path(__file__).resolve().parent.parent
 README = (ROOT / "README.md").read_text(encoding="utf-8")
-SHIPPED = ROOT / "stridecast" / "data" / "crane-demo.bundle"
+SHIPPED = stridecast.demo_bundle()
 BLOCK = re.compile(r"```(python|bash)\n(.*?)```", re.DOTALL)
 # Lines of the two set-up commands (covered by .ci/run and tests/cli/test_demo.py).
 SETUP = ("python3 -m venv",)
