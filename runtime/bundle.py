@@ -130,7 +130,7 @@ def read_levels(root: Path, manifest: Manifest, *, verify: bool = True,
 
 
 def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: Mapping[int, bytes],
-                 *, report: Mapping | None = None, overwrite: bool = False) -> Path:
+                 *, overwrite: bool = False) -> Path:
     """Write a bundle atomically and return its path.
 
     Parameters
@@ -141,8 +141,6 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         Its `levels` give strides and input/output names; files and checksums are filled in.
     level_files : mapping of stride to bytes
         Serialized ONNX model of each level.
-    report : mapping, optional
-        Written as `report.json`.
     overwrite : bool
         Replace an existing bundle at `out`; otherwise an existing path is an error.
     """
@@ -181,9 +179,6 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         (staging / "levels").mkdir()
         for entry in entries:
             (staging / entry.file).write_bytes(level_files[entry.stride])
-        if report is not None:
-            (staging / REPORT_NAME).write_text(
-                json.dumps(report, indent=2, allow_nan=False) + "\n", encoding="utf-8")
         (staging / MANIFEST_NAME).write_text(text + "\n", encoding="utf-8")
         move_into_place(staging, target)
     except BaseException:

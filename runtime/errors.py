@@ -31,5 +31,11 @@ class TimeError(StridecastError, ValueError):
     """A requested time is negative, non-finite, unreachable or beyond the work limits."""
 
 
+class OptionError(StridecastError, ValueError):
+    """An option of a call is not one this bundle or the runtime offers: a stride the bundle
+    lacks, a `vector_field` that is not callable, an unknown integrator or off-grid policy, a
+    tolerance or step size that is not a positive number."""
+
+
 class NonFiniteError(StateError):
     """A network step produced NaN or infinity; the message names the step and the level."""

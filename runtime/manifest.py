@@ -9,7 +9,7 @@ from __future__ import annotations
 import json
 import math
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -286,8 +286,3 @@ def _positive_int(value: Any, where: str) -> int:
         raise BundleError(f"`{where}` must be a positive integer; got {value!r}.")
     return value
 
-
-def check_dimension(values: Sequence[float] | None, dim: int, where: str) -> None:
-    """Raise `BundleError` unless `values` is None or has `dim` entries."""
-    if values is not None and len(values) != dim:
-        raise BundleError(f"`{where}` has {len(values)} entries; the state has {dim}.")

@@ -23,7 +23,7 @@ from onnx import AttributeProto, TensorProto, helper, numpy_helper
 from stridecast.runtime.errors import ModelFormatError
 from stridecast.runtime.limits import Limits
 from stridecast.runtime.onnx_model import Attribute, Model
-from stridecast.runtime.onnx_reader import load_model_file, read_model
+from stridecast.runtime.onnx_reader import read_model
 from tests.builders import (
     SMALL,
     length_delimited,
@@ -257,12 +257,6 @@ def test_full_model_matches_onnx() -> None:
     assert model.graph.inputs[2].shape == ()
     assert model.functions[0].nodes[1].attributes[0] == Attribute("alpha", None, "alpha")
     assert model.opset == 17
-
-
-def test_load_model_file_matches_onnx_load(tmp_path) -> None:
-    path = tmp_path / "full.onnx"
-    onnx.save(full_model(), path)
-    assert_model_matches(load_model_file(path), onnx.load(path))
 
 
 @pytest.mark.parametrize("value", [0.0, 7, "text", [1.5, 2.5], [1, 2], ["p", "q"]])
@@ -558,19 +552,11 @@ def test_wire_faults_name_the_message() -> None:
         read_model(tag(2**29, 0) + b"\x00" + model_bytes())
 
 
-def test_files_over_the_size_limit_are_refused_before_reading(tmp_path) -> None:
-    path = tmp_path / "model.onnx"
+def test_models_over_the_size_limit_are_refused() -> None:
     data = model_bytes()
-    path.write_bytes(data)
-    limits = Limits(max_model_bytes=len(data) - 1)
-    with pytest.raises(ModelFormatError, match=rf"ONNX file '.*model\.onnx' holds {len(data)} "
-                       rf"bytes; the limit `max_model_bytes` is {len(data) - 1}\."):
-        load_model_file(path, limits=limits)
     with pytest.raises(ModelFormatError, match=rf"holds {len(data)} bytes; the limit"):
-        read_model(data, limits=limits)
-    assert load_model_file(path, limits=Limits(max_model_bytes=len(data))).graph.name == "g"
-    with pytest.raises(ModelFormatError, match=r"Cannot read ONNX file '.*missing\.onnx'"):
-        load_model_file(tmp_path / "missing.onnx")
+        read_model(data, limits=Limits(max_model_bytes=len(data) - 1))
+    assert read_model(data, limits=Limits(max_model_bytes=len(data))).graph.name == "g"
 
 
 # --- robustness ----------------------------------------------------------------------------

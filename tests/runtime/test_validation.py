@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from stridecast.runtime.errors import StateError, TimeError
+from stridecast.runtime.errors import OptionError, StateError, TimeError
 from stridecast.runtime.validation import check_off_grid, check_state, check_time, check_times
 
 NAMES = ("x", "v")
@@ -52,6 +52,7 @@ def test_check_times_and_check_time():
 
 def test_check_off_grid_lists_the_choices():
     assert check_off_grid("nearest") == "nearest"
-    with pytest.raises(ValueError, match=r"`off_grid` is 'round'; expected one of "
+    # An option, not a time: OptionError (still a ValueError for callers catching that).
+    with pytest.raises(OptionError, match=r"`off_grid` is 'round'; expected one of "
                                          r"\['interpolate', 'nearest', 'error'\]\."):
         check_off_grid("round")
