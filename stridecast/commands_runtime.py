@@ -125,7 +125,8 @@ def advance_command(arguments: argparse.Namespace) -> int:
     else:
         steps = " + ".join(f"{count}×{stride}" for stride, count in plan.steps) or "none"
         print(f"t = {arguments.t:g} {stepper.manifest.time_unit}  (method {plan.method}; "
-              f"steps {steps}; {plan.evaluations} network evaluations)")
+              f"steps {steps}; {plan.evaluations} network "
+              f"evaluation{'' if plan.evaluations == 1 else 's'})")
         rows = result.reshape(-1, stepper.state_dim)
         print("  ".join(f"{name:>14}" for name in stepper.state_names))
         for row in rows:

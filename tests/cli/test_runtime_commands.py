@@ -75,3 +75,10 @@ def test_every_command_has_help_with_example():
         result = subprocess.run([sys.executable, "-m", "stridecast", command, "--help"],
                                 capture_output=True, text=True, check=True)
         assert "example:" in result.stdout
+
+
+def test_advance_says_evaluation_in_the_singular_for_one(bundle, capsys):
+    # t = 1.6 = one stride-16 step of 0.1: a single network evaluation.
+    assert main(["advance", str(bundle), "--state", "1,0", "--t", "1.6"]) == 0
+    out = capsys.readouterr().out
+    assert "; 1 network evaluation)" in out
