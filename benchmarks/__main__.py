@@ -1,4 +1,4 @@
-"""Entry point of ``python -m benchmarks``."""
+"""Entry point of ``python -m stridecast.benchmarks``."""
 
 import sys
 

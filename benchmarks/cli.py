@@ -1,4 +1,4 @@
-"""`python -m benchmarks`: run the suite, print the Markdown report, write JSON and the plot."""
+"""`python -m stridecast.benchmarks`: run the suite, print the report, write JSON and the plot."""
 
 from __future__ import annotations
 
@@ -20,12 +20,12 @@ PLOT_NAME = "bench-horizon.png"
 # them (to work around a VM's CPU detection) would change the BLAS kernel measured, so the
 # documented command clears them and the report names the kernel threadpoolctl found.
 COMMAND = ("env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "
-           "python -m benchmarks --out-dir docs --markdown docs/benchmarks.md")
+           "python -m stridecast.benchmarks --out-dir docs --markdown docs/benchmarks.md")
 
 
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="python -m benchmarks",
+        prog="python -m stridecast.benchmarks",
         description="Benchmark the stridecast runtime against onnxruntime, torch eager, the "
                     "naive finest-level rollout and SciPy's solve_ivp.",
         epilog=f"example:\n  {COMMAND}", formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -93,7 +93,7 @@ def _print_and_write(results: dict[str, Any], plot: Path, markdown: Path | None)
 
 
 def _command(arguments: argparse.Namespace) -> str:
-    parts = ["env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python -m benchmarks"]
+    parts = ["env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python -m stridecast.benchmarks"]
     if arguments.quick:
         parts.append("--quick")
     out_dir = None if arguments.out_dir == Path(".") else arguments.out_dir
@@ -130,7 +130,7 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
     if "--crane-bundle" in results["command"]:
         crane_text = (" `--crane-bundle` names a bundle trained on the crane scenario (made "
                       "with `stridecast demo --quick --out PATH`); without it the bundle shipped "
-                      "as `stridecast/data/crane-demo.bundle` is used when present.")
+                      "in the package (`stridecast.demo_bundle()`) is used when present.")
     sections = [
         "# Benchmarks",
         f"Regenerate with `{results['command']}` from the repository root ("

@@ -280,7 +280,7 @@ def solver_note(solvers: Mapping[str, Any]) -> str:
             text += " No DOP853 tolerance tried was as loose as the stepper's error allows."
         return text
     return ("No bundle trained on the crane was available (no `--crane-bundle`, no shipped "
-            "`stridecast/data/crane-demo.bundle`): the stepper timed is the untrained reference "
+            "bundle at `stridecast.demo_bundle()`): the stepper timed is the untrained reference "
             "model, whose cost per step equals any network of its size, and DOP853 runs at a "
             "fixed tolerance, **not matched** to a stepper error.")
 

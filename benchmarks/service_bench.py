@@ -1,8 +1,8 @@
 """Service throughput and latency per wire format, against the same answer computed in process.
 
-``python -m benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts the service in a
-subprocess on 127.0.0.1 (free ports, HTTP and gRPC) and times the open inference protocol's
-`infer` for batches of 1 and 64 states, 1 and 8 concurrent clients, with four encodings side by
+``python -m stridecast.benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts the
+service in a subprocess on 127.0.0.1 (free ports, HTTP and gRPC) and times the open
+inference protocol's `infer` for batches of 1 and 64 states, 1 and 8 concurrent clients, with four encodings side by
 side: JSON, MessagePack, the binary tensor data extension, and gRPC (raw tensor contents). It
 does so twice, under uvicorn's pure-Python stack (asyncio + h11) and under uvloop + httptools,
 to show whether they help. The floors: onnxruntime running the bundle's ONNX files in this
@@ -258,7 +258,7 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(
         description=__doc__.splitlines()[0],
         epilog="example:\n  env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "
-               "python -m benchmarks.service_bench crane-demo.bundle --quick",
+               "python -m stridecast.benchmarks.service_bench crane-demo.bundle --quick",
         formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("bundle", type=Path, help="bundle directory to serve")
     parser.add_argument("--quick", action="store_true", help="short budgets (a smoke run)")

@@ -28,17 +28,17 @@ BUSY_HORIZONS = (1_000,)
 # seconds per call and adds nothing the log-log slope does not already show.
 MAX_SOLVER_TIME = 120.0
 QUICK_SOLVER_STEPS = (100, 1_000, 3_000)
-# Installed as `stridecast.benchmarks`; run from a checkout as `benchmarks`.
-PACKAGE = __name__.rsplit(".", 1)[0]
-REPOSITORY = Path(__file__).resolve().parent.parent
+PACKAGE = __name__.rsplit(".", 1)[0]  # stridecast.benchmarks, its only import name
 
 
 def shipped_crane_bundle() -> Path | None:
-    """`stridecast/data/crane-demo.bundle` if the package ships it, else None."""
+    """`stridecast.demo_bundle()` if the package ships it, else None."""
     import stridecast
 
-    path = Path(stridecast.__file__).resolve().parent / "data" / "crane-demo.bundle"
-    return path if (path / "manifest.json").is_file() else None
+    try:
+        return stridecast.demo_bundle()
+    except FileNotFoundError:
+        return None
 
 
 def measure_pass(bundle: Path, *, quick: bool, modules=None, crane_bundle: Path | None = None,

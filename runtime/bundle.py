@@ -168,7 +168,7 @@ def read_envelope_samples(root: Path, manifest: Manifest, *, verify: bool = True
 
 
 def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: Mapping[int, bytes],
-                 *, report: Mapping | None = None, overwrite: bool = False,
+                 *, overwrite: bool = False,
                  extra_files: Mapping[str, bytes] | None = None) -> Path:
     """Write a bundle atomically and return its path.
 
@@ -181,8 +181,6 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         The checksum of `envelope_samples`, if set, is filled in from `extra_files`.
     level_files : mapping of stride to bytes
         Serialized ONNX model of each level.
-    report : mapping, optional
-        Written as `report.json`.
     overwrite : bool
         Replace an existing bundle at `out`; otherwise an existing path is an error.
     extra_files : mapping of relative path to bytes, optional
@@ -235,9 +233,6 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
             path = staging.joinpath(*check_relative_path(relative, "extra_files"))
             path.parent.mkdir(parents=True, exist_ok=True)
             path.write_bytes(data)
-        if report is not None:
-            (staging / REPORT_NAME).write_text(
-                json.dumps(report, indent=2, allow_nan=False) + "\n", encoding="utf-8")
         (staging / MANIFEST_NAME).write_text(text + "\n", encoding="utf-8")
         move_into_place(staging, target)
     except BaseException:

@@ -32,7 +32,9 @@ class TimeError(StridecastError, ValueError):
 
 
 class OptionError(StridecastError, ValueError):
-    """An option passed to `load` (such as `threads`) has a value the runtime cannot use."""
+    """An option of a call is not one this bundle or the runtime offers: a stride the bundle
+    lacks, a `vector_field` that is not callable, an unknown integrator or off-grid policy, a
+    tolerance or step size that is not a positive number."""
 
 
 class NonFiniteError(StateError):

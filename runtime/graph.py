@@ -75,18 +75,7 @@ def build_program(model: Model, *, input_name: str, output_name: str,
             f"the graph's outputs are {output_names}; the manifest expects {output_name!r}."
         )
 
-    nodes = _inline_functions(graph.nodes, model, budget=_Budget(max_nodes))
-    nodes = _topological_order(nodes, initializer_names | {input_name})
-    produced = {name for node in nodes for name in node.outputs if name}
-    if output_name not in produced | initializer_names | {input_name}:
-        raise ModelFormatError(
-            f"the graph declares the output {output_name!r} but no node, initializer or input "
-            "produces it."
-        )
-    nodes = _needed_nodes(nodes, output_name)
-    constants = {tensor.name: _as_compute(tensor.array, dtype) for tensor in graph.initializers}
-    bound = [_bind(node, model, dtype) for node in nodes]
-
+    bound, constants = _prepare(model, [input_name], [output_name], dtype, max_nodes)
     if fold_constants:
         bound = _fold_constants(bound, constants)
     used = {name for b in bound for name in b.node.inputs} | {output_name}
@@ -96,8 +85,68 @@ def build_program(model: Model, *, input_name: str, output_name: str,
                    releases=_release_schedule(bound, output_name, set(constants)))
 
 
+def run_graph(model: Model, feeds: Mapping[str, np.ndarray], *,
+              dtype: np.dtype | str = "float32", max_nodes: int = 100_000
+              ) -> dict[str, np.ndarray]:
+    """Run a whole graph once: any number of inputs, every declared output.
+
+    The same interpreter as `build_program` (inlining, ordering, binding in the compute
+    precision `dtype`), without constant folding or fast paths; for checking operators on
+    multi-input graphs such as the ONNX backend test cases.
+
+    Parameters
+    ----------
+    model : Model
+    feeds : mapping of str to ndarray
+        A value for each graph input that no initializer provides; floating feeds are
+        converted to `dtype`.
+    dtype : dtype or str
+        The compute precision of floating tensors (float32 or float64).
+
+    Returns
+    -------
+    dict of str to ndarray
+        Each graph output by name, in the graph's order.
+    """
+    dtype = np.dtype(dtype)
+    graph = model.graph
+    initializer_names = {tensor.name for tensor in graph.initializers}
+    needed = [info.name for info in graph.inputs if info.name not in initializer_names]
+    missing = [name for name in needed if name not in feeds]
+    if missing:
+        raise ModelFormatError(
+            f"`feeds` lacks the graph inputs {missing}; expected a value for each of {needed}."
+        )
+    output_names = [info.name for info in graph.outputs]
+    bound, values = _prepare(model, list(feeds), output_names, dtype, max_nodes)
+    values.update({name: _as_compute(np.asarray(value), dtype) for name, value in feeds.items()})
+    for item in bound:
+        _execute(item, values)
+    return {name: values[name] for name in output_names}
+
+
+def _prepare(model: Model, input_names: list[str], output_names: list[str], dtype: np.dtype,
+             max_nodes: int) -> tuple[list[BoundNode], dict[str, np.ndarray]]:
+    """Inline, order and bind the nodes the outputs need; the initializers in `dtype`."""
+    graph = model.graph
+    available = {tensor.name for tensor in graph.initializers} | set(input_names)
+    nodes = _inline_functions(graph.nodes, model, budget=_Budget(max_nodes))
+    nodes = _topological_order(nodes, available)
+    produced = {name for node in nodes for name in node.outputs if name}
+    for output_name in output_names:
+        if output_name not in produced | available:
+            raise ModelFormatError(
+                f"the graph declares the output {output_name!r} but no node, initializer or "
+                "input produces it."
+            )
+    nodes = _needed_nodes(nodes, output_names)
+    constants = {tensor.name: _as_compute(tensor.array, dtype) for tensor in graph.initializers}
+    return [_bind(node, model, dtype) for node in nodes], constants
+
+
 def _as_compute(array: np.ndarray, dtype: np.dtype) -> np.ndarray:
-    # Floating initializers follow the requested compute precision; integers keep their type.
+    # The compute-precision policy (documented in ops/tensors.py): floating initializers,
+    # constants and casts follow the requested precision; integers and bools keep their type.
     if array.dtype.kind == "f" and array.dtype != dtype:
         array = array.astype(dtype)
     return array
@@ -140,6 +189,10 @@ def _bind(node: Node, model: Model, dtype: np.dtype) -> BoundNode:
         # Casts between float types follow the compute precision, like the initializers.
         attributes["to"] = 11 if dtype == np.float64 else 1
     if node.op_type == "Constant":
+        # value_float(s) would make float32 tensors; give them as `value` in `dtype` instead.
+        for name in ("value_float", "value_floats"):
+            if name in attributes:
+                attributes["value"] = np.asarray(attributes.pop(name), dtype=dtype)
         attributes = {k: _as_compute(v, dtype) if isinstance(v, np.ndarray) else v
                       for k, v in attributes.items()}
     return BoundNode(node=node, function=function, attributes=attributes)
@@ -225,8 +278,8 @@ def _topological_order(nodes: tuple[Node, ...], available: set[str]) -> tuple[No
     return tuple(ordered)
 
 
-def _needed_nodes(nodes: tuple[Node, ...], output_name: str) -> tuple[Node, ...]:
-    needed = {output_name}
+def _needed_nodes(nodes: tuple[Node, ...], output_names: list[str]) -> tuple[Node, ...]:
+    needed = set(output_names)
     kept = []
     for node in reversed(nodes):
         if any(name in needed for name in node.outputs if name):

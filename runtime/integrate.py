@@ -15,7 +15,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from .errors import NonFiniteError, StateError, TimeError
+from .errors import NonFiniteError, OptionError, StateError, TimeError
 
 VectorField = Callable[[np.ndarray], np.ndarray]
 """`vector_field(states) -> derivatives`, both of shape (B, d)."""
@@ -170,7 +170,7 @@ def _positive_or_none(name: str, value: float | None) -> float | None:
         return None
     value = float(value)
     if not (math.isfinite(value) and value > 0):
-        raise TimeError(f"`{name}` must be a finite positive number; got {value!r}.")
+        raise OptionError(f"`{name}` must be a finite positive number; got {value!r}.")
     return value
 
 
@@ -311,12 +311,14 @@ def integrate(
         If `state` is not a finite (B, d) array or `vector_field` returns the wrong shape.
     NonFiniteError
         If `vector_field` returns NaN or infinity; the message names the time reached.
+    OptionError
+        If `method`, a step or tolerance setting, or `max_evaluations` is invalid.
     TimeError
-        If `duration` or a step/tolerance setting is invalid, the budget of evaluations is
-        exceeded, or the adaptive step size collapses.
+        If `duration` is invalid, the budget of evaluations is exceeded, or the adaptive step
+        size collapses.
     """
     if method not in METHODS:
-        raise TimeError(f"`method` must be one of {sorted(METHODS)}; got {method!r}.")
+        raise OptionError(f"`method` must be one of {sorted(METHODS)}; got {method!r}.")
     scheme = METHODS[method]()
     y0 = np.asarray(state)
     if y0.ndim != 2:
@@ -331,12 +333,12 @@ def integrate(
     max_step = _positive_or_none("max_step", max_step)
     first_step = _positive_or_none("first_step", first_step)
     if not (rtol >= MIN_RTOL and atol > 0):
-        raise TimeError(
+        raise OptionError(
             f"`rtol` must be at least {MIN_RTOL:.3g} and `atol` positive; got "
             f"rtol={rtol!r}, atol={atol!r}."
         )
     if int(max_evaluations) < 1:
-        raise TimeError(f"`max_evaluations` must be at least 1; got {max_evaluations!r}.")
+        raise OptionError(f"`max_evaluations` must be at least 1; got {max_evaluations!r}.")
     if duration == 0:
         return y0.astype(out_dtype, copy=True), 0
     evaluate = _Counter(vector_field, y.shape, int(max_evaluations))
@@ -347,6 +349,6 @@ def integrate(
     else:
         step = max_step or first_step
         if step is None:
-            raise TimeError("`max_step` is required for method 'rk4'; got None.")
+            raise OptionError("`max_step` is required for method 'rk4'; got None.")
         final = _fixed(scheme, evaluate, y, duration, step)
     return final.astype(out_dtype, copy=False), evaluate.evaluations

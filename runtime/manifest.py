@@ -10,7 +10,7 @@ import itertools
 import json
 import math
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -431,8 +431,3 @@ def _positive_int(value: Any, where: str) -> int:
         raise BundleError(f"`{where}` must be a positive integer; got {value!r}.")
     return value
 
-
-def check_dimension(values: Sequence[float] | None, dim: int, where: str) -> None:
-    """Raise `BundleError` unless `values` is None or has `dim` entries."""
-    if values is not None and len(values) != dim:
-        raise BundleError(f"`{where}` has {len(values)} entries; the state has {dim}.")

@@ -6,7 +6,6 @@ the runtime cannot run faithfully (external data, sparse tensors, subgraphs) is 
 
 from __future__ import annotations
 
-import os
 from typing import Any
 
 import numpy as np
@@ -117,39 +116,6 @@ _FUNCTION = _schema(
     (5, "output", "string", True), (6, "attribute", "string", True),
     (7, "node", "message", True), (9, "opset_import", "message", True), (10, "domain", "string"),
     (11, "attribute_proto", "message", True), (13, "overload", "string"))
-
-
-def load_model_file(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LIMITS) -> Model:
-    """Read an ONNX file, refusing files larger than `limits.max_model_bytes` before reading.
-
-    Parameters
-    ----------
-    path : str or path-like
-        The .onnx file.
-    limits : Limits
-        Bounds on size, nesting depth and tensor elements.
-
-    Returns
-    -------
-    Model
-    """
-    source = os.fspath(path)
-    try:
-        with open(path, "rb") as stream:
-            size = os.fstat(stream.fileno()).st_size
-            if size > limits.max_model_bytes:
-                raise ModelFormatError(
-                    f"ONNX file {source!r} holds {size} bytes; the limit `max_model_bytes` is "
-                    f"{limits.max_model_bytes}."
-                )
-            # One byte past the size fstat gave, so a file that grew since is caught without
-            # allocating the whole limit up front (`read(n)` allocates n bytes).
-            data = stream.read(size + 1)
-            if len(data) > size:
-                raise ModelFormatError(f"ONNX file {source!r} grew while being read.")
-    except OSError as error:
-        raise ModelFormatError(f"Cannot read ONNX file {source!r}: {error}.") from error
-    return read_model(data, limits=limits, source=source)
 
 
 def read_model(data: bytes, *, limits: Limits = DEFAULT_LIMITS, source: str = "model") -> Model:

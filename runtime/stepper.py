@@ -21,7 +21,7 @@ from .anchors import (
 )
 from .curve import expected_errors
 from .envelope import Envelope
-from .errors import BundleError, NonFiniteError, StateError, TimeError
+from .errors import BundleError, NonFiniteError, OptionError, StateError, TimeError
 from .findings import (
     POLICIES,
     Finding,
@@ -207,7 +207,7 @@ class Stepper:
         """Apply the network of one level once (one stride) to `state`."""
         states, single = self._states(state)
         if stride not in self._kernels:
-            raise TimeError(f"`stride` is {stride!r}; this bundle has strides {self.strides}.")
+            raise OptionError(f"`stride` is {stride!r}; this bundle has strides {self.strides}.")
         result = self._apply(stride, states, depth=0)
         return result[0] if single else result
 
@@ -464,11 +464,11 @@ class Stepper:
         try:
             chosen = sorted(strides)
         except TypeError as error:
-            raise TimeError(f"`strides` is {strides!r}; expected a list of strides.") from error
+            raise OptionError(f"`strides` is {strides!r}; expected a list of strides.") from error
         bad = [s for s in chosen if isinstance(s, bool) or not isinstance(s, int | np.integer)
                or int(s) not in self._kernels]
         if not chosen or bad or len(set(chosen)) != len(chosen):
-            raise TimeError(
+            raise OptionError(
                 f"`strides` is {list(strides)!r}; expected a non-empty list of distinct strides "
                 f"of this bundle, {list(self.strides)}."
             )
@@ -527,7 +527,7 @@ class Stepper:
         t = check_time(t, unit=self._manifest.time_unit)
         check_off_grid(off_grid)
         if vector_field is not None and not callable(vector_field):
-            raise TimeError("`vector_field` must be a callable f(states) -> derivatives.")
+            raise OptionError("`vector_field` must be a callable f(states) -> derivatives.")
         if t / self.base_step > 2.0**52:
             raise TimeError(f"`t` is {t!r}, more than 2**52 base steps; refused.")
         positions, nearests, on_grids = grid_positions(np.array([t]), self.base_step)
@@ -564,7 +564,7 @@ class Stepper:
     def _resolve_hybrid(self, t: float, position: float, grid: int | None,
                         vector_field: VectorField | None, hybrid_below: int) -> _Resolution:
         if vector_field is None:
-            raise TimeError("`hybrid_below` needs a `vector_field` to replace the finest levels.")
+            raise OptionError("`hybrid_below` needs a `vector_field` to replace the finest levels.")
         planner = self._hybrid_planner(hybrid_below)
         floor = grid if grid is not None else math.floor(position)
         anchor = planner.floor_reachable(floor)
@@ -573,10 +573,10 @@ class Stepper:
 
     def _hybrid_planner(self, hybrid_below: int) -> StridePlanner:
         if isinstance(hybrid_below, bool) or not isinstance(hybrid_below, int | np.integer):
-            raise TimeError(f"`hybrid_below` is {hybrid_below!r}; expected a stride (integer).")
+            raise OptionError(f"`hybrid_below` is {hybrid_below!r}; expected a stride (integer).")
         kept = tuple(s for s in self.strides if s >= hybrid_below)
         if not kept:
-            raise TimeError(
+            raise OptionError(
                 f"`hybrid_below` = {hybrid_below} leaves no level (strides {list(self.strides)})."
             )
         with self._lock:

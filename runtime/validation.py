@@ -10,7 +10,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from .errors import StateError, TimeError
+from .errors import OptionError, StateError, TimeError
 
 OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
 
@@ -87,5 +87,5 @@ def check_time(t, *, unit: str) -> float:
 
 def check_off_grid(off_grid) -> str:
     if off_grid not in OFF_GRID_POLICIES:
-        raise TimeError(f"`off_grid` is {off_grid!r}; expected one of {list(OFF_GRID_POLICIES)}.")
+        raise OptionError(f"`off_grid` is {off_grid!r}; expected one of {list(OFF_GRID_POLICIES)}.")
     return off_grid

@@ -41,7 +41,7 @@ class Planner(Protocol):
     @property
     def strides(self) -> tuple[int, ...]: ...
 
-    def steps(self, n: int) -> tuple[tuple[int, int], ...]: ...
+    def count_matrix(self, targets: np.ndarray) -> np.ndarray: ...
 
 
 Group = tuple[int, np.ndarray, np.ndarray]
@@ -104,15 +104,8 @@ def _count_matrix(
     if values.ndim != 1 or (values.size and values.dtype.kind not in "iu"):
         values = np.asarray([operator.index(target) for target in targets], dtype=np.int64)
     distinct, target_rows = np.unique(values, return_inverse=True)
-    vectorised = getattr(planner, "count_matrix", None)
-    if vectorised is not None:
-        return strides, vectorised(distinct), target_rows.reshape(-1)
-    column = {stride: index for index, stride in enumerate(strides)}
-    counts = np.zeros((len(distinct), len(strides)), dtype=np.int64)
-    for row, target in enumerate(distinct.tolist()):
-        for stride, count in planner.steps(target):  # validates; raises TimeError if bad
-            counts[row, column[stride]] = count
-    return strides, counts, target_rows.reshape(-1)
+    # count_matrix validates every target (TimeError for negative, unreachable, too long).
+    return strides, planner.count_matrix(distinct), target_rows.reshape(-1)
 
 
 def build_schedule(targets: Sequence[int], planner: Planner) -> Schedule:
@@ -123,7 +116,8 @@ def build_schedule(targets: Sequence[int], planner: Planner) -> Schedule:
     targets : sequence of int
         Targets in base steps (non-negative; repeats share a node).
     planner : StridePlanner
-        Any object with `strides` and `steps(n)` returning ((stride, count), ...) coarse first.
+        Any object with `strides` and `count_matrix(targets)` giving each target's step count
+        per stride, largest stride first.
 
     Returns
     -------

@@ -17,6 +17,7 @@ from stridecast.runtime.errors import (
     BundleError,
     ModelFormatError,
     NonFiniteError,
+    OptionError,
     StateError,
     StridecastError,
     TimeError,
@@ -74,6 +75,8 @@ def from_domain_error(error: StridecastError) -> ApiError:
         return ApiError(422, str(error), code="invalid_state")
     if isinstance(error, TimeError):
         return ApiError(422, str(error), code="invalid_time")
+    if isinstance(error, OptionError):
+        return ApiError(422, str(error), code="invalid_option")
     if isinstance(error, BundleError | ModelFormatError):
         # Loading happens at start; a bundle error during a request means a broken model.
         return ApiError(500, f"the model could not run: {error}", code="model_error")

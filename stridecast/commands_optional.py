@@ -119,13 +119,13 @@ def export_command(arguments: argparse.Namespace) -> int:
 
 def serve_command(arguments: argparse.Namespace) -> int:
     from stridecast.cli import CAUTION
-    from stridecast.commands_runtime import DEMO_BUNDLE
+    from stridecast.commands_runtime import shipped_bundle
 
     with _needs("service"):
         from stridecast.service.server import serve
     paths = [Path(p) for p in arguments.paths]
     if arguments.demo:
-        paths.append(DEMO_BUNDLE)
+        paths.append(shipped_bundle())
     if not paths:
         print("stridecast serve: give at least one bundle path (or --demo).", file=sys.stderr)
         return 2

@@ -11,19 +11,24 @@ from pathlib import Path
 
 import numpy as np
 
+from stridecast import demo_bundle
 from stridecast.runtime import BundleError, Finding, StateError, TimeError, load
 from stridecast.runtime.findings import WARNING_KINDS
 
-DEMO_BUNDLE = Path(__file__).parent / "data" / "crane-demo.bundle"
+
+def shipped_bundle() -> Path:
+    """`stridecast.demo_bundle()`, its absence reported as a `BundleError`."""
+    try:
+        return demo_bundle()
+    except FileNotFoundError as error:
+        raise BundleError(str(error)) from error
 
 
 def bundle_path(arguments: argparse.Namespace) -> Path:
     if getattr(arguments, "demo", False):
         if arguments.bundle:
             raise BundleError("give either a bundle path or --demo, not both.")
-        if not (DEMO_BUNDLE / "manifest.json").is_file():
-            raise BundleError(f"the shipped demo bundle is missing at {DEMO_BUNDLE}.")
-        return DEMO_BUNDLE
+        return shipped_bundle()
     if not arguments.bundle:
         raise BundleError("a bundle path is required (or --demo for the shipped one).")
     return Path(arguments.bundle)
@@ -151,7 +156,8 @@ def advance_command(arguments: argparse.Namespace) -> int:
     else:
         steps = " + ".join(f"{count}×{stride}" for stride, count in plan.steps) or "none"
         print(f"t = {arguments.t:g} {stepper.manifest.time_unit}  (method {plan.method}; "
-              f"steps {steps}; {plan.evaluations} network evaluations)")
+              f"steps {steps}; {plan.evaluations} network "
+              f"evaluation{'' if plan.evaluations == 1 else 's'})")
         rows = result.reshape(-1, stepper.state_dim)
         print("  ".join(f"{name:>14}" for name in stepper.state_names))
         for row in rows:

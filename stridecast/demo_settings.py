@@ -8,8 +8,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
+from stridecast import demo_bundle
+
 DEFAULT_OUT = Path("crane-demo.bundle")
-SHIPPED_BUNDLE = Path(__file__).parent / "data" / "crane-demo.bundle"
+SHIPPED_BUNDLE = demo_bundle(must_exist=False)
 SHIP_COMMAND = "python -m stridecast.demo --ship"
 
 # 0.04 s resolves the 0.40 s bob with 10 samples per period. Strides grow by 5: 0.04, 0.2, 1,

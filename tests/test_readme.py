@@ -20,9 +20,11 @@ from pathlib import Path
 
 import pytest
 
+import stridecast
+
 ROOT = Path(__file__).resolve().parent.parent
 README = (ROOT / "README.md").read_text(encoding="utf-8")
-SHIPPED = ROOT / "stridecast" / "data" / "crane-demo.bundle"
+SHIPPED = stridecast.demo_bundle()
 BLOCK = re.compile(r"```(python|bash)\n(.*?)```", re.DOTALL)
 # Lines of the two set-up commands (covered by .ci/run and tests/cli/test_demo.py).
 SETUP = ("python3 -m venv",)
@@ -102,3 +104,35 @@ def test_readme_serve_and_curl(workdir):
     finally:
         os.killpg(server.pid, 15)
         server.wait(timeout=30)
+
+
+def _setup_commands() -> list[str]:
+    return [line for kind, body in blocks() if kind == "bash"
+            for line in shell_lines(body) if line.startswith(SETUP)]
+
+
+def test_ci_runs_the_readme_test_command_verbatim():
+    # The README promises its test command is what CI runs; .ci/run must contain it as is.
+    test_command = next(line for line in _setup_commands() if "pytest" in line)
+    ci = (ROOT / ".ci" / "run").read_text(encoding="utf-8")
+    assert test_command in ci.splitlines(), "README test command not found verbatim in .ci/run"
+
+
+def test_the_setup_commands_use_separate_ignored_environments():
+    # Two commands sharing one venv would silently reuse the first one's packages.
+    folders = [re.search(r"python3 -m venv (\S+)", line).group(1) for line in _setup_commands()]
+    assert len(folders) == 2 and len(set(folders)) == 2, folders
+    ignored = (ROOT / ".gitignore").read_text(encoding="utf-8").splitlines()
+    for folder in folders:
+        assert f"{folder}/" in ignored or (".venv-*/" in ignored and folder.startswith(".venv-"))
+
+
+@pytest.mark.parametrize("document", ["README.md", "DEVELOPERS.md", "docs/demo.md"])
+def test_install_commands_work_from_the_repository(document):
+    # stridecast is on no package index: `pip install stridecast[...]` would fail (or fetch a
+    # stranger's package). Every pip command installs the clone (-e .) or a named tool.
+    text = (ROOT / document).read_text(encoding="utf-8")
+    for match in re.finditer(r"pip install ([^\n`]*)", text):
+        arguments = match.group(1)
+        if "stridecast" in arguments or ".[" in arguments:
+            assert re.search(r"-e \"?\.(\[|\"| |$)", arguments), match.group(0)

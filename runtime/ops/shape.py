@@ -1,5 +1,5 @@
 """Operators that move or select elements without arithmetic: Transpose, Reshape, Flatten,
-Squeeze, Unsqueeze, Concat, Slice, Gather, Expand, Shape, Identity.
+Squeeze, Unsqueeze, Concat, Slice, Gather, Expand, Shape, Size, Identity.
 
 Many return NumPy views that share memory with their input; like every op output they are to
 be treated as read-only.
@@ -213,3 +213,9 @@ def Shape(data, *, start=0, end=None):
     end and out-of-range values are clamped, exactly as the spec describes.
     """
     return np.array(data.shape[start:end], dtype=np.int64)
+
+
+@register("Size", 1)
+def Size(data):
+    """Size (opset 1): the input's number of elements as a 0-d int64 tensor."""
+    return np.array(data.size, dtype=np.int64)

@@ -1,4 +1,11 @@
-"""Operators that create or retype tensors: Constant, ConstantOfShape, Range, Cast."""
+"""Operators that create or retype tensors: Constant, ConstantOfShape, Range, Cast, CastLike.
+
+Compute precision: the interpreter holds every floating tensor in one precision, the one the
+bundle is loaded with (float32 or float64). It binds Cast and CastLike to a floating type, and
+floating Constant values, to that precision, so a float16 cast in a model (as mixed-precision
+exports insert) does not round there; integer and bool types are kept exactly. Called directly,
+these functions convert to exactly the type asked for.
+"""
 
 from __future__ import annotations
 
@@ -19,7 +26,8 @@ def Cast(x, *, to, saturate=1, round_mode="up"):
     NumPy's conversions match the spec for the types the runtime holds: floats to integers
     truncate toward zero, anything to bool is "nonzero", out-of-range floats become ±inf.
     `saturate` and `round_mode` only concern 8-bit and smaller float types, which the runtime
-    does not hold.
+    does not hold. In a loaded graph, a cast to any floating type yields the compute precision
+    (see the module docstring).
 
     Parameters
     ----------
@@ -39,6 +47,29 @@ def Cast(x, *, to, saturate=1, round_mode="up"):
         return x.astype(target, copy=False)
 
 
+@register("CastLike", 15)
+def CastLike(x, target_type, *, saturate=1, round_mode="up"):
+    """CastLike (opset 15; `saturate` from 19, `round_mode` from 24): cast to target_type's dtype.
+
+    Only the dtype of `target_type` is used, never its values. Conversions are Cast's. In a
+    loaded graph every floating tensor is in the compute precision, so a floating
+    `target_type` carries that precision (see the module docstring).
+
+    Parameters
+    ----------
+    x : ndarray
+    target_type : ndarray
+        Any shape; its dtype is the result's.
+    """
+    target = np.asarray(target_type).dtype
+    if target not in NUMPY_DTYPES.values():
+        raise ModelFormatError(
+            f"CastLike `target_type` has dtype {target}; expected one of {_supported_types()}."
+        )
+    with np.errstate(invalid="ignore", over="ignore"):
+        return x.astype(target, copy=False)
+
+
 @register("Constant", 1)
 def Constant(*, value=None, value_float=None, value_floats=None, value_int=None,
              value_ints=None, value_string=None, value_strings=None, sparse_value=None):
@@ -46,6 +77,8 @@ def Constant(*, value=None, value_float=None, value_floats=None, value_int=None,
 
     ``value`` is a tensor (ndarray); ``value_float``/``value_int`` give 0-d float32/int64
     tensors, ``value_floats``/``value_ints`` 1-D ones. String and sparse values are refused.
+    In a loaded graph, floating values are bound in the compute precision (see the module
+    docstring): a float16 constant is widened, a float64 one rounded to float32 at load.
     """
     numeric = {
         "value": None if value is None else np.asarray(value),

@@ -192,7 +192,7 @@ def results(bench_result, solver_result):
               "peak_rss_kib": {"numpy": 1000.0, "stridecast": 1100.0}}
     passes = {"default": {"environment": bench_result["environment"], "bench": bench_result,
                           "solvers": solver_result, "system": system}}
-    return {"command": "python -m benchmarks --quick", "quick": True, "passes": passes,
+    return {"command": "python -m stridecast.benchmarks --quick", "quick": True, "passes": passes,
             "targets": {"default": report.measure_targets(bench_result, solver_result, system)}}
 
 
@@ -202,7 +202,7 @@ def test_document_and_plot(results, bench_result, solver_result, tmp_path):
     for heading in ("## Targets", "## Single-state", "## Batches", "## Dense forecast",
                     "## Against SciPy", "## Start-up and memory", "## Agreement"):
         assert heading in text
-    assert "`python -m benchmarks --quick`" in text
+    assert "`python -m stridecast.benchmarks --quick`" in text
     path = plot.plot_horizon(bench_result, solver_result, tmp_path / "horizon.png")
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     labels = plot.horizon_series(bench_result, solver_result)

@@ -142,3 +142,10 @@ def test_inspect_shows_validation_and_samples(tmp_path, capsys):
     manifest = json.loads(capsys.readouterr().out)["manifest"]
     assert manifest["validation"]["errors"] == [0.02, 0.06, 0.3]
     assert manifest["envelope"]["samples"]["count"] == 360
+
+
+def test_advance_says_evaluation_in_the_singular_for_one(bundle, capsys):
+    # t = 1.6 = one stride-16 step of 0.1: a single network evaluation.
+    assert main(["advance", str(bundle), "--state", "1,0", "--t", "1.6"]) == 0
+    out = capsys.readouterr().out
+    assert "; 1 network evaluation)" in out

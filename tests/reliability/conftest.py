@@ -1,8 +1,10 @@
-"""Session-level collector of the reliability tests and the writer of docs/reliability.md.
+"""Session-level collector of the reliability tests and the writer of their table.
 
-Tests record rows through the `reliability` fixture. At the end of the session the table is
-written, but only if every test in this folder was collected, ran and passed (or was an
-expected failure), so a partial or failing run never replaces the published figures.
+Tests record rows through the `reliability` fixture. A plain test run writes nothing (tests
+never modify tracked files). Only when `STRIDECAST_RELIABILITY_DOC` names a file, as
+`python -m tests.reliability.report` does, is the table written there at the end of the
+session, and only if every test in this folder was collected, ran and passed (or was an
+expected failure), so a partial or failing run never produces figures.
 """
 
 from __future__ import annotations
@@ -21,7 +23,7 @@ ITEMS = pytest.StashKey[set]()
 PASSED = pytest.StashKey[set]()
 PROBLEMS = pytest.StashKey[list]()
 KNOWN = pytest.StashKey[dict]()
-# Where the table goes; a test of this machinery points it elsewhere.
+# Where the table goes; unset (a plain test run), it goes nowhere.
 OUTPUT_VARIABLE = "STRIDECAST_RELIABILITY_DOC"
 # pytest_runtest_logreport receives no config; the session's is kept here by pytest_configure.
 _CONFIG: dict[str, pytest.Config] = {}
@@ -82,7 +84,9 @@ def pytest_sessionfinish(session: pytest.Session, exitstatus: int) -> None:
     rows = config.stash[COLLECTOR].rows
     if not items or not rows:
         return
-    target = Path(os.environ.get(OUTPUT_VARIABLE) or config.rootpath / "docs" / "reliability.md")
+    target = report_target(os.environ)
+    if target is None:
+        return
     text = ""
     if not problems:
         date = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
@@ -103,6 +107,12 @@ def pytest_sessionfinish(session: pytest.Session, exitstatus: int) -> None:
     os.replace(staging, target)
     if reporter is not None:
         reporter.write_line(f"reliability table ({len(rows)} rows) written to {target}")
+
+
+def report_target(environ) -> Path | None:
+    """The file to write the table to: `OUTPUT_VARIABLE` if set, otherwise none."""
+    value = environ.get(OUTPUT_VARIABLE, "")
+    return Path(value) if value else None
 
 
 @pytest.fixture(scope="session")

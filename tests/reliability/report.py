@@ -2,14 +2,28 @@
 
 Tests call `Collector.record`; rows with the same area and description merge (their case counts
 add up), so each parametrized case can record itself. Rendering is a pure function of the rows.
+
+Run as a command from the repository root, it regenerates the published figures::
+
+    python -m tests.reliability.report            # docs/reliability.md and the README summary
+
+It runs `pytest tests/reliability` with the table directed to a temporary file and, only if
+every reliability test ran and passed, moves it to docs/reliability.md and copies its summary
+into README.md between the ``reliability-summary`` markers. A plain test run writes nothing.
 """
 
 from __future__ import annotations
 
+import argparse
+import os
 import platform
 import re
+import subprocess
+import sys
+import tempfile
 import threading
 from dataclasses import dataclass, replace
+from pathlib import Path
 
 import numpy as np
 
@@ -20,15 +34,16 @@ FORBIDDEN = re.compile(r"crash|\bhung\b|\bhang|(?<!\d)(?<!\d[.,])500(?!\d|[.,]\d
 
 HEADER = """# Reliability
 
-<!-- Written by tests/reliability/conftest.py after a complete, passing run of
-     `python -m pytest tests/reliability`; hand edits are overwritten. -->
+<!-- Written by `python -m tests.reliability.report` after a complete, passing run of
+     tests/reliability; hand edits are overwritten. -->
 """
 
 METHOD = """## How the figures are made
 
 - Every row is recorded by a test in `tests/reliability/` while it runs; the table is written
   only when all of those tests ran and passed (a partial run, `-k`, `-m` or a failure leaves
-  the previous file alone). Regenerate with `python -m pytest tests/reliability -q`.
+  the previous file alone). Regenerate this file and the README's summary with
+  `python -m tests.reliability.report`; a plain test run writes nothing.
 - "Nothing outside the bundle is opened": `builtins.open` and `os.open` are recorded during
   `load`, and a valid, checksum-matching model placed beside the bundle is watched through its
   access time (set to 2001 first; a control read proves the file system updates it).
@@ -194,3 +209,83 @@ def render(rows: tuple[Row, ...], *, machine: str, date: str,
     lines += [f"- {item}" for item in FOUND]
     lines += ["", METHOD, FUZZING]
     return "\n".join(lines).rstrip() + "\n"
+
+
+# README.md holds the summary between these markers; `update_readme` replaces what is between.
+README_START = "<!-- reliability-summary:start (python -m tests.reliability.report) -->"
+README_END = "<!-- reliability-summary:end -->"
+SUMMARY_PREFIX = "**Summary.** "
+
+
+def readme_summary(document: str) -> str:
+    """The summary paragraph of a rendered document, worded for the README.
+
+    Raises
+    ------
+    ValueError
+        If the document has no summary line.
+    """
+    for line in document.splitlines():
+        if line.startswith(SUMMARY_PREFIX):
+            text = line[len(SUMMARY_PREFIX):]
+            return (text.replace("(listed below)", "(listed in docs/reliability.md)")
+                    .replace("under Known issues below", "under Known issues in "
+                             "docs/reliability.md"))
+    raise ValueError(f"the reliability document has no line starting {SUMMARY_PREFIX!r}.")
+
+
+def update_readme(readme: str, summary: str) -> str:
+    """`readme` with the text between the summary markers replaced by `summary`.
+
+    Raises
+    ------
+    ValueError
+        If the markers are missing or out of order.
+    """
+    start, end = readme.find(README_START), readme.find(README_END)
+    if start < 0 or end < start:
+        raise ValueError(f"README.md lacks the markers {README_START!r} … {README_END!r} "
+                         "(in that order); expected them around the reliability summary.")
+    head = readme[: start + len(README_START)]
+    return f"{head}\n{summary}\n{readme[end:]}"
+
+
+def _replace(path: Path, text: str) -> None:
+    staging = path.with_name(f"{path.name}.tmp-{os.getpid()}")
+    staging.write_text(text, encoding="utf-8")
+    os.replace(staging, path)
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the reliability tests and publish their table and summary; returns the exit code."""
+    root = Path(__file__).resolve().parents[2]
+    parser = argparse.ArgumentParser(
+        prog="python -m tests.reliability.report",
+        description="Run tests/reliability and, if every test passes, write the table to "
+                    "docs/reliability.md and its summary into README.md.",
+    )
+    parser.add_argument("--doc", type=Path, default=root / "docs" / "reliability.md",
+                        help="where to write the table (default: %(default)s)")
+    parser.add_argument("--readme", type=Path, default=root / "README.md",
+                        help="the README whose summary to replace (default: %(default)s)")
+    arguments = parser.parse_args(argv)
+    with tempfile.TemporaryDirectory() as scratch:
+        table = Path(scratch) / "reliability.md"
+        environment = {**os.environ, "STRIDECAST_RELIABILITY_DOC": str(table)}
+        done = subprocess.run([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider",
+                               "tests/reliability"], cwd=root, env=environment, check=False)
+        if done.returncode != 0 or not table.is_file():
+            print(f"reliability tests did not all pass (exit {done.returncode}); "
+                  f"{arguments.doc} and {arguments.readme} left unchanged.", file=sys.stderr)
+            return done.returncode or 1
+        document = table.read_text(encoding="utf-8")
+    readme = update_readme(arguments.readme.read_text(encoding="utf-8"),
+                           readme_summary(document))
+    _replace(arguments.doc, document)
+    _replace(arguments.readme, readme)
+    print(f"wrote {arguments.doc} and the summary in {arguments.readme}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

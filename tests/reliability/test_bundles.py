@@ -22,8 +22,7 @@ import pytest
 
 from stridecast.runtime import DEFAULT_LIMITS, BundleError, Limits, load, sha256_hex
 from stridecast.runtime import loader as loader_module
-from tests.builders import linear_bundle, oscillator_matrix
-from tests.runtime.test_bundle import edit_manifest
+from tests.builders import edit_manifest, linear_bundle, oscillator_matrix
 
 OLD_TIME = 978_307_200  # 2001-01-01, far older than any mtime in the test
 AREA_PATHS = "Bundles: paths"

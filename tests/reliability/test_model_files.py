@@ -32,8 +32,14 @@ from stridecast.runtime import (
 )
 from stridecast.runtime.graph import build_program
 from stridecast.runtime.onnx_reader import read_model
-from tests.runtime.test_onnx_reader import model_bytes, node_model, tensor_model
-from tests.runtime.test_protobuf import length_delimited, tag, varint
+from tests.builders import (
+    length_delimited,
+    model_bytes,
+    node_model,
+    tag,
+    tensor_model,
+    varint,
+)
 
 # Common practice for "no allocation from an unchecked size": a few copies of the input at most
 # (the reader may copy a misaligned raw_data once) plus the fixed cost of Python records.

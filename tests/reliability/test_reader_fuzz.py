@@ -19,7 +19,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from tests.runtime.test_onnx_reader import SMALL, mutate
+from tests.builders import SMALL, mutate
 
 EXAMPLES = 2_000
 DEADLINE = timedelta(seconds=1)

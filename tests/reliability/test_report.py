@@ -9,8 +9,17 @@ from pathlib import Path
 
 import pytest
 
-from tests.reliability.conftest import OUTPUT_VARIABLE
-from tests.reliability.report import FORBIDDEN, FOUND, Collector, render
+from tests.reliability.conftest import OUTPUT_VARIABLE, report_target
+from tests.reliability.report import (
+    FORBIDDEN,
+    FOUND,
+    README_END,
+    README_START,
+    Collector,
+    readme_summary,
+    render,
+    update_readme,
+)
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -69,3 +78,33 @@ def test_a_partial_run_does_not_write_the_document(tmp_path):
                           timeout=120)
     assert done.returncode == 0, done.stdout + done.stderr
     assert not target.exists()
+
+
+def test_a_plain_test_run_has_nowhere_to_write():
+    # Tests never modify tracked files: without the variable there is no target at all.
+    assert report_target({}) is None
+    assert report_target({OUTPUT_VARIABLE: ""}) is None
+    assert report_target({OUTPUT_VARIABLE: "/tmp/x.md"}) == Path("/tmp/x.md")
+
+
+def test_the_readme_summary_is_the_documents():
+    # The README's figures are copied from docs/reliability.md by the report command; the two
+    # tracked files must agree.
+    document = (ROOT / "docs" / "reliability.md").read_text(encoding="utf-8")
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    assert update_readme(readme, readme_summary(document)) == readme
+
+
+def test_update_readme_replaces_only_the_marked_block():
+    collector = Collector()
+    collector.record("Bundles: paths", "a", 3, "all refused")
+    summary = readme_summary(render(collector.rows, machine="m.", date="d"))
+    assert summary.startswith("3 hostile or concurrent cases")
+    assert summary.endswith("(listed in docs/reliability.md).")
+    readme = f"# Title\n\n{README_START}\nold figures\n{README_END}\n\nrest\n"
+    updated = update_readme(readme, summary)
+    assert updated == f"# Title\n\n{README_START}\n{summary}\n{README_END}\n\nrest\n"
+    with pytest.raises(ValueError, match=r"README.md lacks the markers"):
+        update_readme("# Title\n", summary)
+    with pytest.raises(ValueError, match=r"no line starting"):
+        readme_summary("# Reliability\n")

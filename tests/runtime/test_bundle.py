@@ -11,20 +11,13 @@ import pytest
 
 from stridecast.runtime import BundleError, Limits, load
 from stridecast.runtime import bundle as bundle_module
-from tests.builders import linear_bundle, oscillator_matrix
+from tests.builders import edit_manifest, linear_bundle, oscillator_matrix
 
 
 @pytest.fixture
 def bundle(tmp_path) -> Path:
     return linear_bundle(tmp_path / "osc.bundle", oscillator_matrix(), base_step=0.1,
                          strides=(1, 4))
-
-
-def edit_manifest(bundle: Path, change) -> None:
-    path = bundle / "manifest.json"
-    document = json.loads(path.read_text())
-    change(document)
-    path.write_text(json.dumps(document))
 
 
 def test_round_trip_manifest(bundle):

@@ -7,7 +7,7 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.linalg import expm
 
-from stridecast.runtime.errors import NonFiniteError, StateError, TimeError
+from stridecast.runtime.errors import NonFiniteError, OptionError, StateError, TimeError
 from stridecast.runtime.integrate import DormandPrince54, integrate
 
 
@@ -156,10 +156,10 @@ def test_evaluation_budget():
     [
         ({"duration": -1.0}, TimeError, r"`duration` must be finite and non-negative; got -1\.0"),
         ({"duration": np.inf}, TimeError, r"`duration` must be finite"),
-        ({"method": "euler"}, TimeError, r"`method` must be one of \['dopri5', 'rk4'\]"),
-        ({"method": "rk4"}, TimeError, r"`max_step` is required for method 'rk4'"),
-        ({"max_step": 0.0}, TimeError, r"`max_step` must be a finite positive number; got 0\.0"),
-        ({"rtol": 1e-20}, TimeError, r"`rtol` must be at least"),
+        ({"method": "euler"}, OptionError, r"`method` must be one of \['dopri5', 'rk4'\]"),
+        ({"method": "rk4"}, OptionError, r"`max_step` is required for method 'rk4'"),
+        ({"max_step": 0.0}, OptionError, r"`max_step` must be a finite positive number; got 0\.0"),
+        ({"rtol": 1e-20}, OptionError, r"`rtol` must be at least"),
         ({"state": np.ones(2)}, StateError, r"`state` must have shape \(B, d\); got .*\(2,\)"),
         ({"state": np.full((1, 2), np.nan)}, StateError, r"`state` must be finite"),
     ],

@@ -1,121 +1,76 @@
-"""The optional manifest blocks `validation` and `envelope.samples`: parse, refuse, round trip."""
+"""manifest.json parsing, validation and serialisation (runtime/manifest.py)."""
 
 from __future__ import annotations
 
-import copy
 import json
-import math
-from pathlib import Path
 
 import pytest
 
-from stridecast.runtime import (
-    SAMPLES_FILE,
-    BundleError,
-    EnvelopeSamples,
-    ValidationCurve,
-    load,
+from stridecast.runtime import BundleError
+from stridecast.runtime.manifest import (
+    LevelEntry,
+    Manifest,
+    level_file_name,
     parse_manifest,
     parse_manifest_text,
 )
 
-CRANE = Path(__file__).resolve().parents[2] / "stridecast" / "data" / "crane-demo.bundle"
-SHA = "ab" * 32
+SHA = "a" * 64
 
 
-def base_document() -> dict:
-    return {
-        "format": "stridecast.bundle", "format_version": 1,
-        "state": {"dim": 2, "names": ["x", "v"], "units": ["m", "m/s"]},
-        "time": {"base_step": 0.1, "unit": "s"},
-        "normalization": {"mean": [0.0, 0.0], "scale": [1.0, 2.0]},
-        "update": "increment",
-        "levels": [{"stride": 1, "file": "levels/stride-00001.onnx", "sha256": "0" * 64}],
-        "envelope": {"min": [-1.0, -2.0], "max": [1.0, 2.0],
-                     "samples": {"file": SAMPLES_FILE, "sha256": SHA, "count": 3,
-                                 "radius": 0.25}},
-        "validated_horizon": 0.2,
-        "validation": {"metric": "normalised_rms", "tolerance": 0.1,
-                       "reference_std": [1.0, 2.0], "times": [0.1, 0.2, 0.3],
-                       "errors": [0.01, 0.05, None]},
-    }
+def _manifest(**changes) -> Manifest:
+    fields = dict(state_names=("x", "v"), state_units=("m", "m/s"), base_step=0.01,
+                  mean=(0.0, 1.0), scale=(1.0, 2.0),
+                  levels=(LevelEntry(1, level_file_name(1), SHA),
+                          LevelEntry(16, level_file_name(16), SHA)),
+                  envelope_min=(-1.0, -2.0), envelope_max=(1.0, 2.0), validated_horizon=3.0)
+    fields.update(changes)
+    return Manifest(**fields)
 
 
-def test_blocks_parse_and_null_error_is_infinite():
-    manifest = parse_manifest(base_document())
-    assert manifest.validation == ValidationCurve(
-        metric="normalised_rms", tolerance=0.1, reference_std=(1.0, 2.0),
-        times=(0.1, 0.2, 0.3), errors=(0.01, 0.05, math.inf))
-    assert manifest.envelope_samples == EnvelopeSamples(
-        file=SAMPLES_FILE, sha256=SHA, count=3, radius=0.25)
+def test_to_dict_and_back_is_the_identity():
+    manifest = _manifest()
+    assert parse_manifest_text(json.dumps(manifest.to_dict())) == manifest
+    assert manifest.strides == (1, 16)  # finest first
+    assert manifest.level(16).file == "levels/stride-00016.onnx"
 
 
-def test_to_dict_round_trip_writes_null_for_infinite():
-    document = base_document()
-    manifest = parse_manifest(document)
-    written = manifest.to_dict()
-    assert written["validation"]["errors"] == [0.01, 0.05, None]
-    assert written["envelope"]["samples"] == document["envelope"]["samples"]
-    # Strict JSON (no Infinity token) and the same manifest back.
-    text = json.dumps(written, allow_nan=False)
-    assert parse_manifest_text(text) == manifest
+def _document(**changes) -> dict:
+    document = _manifest().to_dict()
+    document.update(changes)
+    return document
 
 
-def test_blocks_are_optional():
-    document = base_document()
-    del document["validation"]
-    del document["envelope"]["samples"]
-    manifest = parse_manifest(document)
-    assert manifest.validation is None and manifest.envelope_samples is None
-    assert "validation" not in manifest.to_dict()
-    assert "samples" not in manifest.to_dict()["envelope"]
-
-
-def test_shipped_older_bundle_still_loads():
-    # The crane demo bundle was written before these blocks existed.
-    document = json.loads((CRANE / "manifest.json").read_text())
-    assert "validation" not in document and "samples" not in (document.get("envelope") or {})
-    stepper = load(CRANE)
-    assert stepper.manifest.validation is None
-    assert stepper.manifest.envelope_samples is None
-    assert stepper.manifest.to_dict() == {**document, "producer": document["producer"]}
-
-
-def _set(path: str, value):
-    def change(document):
-        *parents, last = path.split(".")
-        target = document
-        for key in parents:
-            target = target[key]
-        if value is KeyError:
-            del target[last]
-        else:
-            target[last] = value
-    return change
-
-
-@pytest.mark.parametrize(("change", "message"), [
-    (_set("validation.metric", "rmse"), r"`validation.metric` is 'rmse'; expected one of"),
-    (_set("validation.tolerance", 0), r"`validation.tolerance` must be > 0; got 0.0\."),
-    (_set("validation.tolerance", KeyError), r"`validation` lacks the fields \['tolerance'\]"),
-    (_set("validation.extra", 1), r"`validation` has unknown fields \['extra'\]"),
-    (_set("validation.reference_std", [1.0, 0.0]), r"`validation.reference_std` must be > 0"),
-    (_set("validation.reference_std", [1.0]), r"`validation.reference_std` must be a list of 2"),
-    (_set("validation.times", []), r"`validation.times` must be a non-empty list"),
-    (_set("validation.times", [0.1, 0.1, 0.3]), r"strictly ascending; got \[0.1, 0.1, 0.3\]"),
-    (_set("validation.times", [-0.1, 0.1, 0.3]), r"`validation.times` must be ≥ 0"),
-    (_set("validation.errors", [0.1, 0.2]), r"`validation.errors` must be a list of 3"),
-    (_set("validation.errors", [0.1, -0.2, 0.3]), r"`validation.errors\[1\]` must be ≥ 0"),
-    (_set("validation.errors", [0.1, "x", 0.3]), r"`validation.errors\[1\]` must be a finite"),
-    (_set("envelope.samples.count", 0), r"`envelope.samples.count` must be a positive integer"),
-    (_set("envelope.samples.radius", -1.0), r"`envelope.samples.radius` must be > 0"),
-    (_set("envelope.samples.sha256", "xyz"), r"`envelope.samples.sha256` must be 64"),
-    (_set("envelope.samples.file", 3), r"`envelope.samples.file` must be a string"),
-    (_set("envelope.samples.file", "levels/stride-00001.onnx"), r"the file of a level"),
-    (_set("envelope.samples.shape", [3, 2]), r"`envelope.samples` has unknown fields"),
+@pytest.mark.parametrize(("change", "pattern"), [
+    ({"format_version": 2}, r"`format_version` is 2; this reader knows version 1 only\."),
+    ({"format_version": True}, r"`format_version` is True"),
+    ({"surprise": 1}, r"unknown fields \['surprise'\]"),
+    ({"update": "add"}, r"`update` is 'add'; expected one of"),
+    ({"time": {"base_step": 0}}, r"`time.base_step` must be > 0; got 0"),
+    ({"normalization": {"mean": [0, 0], "scale": [1, 0]}},
+     r"`normalization.scale` must be > 0 everywhere"),
+    ({"state": {"dim": 2, "names": ["x", "x"]}}, r"`state.names` must be distinct"),
+    ({"validated_horizon": -1}, r"`validated_horizon` must be ≥ 0 or null"),
+    ({"envelope": {"min": [2, 0], "max": [1, 1]}}, r"`envelope.min` must not exceed"),
 ])
-def test_bad_blocks_refused(change, message):
-    document = copy.deepcopy(base_document())
-    change(document)
-    with pytest.raises(BundleError, match=message):
+def test_invalid_fields_are_refused_by_name(change, pattern):
+    with pytest.raises(BundleError, match=pattern):
+        parse_manifest(_document(**change))
+
+
+def test_extension_fields_are_ignored_and_missing_ones_named():
+    assert parse_manifest(_document(**{"x-note": "hello"})) == _manifest()
+    document = _document()
+    del document["levels"]
+    with pytest.raises(BundleError, match=r"lacks the required fields \['levels'\]"):
         parse_manifest(document)
+
+
+def test_text_limits_and_non_finite_numbers():
+    text = json.dumps(_manifest().to_dict())
+    with pytest.raises(BundleError, match=r"is \d+ bytes; the limit is 10 bytes"):
+        parse_manifest_text(text, max_bytes=10)
+    with pytest.raises(BundleError, match=r"contains NaN; only finite numbers"):
+        parse_manifest_text(text.replace('"validated_horizon": 3.0', '"validated_horizon": NaN'))
+    with pytest.raises(BundleError, match=r"not valid JSON"):
+        parse_manifest_text("{")

@@ -23,30 +23,17 @@ from onnx import AttributeProto, TensorProto, helper, numpy_helper
 from stridecast.runtime.errors import ModelFormatError
 from stridecast.runtime.limits import Limits
 from stridecast.runtime.onnx_model import Attribute, Model
-from stridecast.runtime.onnx_reader import load_model_file, read_model
-from tests.runtime.test_protobuf import length_delimited, tag, varint
-
-# --- crafting bytes (protobuf encoding guide) ---------------------------------------------
-
-
-def model_bytes(graph_extra: bytes = b"", *, nodes=(), initializers=()) -> bytes:
-    """A serialized model whose GraphProto (field 7) ends with `graph_extra` appended raw."""
-    graph = helper.make_graph(list(nodes), "g", [], [], initializer=list(initializers))
-    bare = helper.make_model(helper.make_graph([], "g", [], []),
-                             opset_imports=[helper.make_opsetid("", 17)])
-    bare.ClearField("graph")
-    return bare.SerializeToString() + length_delimited(7, graph.SerializeToString()
-                                                       + graph_extra)
-
-
-def tensor_model(tensor_bytes: bytes) -> bytes:
-    """A model whose only initializer is the serialized TensorProto `tensor_bytes`."""
-    return model_bytes(length_delimited(5, tensor_bytes))
-
-
-def node_model(node: onnx.NodeProto) -> bytes:
-    return model_bytes(nodes=[node])
-
+from stridecast.runtime.onnx_reader import read_model
+from tests.builders import (
+    SMALL,
+    length_delimited,
+    model_bytes,
+    mutate,
+    node_model,
+    tag,
+    tensor_model,
+    varint,
+)
 
 # --- comparison with the onnx library (the reference) -------------------------------------
 
@@ -270,12 +257,6 @@ def test_full_model_matches_onnx() -> None:
     assert model.graph.inputs[2].shape == ()
     assert model.functions[0].nodes[1].attributes[0] == Attribute("alpha", None, "alpha")
     assert model.opset == 17
-
-
-def test_load_model_file_matches_onnx_load(tmp_path) -> None:
-    path = tmp_path / "full.onnx"
-    onnx.save(full_model(), path)
-    assert_model_matches(load_model_file(path), onnx.load(path))
 
 
 @pytest.mark.parametrize("value", [0.0, 7, "text", [1.5, 2.5], [1, 2], ["p", "q"]])
@@ -571,36 +552,14 @@ def test_wire_faults_name_the_message() -> None:
         read_model(tag(2**29, 0) + b"\x00" + model_bytes())
 
 
-def test_files_over_the_size_limit_are_refused_before_reading(tmp_path) -> None:
-    path = tmp_path / "model.onnx"
+def test_models_over_the_size_limit_are_refused() -> None:
     data = model_bytes()
-    path.write_bytes(data)
-    limits = Limits(max_model_bytes=len(data) - 1)
-    with pytest.raises(ModelFormatError, match=rf"ONNX file '.*model\.onnx' holds {len(data)} "
-                       rf"bytes; the limit `max_model_bytes` is {len(data) - 1}\."):
-        load_model_file(path, limits=limits)
     with pytest.raises(ModelFormatError, match=rf"holds {len(data)} bytes; the limit"):
-        read_model(data, limits=limits)
-    assert load_model_file(path, limits=Limits(max_model_bytes=len(data))).graph.name == "g"
-    with pytest.raises(ModelFormatError, match=r"Cannot read ONNX file '.*missing\.onnx'"):
-        load_model_file(tmp_path / "missing.onnx")
+        read_model(data, limits=Limits(max_model_bytes=len(data) - 1))
+    assert read_model(data, limits=Limits(max_model_bytes=len(data))).graph.name == "g"
 
 
 # --- robustness ----------------------------------------------------------------------------
-
-def small_model() -> bytes:
-    weight = numpy_helper.from_array(np.arange(4, dtype=np.float32).reshape(2, 2), "w")
-    node = helper.make_node("Gemm", ["x", "w"], ["y"], name="g", alpha=0.5, transB=1,
-                            perm=[1, 0])
-    graph = helper.make_graph(
-        [node], "small", [helper.make_tensor_value_info("x", TensorProto.FLOAT, ["n", 2])],
-        [helper.make_tensor_value_info("y", TensorProto.FLOAT, ["n", 2])],
-        initializer=[weight, helper.make_tensor("i", TensorProto.INT64, [2], [-1, 300])])
-    return helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)]
-                             ).SerializeToString()
-
-
-SMALL = small_model()
 
 
 def test_every_truncation_raises_only_model_format_error() -> None:
@@ -618,23 +577,6 @@ def test_every_truncation_raises_only_model_format_error() -> None:
         # with protobuf's reading of it.
         assert reference is not None, length
         assert_model_matches(model, reference)
-
-
-def mutate(data: bytes, edits) -> bytes:
-    buffer = bytearray(data)
-    for kind, position, payload in edits:
-        position %= len(buffer) + 1
-        if kind == "flip":
-            if position < len(buffer):
-                buffer[position] ^= payload[0] or 1
-        elif kind == "insert":
-            buffer[position:position] = payload
-        elif kind == "delete":
-            del buffer[position:position + len(payload)]
-        else:  # a huge varint: 2^64 - 1, or a length of about 2^62
-            buffer[position:position + 1] = (b"\xff" * 9 + b"\x01" if payload[:1] < b"\x80"
-                                             else b"\xff" * 8 + b"\x3f")
-    return bytes(buffer)
 
 
 EDITS = st.lists(st.tuples(st.sampled_from(["flip", "insert", "delete", "huge"]),

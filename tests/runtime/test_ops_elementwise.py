@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.runtime.test_ops import FLOATS, Case, check_against_references, ids, sample
+from tests.builders import FLOATS, Case, check_against_references, ids, sample
 
 RNG = np.random.default_rng(20250107)
 

@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.runtime.test_ops import FLOATS, Case, check_against_references, ids, sample
+from tests.builders import FLOATS, Case, check_against_references, ids, sample
 
 RNG = np.random.default_rng(20250110)
 M, K, N = 5, 7, 3
@@ -82,6 +82,21 @@ def _reduce_cases() -> list[Case]:
     # Integer sums keep their type.
     integers = RNG.integers(-100, 100, (3, 4)).astype(np.int32)
     cases.append(Case("ReduceSum", 13, (integers, np.array([1], np.int64))))
+    # Reducing a dimension of size zero gives the identity: −inf for max, +inf for min, and
+    # the type's extremes for integers (the spec, opset 18 and 20).
+    for dtype in (*FLOATS, np.int64, np.int32):
+        hollow = np.zeros((2, 0, 3), dtype)
+        for op_type in ("ReduceMax", "ReduceMin"):
+            for keepdims in (0, 1):
+                cases.append(Case(op_type, 18, (hollow, np.array([1], np.int64)),
+                                  {"keepdims": keepdims}, note=f"empty-dim-keep{keepdims}"))
+            cases.append(Case(op_type, 13, (hollow,), {"axes": (1,)}, note="empty-dim"))
+    # bool max and min (opset 20) over an empty dimension: False and True. onnxruntime 1.32
+    # refuses these ("ReduceMax is not defined for empty set with bool type"), so only the
+    # ReferenceEvaluator (and onnx's test_reduce_max_empty_set_bool case) checks them.
+    for op_type in ("ReduceMax", "ReduceMin"):
+        cases.append(Case(op_type, 20, (np.zeros((2, 0), bool), np.array([1], np.int64)),
+                          {"keepdims": 0}, onnxruntime=False, note="empty-dim-bool"))
     return cases
 
 

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from stridecast.runtime.ops import resolve
-from tests.runtime.test_ops import (
+from tests.builders import (
     FLOATS,
     TOLERANCES,
     Case,

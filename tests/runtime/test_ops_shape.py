@@ -6,8 +6,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from onnx import helper
 
-from tests.runtime.test_ops import FLOATS, Case, check_against_references, ids, sample
+from tests.builders import FLOATS, Case, check_against_references, ids, sample
 
 RNG = np.random.default_rng(20250112)
 INT64_MAX, INT64_MIN = np.iinfo(np.int64).max, np.iinfo(np.int64).min
@@ -138,7 +139,16 @@ def _shape_and_cast_cases() -> list[Case]:
             for opset in (6, 13, 19, 21):
                 cases.append(Case("Cast", opset, (data,), {"to": target},
                                   note=f"to-{target_name}"))
+            like = np.zeros((1, 2), helper.tensor_dtype_to_np_dtype(target))
+            for opset in (15, 19, 21):
+                cases.append(Case("CastLike", opset, (data, like), note=f"like-{target_name}"))
     return cases
+
+
+def _size_cases() -> list[Case]:
+    shapes = [(), (0,), (3,), (2, 0, 4), (2, 3, 4)]
+    return [Case("Size", opset, (np.zeros(shape, dtype),), note=f"{shape}")
+            for shape in shapes for opset in (1, 13, 19, 21) for dtype in (np.float32, np.int64)]
 
 
 def _constant_cases() -> list[Case]:
@@ -175,7 +185,7 @@ def _constant_cases() -> list[Case]:
 
 
 CASES = (_layout_cases() + _slice_cases() + _gather_cases() + _shape_and_cast_cases()
-         + _constant_cases())
+         + _size_cases() + _constant_cases())
 
 
 @pytest.mark.parametrize("case", CASES, ids=ids(CASES))

@@ -15,27 +15,9 @@ from hypothesis import strategies as st
 from stridecast.runtime import protobuf
 from stridecast.runtime.errors import ModelFormatError
 from stridecast.runtime.protobuf import FieldSpec, MessageSchema, read_message, read_varint
+from tests.builders import length_delimited, tag, varint
 
 MAX_DEPTH = 16
-
-
-# Minimal encoder, written from the protobuf encoding guide, for crafting (faulty) inputs.
-def varint(value: int) -> bytes:
-    value &= (1 << 64) - 1
-    out = bytearray()
-    while True:
-        low, value = value & 0x7F, value >> 7
-        out.append(low | (0x80 if value else 0))
-        if not value:
-            return bytes(out)
-
-
-def tag(number: int, wire: int) -> bytes:
-    return varint(number << 3 | wire)
-
-
-def length_delimited(number: int, payload: bytes) -> bytes:
-    return tag(number, 2) + varint(len(payload)) + payload
 
 
 def read(data: bytes, schema, *, depth: int = 1, max_depth: int = MAX_DEPTH,

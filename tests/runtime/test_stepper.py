@@ -216,3 +216,22 @@ def test_forecast_with_vector_field_and_hybrid(tmp_path):
         for t, states in zip(times, result, strict=True):
             # Reference: scipy.linalg.expm; tolerance from the integrator's rtol 1e-8.
             assert np.max(np.abs(states - x0 @ expm(system * t).T)) < 1e-7
+
+
+@pytest.mark.parametrize(("call", "message"), [
+    (lambda s: s.step(np.ones(2), 3), r"`stride` is 3; this bundle has strides"),
+    (lambda s: s.advance(np.ones(2), 0.35, vector_field="f"), r"`vector_field` must be a callable"),
+    (lambda s: s.advance(np.ones(2), 0.4, hybrid_below=2),
+     r"`hybrid_below` needs a `vector_field`"),
+    (lambda s: s.advance(np.ones(2), 0.4, off_grid="round"), r"`off_grid` is 'round'"),
+])
+def test_bad_options_raise_option_error_not_time_error(tmp_path, call, message):
+    # Faults of options, not of times: OptionError (a ValueError), never TimeError.
+    from stridecast.runtime import OptionError
+
+    out = linear_bundle(tmp_path / "b.bundle", oscillator_matrix(), base_step=0.1,
+                        strides=(1, 4))
+    stepper = load(out)
+    with pytest.raises(OptionError, match=message) as caught:
+        call(stepper)
+    assert not isinstance(caught.value, TimeError)
