@@ -1,13 +1,13 @@
 """Service throughput and latency per wire format, against the same answer computed in process.
 
 ``python -m stridecast.benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts the
-service in a subprocess on 127.0.0.1 (free ports, HTTP and gRPC) and times the open
-inference protocol's `infer` for batches of 1 and 64 states, 1 and 8 concurrent clients, with four encodings side by
-side: JSON, MessagePack, the binary tensor data extension, and gRPC (raw tensor contents). It
-does so twice, under uvicorn's pure-Python stack (asyncio + h11) and under uvloop + httptools,
-to show whether they help. The floors: onnxruntime running the bundle's ONNX files in this
-process along the runtime's plan, and `Stepper.advance` itself. Loops are bounded by a time
-budget and a request cap per cell.
+service in a subprocess on 127.0.0.1 (free ports, HTTP and gRPC) and times the open inference
+protocol's `infer` for batches of 1 and 64 states, 1 and 8 concurrent clients, with four
+encodings side by side: JSON, MessagePack, the binary tensor data extension, and gRPC (raw
+tensor contents). It does so twice, under uvicorn's pure-Python stack (asyncio + h11) and under
+uvloop + httptools, to show whether they help. The floors: onnxruntime running the bundle's ONNX
+files in this process along the runtime's plan, and `Stepper.advance` itself. Loops are bounded
+by a time budget and a request cap per cell.
 """
 
 from __future__ import annotations
