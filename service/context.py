@@ -1,4 +1,4 @@
-"""What every handler needs: the served model, the decoded body, the gate, and warnings.
+"""What every handler needs: the served model, the decoded body, the gate, and trust fields.
 
 Handlers stay short by delegating here; everything reads the app's state set up by `create_app`
 and its lifespan, never a module-level global.
@@ -6,11 +6,15 @@ and its lifespan, never a module-level global.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 from fastapi import Request
+
+from stridecast.runtime import Finding
+from stridecast.runtime.findings import WARNING_KINDS
 
 from .body import read_body
 from .codec import DecodeError, decode_body
@@ -88,36 +92,23 @@ def state_rules(stepper: Any, settings: Settings) -> StateRules:
                       max_batch=settings.max_batch)
 
 
-def envelope_warnings(stepper: Any, states: np.ndarray, what: str) -> list[str]:
-    """A warning if any of `states` (any shape ending in d) lies outside the training envelope."""
-    manifest = stepper.manifest
-    if manifest.envelope_min is None:
-        return []
-    rows = states.reshape(-1, stepper.state_dim)
-    # Checked here rather than with Stepper.outside_envelope, whose batch limit a forecast's
-    # (times x batch) rows may exceed.
-    lower = np.asarray(manifest.envelope_min)
-    upper = np.asarray(manifest.envelope_max)
-    outside = np.flatnonzero(((rows < lower) | (rows > upper)).any(axis=1))
-    if outside.size == 0:
-        return []
-    return [f"{outside.size} of {rows.shape[0]} {what} lie outside the training envelope "
-            f"(min {list(manifest.envelope_min)}, max {list(manifest.envelope_max)}); the "
-            "answer is an extrapolation."]
+def json_error(value: float) -> float | None:
+    """An expected error for JSON: None where the runtime says nan (unknown) or inf (past the
+    validated data)."""
+    value = float(value)
+    return value if math.isfinite(value) else None
 
 
-def horizon_warnings(stepper: Any, times: Sequence[float]) -> list[str]:
-    """A warning if the latest requested time is beyond the validated horizon."""
-    horizon = stepper.manifest.validated_horizon
-    latest = max(times)
-    if horizon is None or latest <= horizon:
-        return []
-    unit = stepper.manifest.time_unit
-    return [f"t = {latest:g} {unit} is beyond the validated horizon of {horizon:g} {unit}."]
+def warning_messages(findings: Sequence[Finding]) -> list[str]:
+    """The runtime's own sentences for the findings that warrant a warning (one wording)."""
+    return [finding.message for finding in findings if finding.kind in WARNING_KINDS]
 
 
-def answer_warnings(stepper: Any, start: np.ndarray, result: np.ndarray,
-                    times: Sequence[float]) -> list[str]:
-    return (envelope_warnings(stepper, start, "initial states")
-            + envelope_warnings(stepper, result, "result states")
-            + horizon_warnings(stepper, times))
+def trust_fields(findings: Sequence[Finding], expected: Any) -> dict[str, Any]:
+    """`expected_error` (one number or one per time), `findings` and `warnings` of an answer."""
+    if np.ndim(expected) == 0:
+        error: Any = json_error(expected)
+    else:
+        error = [json_error(value) for value in np.asarray(expected).reshape(-1)]
+    return {"expected_error": error, "findings": [finding.to_dict() for finding in findings],
+            "warnings": warning_messages(findings)}

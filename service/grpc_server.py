@@ -21,7 +21,7 @@ from fastapi import FastAPI
 
 from stridecast.runtime.errors import StridecastError
 
-from .context import answer_warnings, batch_rows, state_rules
+from .context import batch_rows, state_rules
 from .errors import ApiError, from_domain_error
 from .grpc_messages import SERVICE, messages
 from .protocol_v2 import (
@@ -197,12 +197,10 @@ class InferenceService:
             budget = min(budget, remaining)
 
         def work() -> Any:
-            result, evaluations, methods = run_infer(stepper, query)
-            metrics.record_computation(name, "infer", evaluations=evaluations,
+            outcome = run_infer(stepper, query)
+            metrics.record_computation(name, "infer", evaluations=outcome.evaluations,
                                        states=batch_rows(query.state))
-            warnings = answer_warnings(stepper, query.state, result, query.times.tolist())
-            return response_message(infer_document(name, query, result, evaluations, methods,
-                                                   warnings))
+            return response_message(infer_document(name, query, outcome))
 
         gate = self._state.gate
         if gate is None:

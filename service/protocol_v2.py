@@ -19,6 +19,9 @@ from typing import Any
 
 import numpy as np
 
+from stridecast.runtime import Finding
+from stridecast.runtime.findings import WARNING_KINDS
+
 from .errors import ApiError
 from .validation import StateRules, check_state, invalid, off_grid_value, time_value
 
@@ -198,36 +201,61 @@ def build_query(tensors: Sequence[Tensor], options: RequestOptions,
                       times=times.astype(np.float64), off_grid=off_grid, binary_output=binary)
 
 
-def run_infer(stepper: Any, query: InferQuery) -> tuple[np.ndarray, int, tuple[str, ...]]:
-    """Advance every state to its time; returns states, network evaluations and methods."""
+@dataclass(frozen=True)
+class InferOutcome:
+    """What `run_infer` computed: the states, what it cost, and how far to trust it."""
+
+    result: np.ndarray
+    evaluations: int
+    methods: tuple[str, ...]
+    findings: tuple[Finding, ...]
+    expected_error: float
+    """The largest expected error over the requested times (nan when the bundle has none)."""
+
+
+def run_infer(stepper: Any, query: InferQuery) -> InferOutcome:
+    """Advance every state to its time, with the runtime's findings and expected error."""
     distinct = np.unique(query.times)
     if distinct.size == 1:
         result, plan = stepper.advance_with_plan(query.state, float(distinct[0]),
                                                  off_grid=query.off_grid)
-        return result, plan.evaluations, (plan.method,)
+        return InferOutcome(result, plan.evaluations, (plan.method,), plan.findings,
+                            float(plan.expected_error))
     # One time per state: states sharing a time go through the network together.
     result = np.empty_like(query.state)
-    evaluations, methods = 0, set()
+    evaluations, methods, findings = 0, set(), []
     for t in distinct:
         rows = query.times == t
         result[rows], plan = stepper.advance_with_plan(query.state[rows], float(t),
                                                        off_grid=query.off_grid)
         evaluations += plan.evaluations
         methods.add(plan.method)
-    return result, evaluations, tuple(sorted(methods))
+        findings.extend(finding for finding in plan.findings if finding not in findings)
+    errors = np.asarray(stepper.expected_error(distinct), dtype=np.float64)
+    worst = float(np.max(errors)) if not np.isnan(errors).any() else math.nan
+    return InferOutcome(result, evaluations, tuple(sorted(methods)), tuple(findings), worst)
 
 
-def infer_document(name: str, query: InferQuery, result: np.ndarray, evaluations: int,
-                   methods: tuple[str, ...], warnings: Sequence[str]) -> dict[str, Any]:
+def infer_document(name: str, query: InferQuery, outcome: InferOutcome) -> dict[str, Any]:
     """The $inference_response, the one answer both transports serialise.
 
     Output `state` carries its full shape and the result array (flattened by the encoder);
-    `parameters` says how the answer was produced. New answer fields go here.
+    `parameters` says how the answer was produced and how far to trust it: `expected_error`
+    (the largest held-out error over the requested times, present when the bundle records one
+    and the times are within its data), `extrapolation` (whether any finding warrants a warning)
+    and `warnings` (the runtime's sentences, joined). New answer fields go here.
     """
+    result = outcome.result
+    warnings = [finding.message for finding in outcome.findings
+                if finding.kind in WARNING_KINDS]
     document: dict[str, Any] = {"model_name": name, "model_version": MODEL_VERSION}
     if query.request_id is not None:
         document["id"] = query.request_id
-    parameters: dict[str, Any] = {"evaluations": evaluations, "method": ",".join(methods)}
+    parameters: dict[str, Any] = {"evaluations": outcome.evaluations,
+                                  "method": ",".join(outcome.methods),
+                                  "extrapolation": bool(warnings)}
+    if math.isfinite(outcome.expected_error):
+        parameters["expected_error"] = outcome.expected_error
     if warnings:
         parameters["warnings"] = " ".join(warnings)
     document["parameters"] = parameters

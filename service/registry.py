@@ -148,7 +148,9 @@ def _load_one(name: str, description: str, source: ModelSource, dtype: str,
     if not _is_path(source):
         return ModelEntry(name, description, stepper=source)
     try:
-        stepper = runtime.load(source, dtype=dtype, verify=True, threads=threads)
+        # Findings travel in every answer; a Python warning in the server would reach no client.
+        stepper = runtime.load(source, dtype=dtype, verify=True, threads=threads,
+                               on_extrapolation="ignore")
     except (StridecastError, OSError) as error:
         logger.error("model %r from %s not served: %s", name, description, error)
         return ModelEntry(name, description, error=str(error))

@@ -13,7 +13,6 @@ from .auth import require_token
 from .codec import encode, encode_response, encoded_response, response_media
 from .compression import compress, response_coding
 from .context import (
-    answer_warnings,
     batch_rows,
     gate_of,
     metrics_of,
@@ -21,6 +20,7 @@ from .context import (
     registry_of,
     served_stepper,
     state_rules,
+    trust_fields,
 )
 from .openapi import GET_MODEL_ERRORS, POST_ERRORS, request_body, responses
 from .registry import ModelEntry
@@ -118,7 +118,7 @@ def advance_document(name: str, stepper: Any, query: Any, result: Any, plan: Any
         "method": plan.method,
         "evaluations": plan.evaluations,
         "dtype": str(stepper.dtype),
-        "warnings": answer_warnings(stepper, query.state, result, [query.t]),
+        **trust_fields(plan.findings, plan.expected_error),
     }
 
 
@@ -167,5 +167,5 @@ def forecast_document(name: str, stepper: Any, query: Any, states: Any, info: An
         "depth": info.depth,
         "methods": list(info.methods),
         "dtype": str(stepper.dtype),
-        "warnings": answer_warnings(stepper, query.state, states, query.times),
+        **trust_fields(info.findings, info.expected_error),
     }

@@ -16,7 +16,6 @@ from .auth import require_token
 from .codec import JSON_MEDIA, encode, encode_response, encoded_response, response_media
 from .compression import compress, response_coding
 from .context import (
-    answer_warnings,
     batch_rows,
     decode_document,
     gate_of,
@@ -139,11 +138,10 @@ async def _infer(name: str, version: str | None, request: Request,
         coding = response_coding(request.headers.get("accept-encoding"))
 
         def work() -> tuple[bytes, str, dict[str, str]]:
-            result, evaluations, methods = run_infer(stepper, query)
-            metrics.record_computation(name, "infer", evaluations=evaluations,
+            outcome = run_infer(stepper, query)
+            metrics.record_computation(name, "infer", evaluations=outcome.evaluations,
                                        states=batch_rows(query.state))
-            warnings = answer_warnings(stepper, query.state, result, query.times.tolist())
-            answer = infer_document(name, query, result, evaluations, methods, warnings)
+            answer = infer_document(name, query, outcome)
             headers: dict[str, str] = {}
             if query.binary_output and media == JSON_MEDIA:
                 payload, header_length = binary_answer(answer)

@@ -48,6 +48,24 @@ class ForecastRequest(_Strict):
     off_grid: OffGrid = "interpolate"
 
 
+class FindingBody(BaseModel):
+    """One reason not to trust an answer (`Finding.to_dict()` of the runtime)."""
+
+    kind: Literal["outside_box", "far_from_data", "beyond_horizon", "no_validation"]
+    message: str = Field(description="The runtime's sentence, shown as is.")
+    states: list[int] = Field(description="Batch rows concerned (empty for time findings).")
+    components: list[str]
+    t: float | None = None
+    amount: float | None = Field(None, description="How far: box widths, distance / radius, "
+                                                   "or t / validated horizon.")
+
+
+EXPECTED_ERROR = ("Held-out error of the deployed levels at this time (normalised RMS: error "
+                  "per component over its training standard deviation, RMS over components); "
+                  "null when the bundle records no validation curve or the time is past it.")
+WARNINGS = "The messages of the findings that warrant a warning (the runtime's wording)."
+
+
 class PlanBody(BaseModel):
     """How the answer was produced (`Plan.to_dict()` of the runtime)."""
 
@@ -57,6 +75,8 @@ class PlanBody(BaseModel):
     evaluations: int
     remainder: float
     method: str
+    expected_error: float | None = Field(None, description=EXPECTED_ERROR)
+    findings: list[FindingBody] = []
 
 
 class AdvanceResponse(BaseModel):
@@ -67,7 +87,9 @@ class AdvanceResponse(BaseModel):
     method: str = Field(description='"grid", "interpolate", "nearest", ...')
     evaluations: int
     dtype: str
-    warnings: list[str]
+    expected_error: float | None = Field(description=EXPECTED_ERROR)
+    findings: list[FindingBody]
+    warnings: list[str] = Field(description=WARNINGS)
 
 
 class ForecastResponse(BaseModel):
@@ -79,7 +101,10 @@ class ForecastResponse(BaseModel):
     depth: int
     methods: list[str]
     dtype: str
-    warnings: list[str]
+    expected_error: list[float | None] = Field(description="One per requested time. "
+                                               + EXPECTED_ERROR)
+    findings: list[FindingBody]
+    warnings: list[str] = Field(description=WARNINGS)
 
 
 class ModelSummary(BaseModel):

@@ -5,9 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from stridecast import demo_bundle
 from stridecast.cli import main
-from stridecast.commands_runtime import DEMO_BUNDLE
 from stridecast.runtime import load
+
+DEMO_BUNDLE = demo_bundle()
 
 xr = pytest.importorskip("xarray", reason="needs the ensemble extra")
 pytest.importorskip("distributed", reason="needs the ensemble extra")

@@ -19,9 +19,11 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 import pytest
 
-from stridecast.commands_runtime import DEMO_BUNDLE
+from stridecast import demo_bundle
 from stridecast.runtime import load
 from tests.deploy.test_manifests import MOUNT, container_start_command
+
+DEMO_BUNDLE = demo_bundle()
 
 httpx = pytest.importorskip("httpx")
 STARTUP_SECONDS = 60

@@ -5,9 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from stridecast.commands_runtime import DEMO_BUNDLE
+from stridecast import demo_bundle
 from stridecast.ensemble import forecast_ensemble
 from stridecast.runtime import Stepper, load
+
+DEMO_BUNDLE = demo_bundle()
 
 pytestmark = pytest.mark.skipif(
     not (hasattr(Stepper, "check") and hasattr(Stepper, "expected_error")),

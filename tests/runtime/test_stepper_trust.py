@@ -8,13 +8,13 @@ from __future__ import annotations
 
 import math
 import warnings
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy.linalg import expm
 from scipy.spatial import cKDTree
 
+from stridecast import demo_bundle
 from stridecast.runtime import (
     ExtrapolationError,
     ExtrapolationWarning,
@@ -27,7 +27,7 @@ from tests.builders import linear_bundle, oscillator_matrix
 OMEGA = 2.0  # x'' = −ω² x: period π, velocity amplitude ω for unit position amplitude
 OSCILLATOR = oscillator_matrix(OMEGA)
 BASE = math.pi / 8  # a quarter period is two base steps
-CRANE = Path(__file__).resolve().parents[2] / "stridecast" / "data" / "crane-demo.bundle"
+CRANE = demo_bundle()
 CURVE = ValidationCurve(metric="normalised_rms", tolerance=0.1, reference_std=(1.0, 2.0),
                         times=(0.5, 1.0, 1.5, 2.0), errors=(0.01, 0.03, 0.2, math.inf))
 RING = np.stack([np.cos(np.linspace(0, 2 * np.pi, 720, endpoint=False)),

@@ -6,6 +6,8 @@ matrix exponential of the oscillator (SciPy `expm`, see conftest).
 
 from __future__ import annotations
 
+import warnings
+
 import msgpack
 import numpy as np
 import pytest
@@ -137,13 +139,35 @@ def test_advance_off_grid_error_policy_is_422(client):
     assert response.json()["code"] == "invalid_time"
 
 
-def test_warnings_for_envelope_and_horizon(client):
-    response = client.post(ADVANCE, json={"state": [[3.0, 0.0], [1.0, 0.0]],
-                                          "t": VALIDATED_HORIZON + 1.0})
+def test_findings_for_envelope_and_horizon_in_the_runtime_words(client, stepper):
+    state = [[3.0, 0.0], [1.0, 0.0]]
+    t = VALIDATED_HORIZON + 1.0
+    response = client.post(ADVANCE, json={"state": state, "t": t})
     assert response.status_code == 200
-    warnings = response.json()["warnings"]
-    assert any("1 of 2 initial states lie outside the training envelope" in w for w in warnings)
-    assert any("beyond the validated horizon of 5 s" in w for w in warnings)
+    body = response.json()
+    kinds = {finding["kind"] for finding in body["findings"]}
+    assert {"outside_box", "beyond_horizon"} <= kinds
+    # One wording: the service repeats the runtime's own findings, message for message.
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        _, plan = stepper.advance_with_plan(np.asarray(state, dtype=np.float32), t)
+    assert body["findings"] == [finding.to_dict() for finding in plan.findings]
+    assert body["warnings"] == [finding.message for finding in plan.findings
+                                if finding.kind != "no_validation"]
+    assert any("beyond the validated horizon" in message for message in body["warnings"])
+    assert body["plan"]["findings"] == body["findings"]
+
+
+def test_forecast_carries_expected_error_per_time(client, stepper):
+    times = [0.5, 0.0, 2.0]
+    response = client.post(FORECAST, json={"state": BATCH[1], "times": times})
+    assert response.status_code == 200
+    expected = response.json()["expected_error"]
+    assert len(expected) == len(times)
+    # Reference: the runtime's own curve (None where it has none: nan or inf).
+    for value, t in zip(expected, times, strict=True):
+        direct = float(stepper.expected_error(t))
+        assert value == (direct if np.isfinite(direct) else None)
 
 
 @pytest.mark.parametrize("state", [BATCH[1], BATCH], ids=["single", "batch"])
@@ -179,6 +203,9 @@ def test_forecast_warns_when_the_answer_leaves_the_envelope(client):
     # Starts inside (|x| ≤ 2, |v| ≤ 4); the amplitude sqrt(1.9² + (3.9/ω)²) ≈ 2.72 m (published
     # solution of the oscillator) exceeds 2 m, and x(0.3) = 1.9 cos 0.6 + 1.95 sin 0.6 ≈ 2.67 m.
     response = client.post(FORECAST, json={"state": [1.9, 3.9], "times": [0.0, 0.3, 0.6]})
-    warnings = response.json()["warnings"]
-    assert any("result states lie outside the training envelope" in w for w in warnings)
-    assert not any("initial states" in w for w in warnings)
+    findings = response.json()["findings"]
+    outside = [finding for finding in findings if finding["kind"] == "outside_box"]
+    assert outside and outside[0]["components"][0] == "x"
+    # Found along the path, not at the start (t = 0 is inside).
+    assert outside[0]["t"] is not None and outside[0]["t"] > 0
+    assert response.json()["warnings"] == [finding["message"] for finding in outside]
