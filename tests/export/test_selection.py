@@ -10,8 +10,8 @@ from torch import nn
 from stridecast.export.evaluation import prepare_held_out
 from stridecast.export.selection import (
     ERROR_CAP,
-    Candidate,
     ERROR_FLOOR,
+    Candidate,
     choose,
     horizon_in_steps,
     score,
