@@ -87,6 +87,8 @@ class Outcome:
     warned_inside: bool
     warning_messages: list[str] = field(default_factory=list)
     selection_scores: dict[str, float | None] = field(default_factory=dict)
+    # The trainer's median held-out time to divergence of every subset tried (time units).
+    selection_medians: dict[str, float | None] = field(default_factory=dict)
     seconds: dict[str, float] = field(default_factory=dict)
 
     def summary(self) -> str:
@@ -247,14 +249,16 @@ def run(system: PublishedSystem, scale: Scale, workdir: Path, *, lyapunov_expone
         far_state_distance=distance, warned_inside=bool(inside_messages),
         warning_messages=past_messages[:1] + far_messages[:1] + inside_messages[:1],
         seconds={key: round(value, 2) for key, value in seconds.items()},
-        selection_scores=_selection_scores(trained.validation),
+        selection_scores=_selection_figures(trained.validation, "score"),
+        selection_medians=_selection_figures(trained.validation, "median_divergence_time"),
     )
 
 
-def _selection_scores(validation: Any) -> dict[str, float | None]:
-    """The trainer's score of every level subset it tried ("1,4" -> score; lower is better)."""
+def _selection_figures(validation: Any, key: str) -> dict[str, float | None]:
+    """One figure of every level subset the trainer tried ("1,4" -> value): its "score"
+    (lower is better) or "median_divergence_time"."""
     selection = (validation or {}).get("selection") or {}
-    return {",".join(map(str, c["strides"])): c["score"]
+    return {",".join(map(str, c["strides"])): c.get(key)
             for c in selection.get("candidates", [])}
 
 

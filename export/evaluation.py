@@ -21,6 +21,8 @@ import torch
 from stridecast.runtime.planner import StridePlanner
 from stridecast.runtime.waves import build_schedule, run_schedule
 
+from .divergence import normalised_errors
+
 Levels = Mapping[int, torch.nn.Module]
 # Start states drawn from the held-out trajectories (evenly spaced in time within each).
 # Every forecast batch carries them all, so this bounds the cost of each network call.
@@ -142,14 +144,42 @@ def normalised_rms(prediction: np.ndarray, truth: np.ndarray, valid: np.ndarray 
     return value if np.isfinite(value) else float("inf")
 
 
-def error_curve(levels: Levels, held_out: HeldOut, targets: Sequence[int]) -> np.ndarray:
-    """Normalised RMS of the hierarchy of `levels` at each target (base steps), shape (M,)."""
-    errors = []
+def state_errors(levels: Levels, held_out: HeldOut, targets: Sequence[int]) -> np.ndarray:
+    """Normalised error of every start state's forecast at each target (base steps).
+
+    Returns
+    -------
+    ndarray, shape (M, B)
+        RMS over components of the z error (`divergence.normalised_errors` with unit
+        deviations, the states being normalised); inf where a forecast diverged, NaN where the
+        start's trajectory ends before the target.
+    """
+    rows = []
     for chunk, states in forecasts(levels, held_out.initial, targets):
         for steps, predicted in zip(chunk, states, strict=True):
             truth, valid = held_out.truth(steps)
-            errors.append(normalised_rms(predicted, truth, valid))
-    return np.asarray(errors, dtype=np.float64)
+            errors = normalised_errors(predicted, truth, np.ones(truth.shape[-1]))
+            rows.append(np.where(valid, errors, np.nan))
+    return np.asarray(rows, dtype=np.float64).reshape(len(rows), len(held_out.start))
+
+
+def rms_over_states(errors: np.ndarray) -> np.ndarray:
+    """Normalised RMS over the start states of per-state errors (M, B) -> (M,).
+
+    Equal to `normalised_rms` of the forecasts: inf if any valid state diverged, NaN where no
+    state is valid (NaN entries are the states without truth).
+    """
+    valid = ~np.isnan(errors)
+    count = valid.sum(axis=1)
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        squares = np.where(valid, errors, 0.0) ** 2
+        value = np.sqrt(squares.sum(axis=1) / count)
+    return np.where(count == 0, np.nan, value)
+
+
+def error_curve(levels: Levels, held_out: HeldOut, targets: Sequence[int]) -> np.ndarray:
+    """Normalised RMS of the hierarchy of `levels` at each target (base steps), shape (M,)."""
+    return rms_over_states(state_errors(levels, held_out, targets))
 
 
 def evaluations(levels: Levels, targets: Sequence[int]) -> float:

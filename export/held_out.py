@@ -114,8 +114,12 @@ def validate(levels: Levels, held_out: Sequence[torch.Tensor], *, base_step: flo
     deployed = {stride: levels[stride] for stride in kept}
 
     run = validity.dense_run(deployed, data, validity.dense_grid(data.longest, finest))
+    units, unit_kind = validity.resampling_units(data)
+    bound = validity.upper_bound(run.state_errors, units)
+    # The manifest curve is the upper bound: `expected_error` then answers conservatively and
+    # the contract's first-crossing rule on the manifest gives the horizon judged here.
     curve = validity.curve_block(run, base_step=base_step, tolerance=tolerance,
-                                 reference_std=scale)
+                                 reference_std=scale, errors=bound)
     horizon_time = validity.validated_horizon(curve["times"], curve["errors"], tolerance)
     horizon_steps_valid = round(horizon_time / base_step) if horizon_time else 0
     figures = {
@@ -124,6 +128,7 @@ def validate(levels: Levels, held_out: Sequence[torch.Tensor], *, base_step: flo
                  "components and start states",
         "tolerance": tolerance,
         "validated_horizon": horizon_time,
+        "at_validated_horizon": _at_horizon(run, bound, horizon_steps_valid),
         "strides": list(kept),
         "trained_strides": list(strides),
         "horizon_requested": horizon,
@@ -133,7 +138,15 @@ def validate(levels: Levels, held_out: Sequence[torch.Tensor], *, base_step: flo
         "start_states": len(data.start),
         "selection": None if chosen is None else chosen.to_dict(base_step),
         "curve": {"times": [float(n * base_step) for n in run.steps],
-                  "errors": [json_number(e) for e in run.errors]},
+                  "errors": [json_number(e) for e in run.errors],
+                  "upper_bound": [json_number(e) for e in bound],
+                  "bound": {"confidence": validity.CONFIDENCE,
+                            "method": "percentile bootstrap, pointwise, one-sided",
+                            "resampled": unit_kind,
+                            "units": int(units.max()) + 1,
+                            "resamples": validity.RESAMPLES,
+                            "seed": validity.BOOTSTRAP_SEED},
+                  "horizon_rule": "first crossing of the tolerance by upper_bound"},
         "dense": {"finest_stride": finest,
                   **validity.roughness(run, horizon_steps_valid)},
         "one_step": _one_step(levels, data, scale),
@@ -143,6 +156,16 @@ def validate(levels: Levels, held_out: Sequence[torch.Tensor], *, base_step: flo
     example = forecast_example(deployed, held_out[0], base_step=base_step, mean=mean,
                                scale=scale)
     return Validation(strides=kept, figures=figures, curve=curve, example=example)
+
+
+def _at_horizon(run: validity.DenseRun, bound: np.ndarray, steps: int
+                ) -> dict[str, Any] | None:
+    """The held-out error (point estimate) and its upper bound at the validated horizon."""
+    where = np.flatnonzero(run.steps == steps)
+    if len(where) == 0:
+        return None
+    return {"estimate": json_number(run.errors[where[0]]),
+            "upper_bound": json_number(bound[where[0]])}
 
 
 def _one_step(levels: Levels, data: HeldOut, scale: np.ndarray) -> list[dict[str, Any]]:
@@ -195,9 +218,13 @@ def _summary(figures: dict[str, Any], chosen: selection.Selection | None,
         by_strides = {tuple(c.strides): c for c in chosen.candidates}
         best = by_strides[chosen.kept]
         alone = by_strides.get((min(chosen.kept),))
-        why = (f"lowest held-out score of {len(chosen.candidates)} subsets ({chosen.method}): "
-               f"{best.score:.3f}" + ("" if alone is None else
-                                      f" (finest level alone: {alone.score:.3f})"))
+        eligible = sum(chosen.eligible(c) for c in chosen.candidates)
+        why = (f"lowest held-out score of the {eligible} of {len(chosen.candidates)} subsets "
+               f"({chosen.method}) whose median time to divergence is at least the finest "
+               f"level's alone: {best.score:.3f}, median {best.median_divergence * base_step:.4g}"
+               + ("" if alone is None else
+                  f" (finest level alone: {alone.score:.3f}, median "
+                  f"{alone.median_divergence * base_step:.4g})"))
     rows = [row for row in figures["horizons"] if row["time"] <= figures["horizon_used"] + 1e-9]
     last = rows[-1] if rows else None
     return {

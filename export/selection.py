@@ -1,9 +1,20 @@
 """Level selection: the subset of trained levels (always with the finest) whose hierarchy has
-the lowest held-out error over the horizons the user cares about.
+the lowest held-out error over the horizons the user cares about, among the subsets whose
+forecasts last at least as long as the finest level's alone.
+
+The score (`score`) averages log normalised RMS over start states, which the worst states
+dominate; a subset can win it while most of its forecasts diverge sooner than the finest
+level's. So a subset is eligible only if its median held-out time to divergence
+(`divergence.median_divergence_time`: per start state, the first time its normalised error
+exceeds `divergence.DIVERGENCE_THRESHOLD`; a start that never does within the score horizon
+counts at the horizon) is at least the finest level's alone; among the eligible ones the
+lowest score wins (ties within `SCORE_TIE` to the cheapest). The finest level alone is always
+eligible.
 
 Exhaustive over the subsets when there are at most `EXHAUSTIVE_LEVELS` levels (at most 32
-subsets), greedy backward elimination beyond (at most L·(L − 1)/2 subsets). Every subset tried
-is kept with its error curve for report.json.
+subsets); beyond, greedy backward elimination by score (at most L·(L − 1)/2 subsets) plus the
+finest level alone, the choice made among every subset tried. Every subset tried is kept with
+its error curve and median divergence time for report.json.
 """
 
 from __future__ import annotations
@@ -16,7 +27,9 @@ from typing import Any
 
 import numpy as np
 
-from .evaluation import HeldOut, Levels, error_curve, evaluations, json_number
+from .divergence import DIVERGENCE_THRESHOLD, median_divergence_time
+from .evaluation import HeldOut, Levels, evaluations, json_number, rms_over_states, state_errors
+from .validity import dense_grid
 
 EXHAUSTIVE_LEVELS = 6
 # Horizons of the score: evenly spaced over (0, horizon], multiples of the finest stride.
@@ -28,16 +41,22 @@ ERROR_CAP = 1.0
 # a 1 % difference in the geometric-mean error, below the sampling noise of a few hundred
 # held-out start states.
 SCORE_TIE = 0.01
+# Horizons at which divergence times are looked for: every multiple of the finest stride up to
+# the score horizon, or evenly spaced ones (power-of-two multiples) when there are more than
+# this many, so the medians are resolved to 1/DIVERGENCE_POINTS of the horizon or better.
+DIVERGENCE_POINTS = 512
 
 
 @dataclass(frozen=True)
 class Candidate:
-    """One subset tried: its strides, held-out errors on the score horizons, score and cost."""
+    """One subset tried: its strides, held-out errors on the score horizons, score, cost and
+    median held-out time to divergence (base steps)."""
 
     strides: tuple[int, ...]
     errors: np.ndarray
     score: float
     evaluations: float
+    median_divergence: float
 
     @property
     def cost(self) -> tuple[float, int, tuple[int, ...]]:
@@ -53,6 +72,7 @@ class Candidate:
     def to_dict(self) -> dict[str, Any]:
         return {"strides": list(self.strides), "score": self.score,
                 "mean_evaluations": self.evaluations,
+                "median_divergence_steps": self.median_divergence,
                 "errors": [json_number(e) for e in self.errors]}
 
 
@@ -64,6 +84,11 @@ class Selection:
     method: str
     steps: np.ndarray
     candidates: tuple[Candidate, ...]
+    reference: Candidate
+
+    def eligible(self, candidate: Candidate) -> bool:
+        """Whether `candidate` lasts (median divergence time) as long as the finest alone."""
+        return candidate.median_divergence >= self.reference.median_divergence
 
     def to_dict(self, base_step: float) -> dict[str, Any]:
         return {
@@ -71,8 +96,16 @@ class Selection:
             "method": self.method,
             "score": "mean over the horizons of log(clip(normalised RMS, "
                      f"{ERROR_FLOOR:g}, {ERROR_CAP:g})); lower is better",
+            "eligibility": "median over held-out start states of the first time the "
+                           f"normalised error exceeds {DIVERGENCE_THRESHOLD:g} (starts that "
+                           "never do count at the score horizon) at least the finest level's "
+                           "alone",
+            "finest_median_divergence_time": self.reference.median_divergence * base_step,
             "times": [float(n * base_step) for n in self.steps],
-            "candidates": [candidate.to_dict() for candidate in self.candidates],
+            "candidates": [{**candidate.to_dict(),
+                            "median_divergence_time": candidate.median_divergence * base_step,
+                            "eligible": self.eligible(candidate)}
+                           for candidate in self.candidates],
         }
 
 
@@ -100,8 +133,21 @@ def score(errors: np.ndarray) -> float:
     return float(np.mean(np.log(clipped)))
 
 
+def choose(candidates: Sequence[Candidate], reference: Candidate) -> Candidate:
+    """The eligible candidate (median divergence time at least `reference`'s) with the lowest
+    score; scores within `SCORE_TIE` of it tie, and ties go to the lowest `cost`.
+
+    `reference` (the finest level alone) is eligible by definition and always considered.
+    """
+    eligible = [c for c in candidates if c.median_divergence >= reference.median_divergence]
+    eligible = eligible if any(c is reference for c in eligible) else [*eligible, reference]
+    lowest = min(c.score for c in eligible)
+    return min((c for c in eligible if c.score <= lowest + SCORE_TIE), key=lambda c: c.cost)
+
+
 def select_levels(levels: Levels, held_out: HeldOut, horizon_steps: int) -> Selection:
-    """Choose the subset of `levels` (finest always kept) minimising `score` up to the horizon.
+    """Choose the subset of `levels` (finest always kept): the lowest `score` up to the horizon
+    among those whose median held-out time to divergence is at least the finest level's.
 
     Parameters
     ----------
@@ -115,14 +161,20 @@ def select_levels(levels: Levels, held_out: HeldOut, horizon_steps: int) -> Sele
     strides = tuple(sorted(levels))
     finest = strides[0]
     steps = score_steps(horizon_steps, finest)
+    # One forecast pass per candidate on the score horizons and the divergence grid together.
+    grid = np.union1d(steps, dense_grid(horizon_steps, finest, DIVERGENCE_POINTS))
+    at_score = np.searchsorted(grid, steps)
     tried: dict[tuple[int, ...], Candidate] = {}
 
     def candidate(subset: Sequence[int]) -> Candidate:
         subset = tuple(sorted(subset))
         if subset not in tried:
             chosen = {stride: levels[stride] for stride in subset}
-            errors = error_curve(chosen, held_out, steps)
-            tried[subset] = Candidate(subset, errors, score(errors), evaluations(chosen, steps))
+            per_state = state_errors(chosen, held_out, grid)
+            errors = rms_over_states(per_state[at_score])
+            median = median_divergence_time(per_state, grid, float(horizon_steps))
+            tried[subset] = Candidate(subset, errors, score(errors), evaluations(chosen, steps),
+                                      median)
         return tried[subset]
 
     coarse = strides[1:]
@@ -131,9 +183,6 @@ def select_levels(levels: Levels, held_out: HeldOut, horizon_steps: int) -> Sele
         for size in range(len(coarse) + 1):
             for chosen in itertools.combinations(coarse, size):
                 candidate((finest, *chosen))
-        lowest = min(c.score for c in tried.values())
-        best = min((c for c in tried.values() if c.score <= lowest + SCORE_TIE),
-                   key=lambda c: c.cost)
     else:
         method = "backward elimination"
         best = candidate(strides)
@@ -144,8 +193,11 @@ def select_levels(levels: Levels, held_out: HeldOut, horizon_steps: int) -> Sele
             if not challenger.beats(best):
                 break
             best = challenger
+    reference = candidate((finest,))
+    best = choose(list(tried.values()), reference)
     ordered = sorted(tried.values(), key=lambda c: (len(c.strides), c.strides), reverse=True)
-    return Selection(kept=best.strides, method=method, steps=steps, candidates=tuple(ordered))
+    return Selection(kept=best.strides, method=method, steps=steps, candidates=tuple(ordered),
+                     reference=reference)
 
 
 def horizon_in_steps(horizon: float | None, *, base_step: float, finest: int, longest: int

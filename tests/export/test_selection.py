@@ -11,6 +11,8 @@ from stridecast.export.evaluation import prepare_held_out
 from stridecast.export.selection import (
     ERROR_CAP,
     ERROR_FLOOR,
+    Candidate,
+    choose,
     horizon_in_steps,
     score,
     score_steps,
@@ -46,8 +48,10 @@ def test_perturbed_level_is_dropped_by_backward_elimination():
     assert chosen.method == "backward elimination"
     assert chosen.kept == (1, 2, 4, 8, 16, 64)
     # First round: all seven, then every single drop (6 subsets); second round: the six
-    # kept with one more dropped (5 subsets), none better.
-    assert len(chosen.candidates) == 1 + 6 + 5
+    # kept with one more dropped (5 subsets), none better; then the finest level alone, the
+    # reference of the eligibility rule.
+    assert len(chosen.candidates) == 1 + 6 + 5 + 1
+    assert chosen.reference.strides == (1,)
 
 
 def test_diverging_level_is_dropped():
@@ -77,3 +81,24 @@ def test_score_steps_and_horizon():
     # 0.3 / 0.1 is 2.9999999999999996 in floating point; it still means 3 base steps.
     assert horizon_in_steps(0.3, base_step=0.1, finest=1, longest=39) == (3, False)
     assert horizon_in_steps(100.0, base_step=0.1, finest=1, longest=39) == (39, True)
+
+
+def _candidate(strides, score_value, median, evaluations_value=1.0):
+    return Candidate(strides=tuple(strides), errors=np.zeros(1), score=score_value,
+                     evaluations=evaluations_value, median_divergence=median)
+
+
+def test_rms_best_subset_that_diverges_sooner_is_rejected():
+    # Constructed from the two-scale Lorenz 96 failure: the subset with the lowest score
+    # (RMS over states, dominated by the worst states) has a shorter median time to
+    # divergence than the finest level alone, so it is not eligible.
+    finest = _candidate((1,), -1.0, median=27.0, evaluations_value=100.0)
+    rms_best = _candidate((1, 4, 16), -2.0, median=24.0, evaluations_value=10.0)
+    lasting = _candidate((1, 4), -1.5, median=30.0, evaluations_value=30.0)
+    assert choose([rms_best, lasting, finest], finest) is lasting
+    # With no other eligible subset the finest level alone is kept.
+    assert choose([rms_best, finest], finest) is finest
+    # Equal medians are eligible ("at least"); the lower score then wins.
+    level = _candidate((1, 4), -1.5, median=27.0)
+    assert choose([level, finest], finest) is level
+

@@ -8,12 +8,16 @@ import pytest
 
 from stridecast.export.evaluation import prepare_held_out
 from stridecast.export.validity import (
+    BLOCKS,
     DENSE_POINTS,
+    MIN_TRAJECTORIES,
     curve_block,
     dense_grid,
     dense_run,
     manifest_indices,
+    resampling_units,
     roughness,
+    upper_bound,
     validated_horizon,
 )
 from tests.export.test_evaluation import BASE_STEP, exact_level, held_out_list
@@ -87,3 +91,53 @@ def test_roughness_finds_a_plan_switch():
     inside = roughness(run, horizon_steps=39)["inside"]
     assert inside["at_base_steps"] % 4 == 0
     assert inside["ratio"] > 1.5 and inside["largest_excess"] > 0.05
+
+
+def test_upper_bound_is_the_bootstrap_percentile_computed_by_hand():
+    rng = np.random.default_rng(5)
+    # 3 times, 8 start states in 4 resampling units (pairs); the last time has no truth for
+    # the last two states (NaN), as for starts near the end of a held-out trajectory.
+    errors = rng.uniform(0.0, 1.0, size=(3, 8))
+    errors[2, 6:] = np.nan
+    units = np.array([0, 0, 1, 1, 2, 2, 3, 3])
+    bound = upper_bound(errors, units, confidence=0.9, resamples=200, seed=7)
+    # By hand, the documented recipe: the same draws of 4 units with replacement, the RMS
+    # over the drawn units' states with truth, numpy's "higher" 90 % quantile, at least the
+    # point estimate; draws without any truth left out.
+    draws = np.random.default_rng(7).integers(0, 4, size=(200, 4))
+    expected = []
+    for k in range(3):
+        values = []
+        for draw in draws:
+            states = np.concatenate([errors[k, units == u] for u in draw])
+            states = states[~np.isnan(states)]
+            if states.size == 0:  # a draw with no truth at this time is left out
+                continue
+            values.append(np.sqrt(np.mean(states**2)))
+        point = np.sqrt(np.nanmean(errors[k] ** 2))
+        expected.append(max(np.quantile(values, 0.9, method="higher"), point))
+    np.testing.assert_allclose(bound, expected, rtol=1e-12)
+    assert np.all(bound >= np.sqrt(np.nanmean(errors**2, axis=1)))
+
+
+def test_upper_bound_of_identical_units_is_the_estimate_and_divergence_is_inf():
+    # Every unit alike: every resample has the same figure, the estimate itself.
+    errors = np.tile([[0.1, 0.3]], (2, 3))  # (2 times, 6 states), units of two states
+    units = np.repeat(np.arange(3), 2)
+    np.testing.assert_allclose(upper_bound(errors, units), np.sqrt((0.01 + 0.09) / 2))
+    # One diverged state: a unit holding it is drawn in 1 − (2/3)³ ≈ 70 % of resamples,
+    # more than 5 %, so the 95 % bound is inf; without any truth the bound is NaN.
+    errors[1, 0] = np.inf
+    assert np.isinf(upper_bound(errors, units)[1])
+    assert np.isnan(upper_bound(np.full((1, 6), np.nan), units)[0])
+
+
+def test_resampling_units():
+    few = prepare_held_out(held_out_list(count=3))
+    units, kind = resampling_units(few)
+    # Three trajectories (< MIN_TRAJECTORIES): BLOCKS contiguous blocks of start states.
+    assert kind == "blocks of start states"
+    assert len(np.unique(units)) == BLOCKS and np.all(np.diff(units) >= 0)
+    many = prepare_held_out(held_out_list(count=MIN_TRAJECTORIES))
+    units, kind = resampling_units(many)
+    assert kind == "trajectories" and list(units) == list(many.trajectory)
