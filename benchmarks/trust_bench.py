@@ -18,14 +18,14 @@ from typing import Any
 
 import numpy as np
 
-from stridecast import crane
+from stridecast import crane, demo_bundle
 from stridecast.runtime import SAMPLES_FILE, EnvelopeSamples, encode_samples, load, write_bundle
 from stridecast.runtime.bundle import read_levels, read_manifest
 from stridecast.runtime.nearest import SampleIndex
 
 from .timing import Budget, format_seconds, interleaved, summary
 
-CRANE = Path(__file__).resolve().parents[1] / "stridecast" / "data" / "crane-demo.bundle"
+CRANE = demo_bundle()
 SAMPLE_COUNTS = (1024, 4096)
 
 

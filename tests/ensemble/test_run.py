@@ -84,13 +84,14 @@ def test_dask_array_and_file_inputs(cluster_client, oscillator, tmp_path):
 
 
 def test_a_killed_worker_loses_and_duplicates_nothing(cluster_client, tmp_path):
-    # Chunks that take a while (32 components, 300 sequential finest steps) so that tasks are
-    # running on the workers when one of them is killed.
+    # Chunks that take a while (32 components, 1,500 sequential finest steps) so that tasks
+    # are still running on the workers when the client has written its first chunk (a loaded
+    # machine makes the client, not the workers, the slow side otherwise).
     system = block_oscillators(16)
     path = linear_bundle(tmp_path / "big.bundle", system, base_step=0.01, strides=[1])
     stepper = load(path, dtype="float64")
     states = initial_states(2400, dim=32, seed=7)
-    times = np.array([0.5, 1.5, 3.0])
+    times = np.array([0.5, 1.5, 3.0, 15.0])
     written, killed = [], []
 
     def kill_once(done, total):

@@ -191,7 +191,8 @@ def test_a_million_one_byte_chunks_are_read_and_answered(roomy, expected, reliab
         f"{growth / 2**20:+.1f} MiB")
 
 
-def send_until_answered(server, head: bytes, piece: bytes, limit: int) -> tuple[int, float]:
+def send_until_answered(server, head: bytes, piece: bytes, limit: int, *,
+                        parser_may_refuse: bool = False) -> tuple[int, float]:
     """Send `head`, then `piece` after `piece` until an answer is readable or `limit` bytes
     went out; return the bytes sent and the seconds until the answer could be read."""
     connection = server.connect(timeout=30)
@@ -206,6 +207,11 @@ def send_until_answered(server, head: bytes, piece: bytes, limit: int) -> tuple[
                 break
             sent += len(piece)
         status, body = read_response(connection, timeout=60)
+    if parser_may_refuse and status == 400:
+        # uvicorn's httptools parser (used when installed) refuses a malformed chunk-size line
+        # itself, before the application reads a byte: refused, bounded, just not ours.
+        assert b"Invalid HTTP request" in body, body
+        return sent, time.perf_counter() - started
     assert status == 413, body
     assert f"limit of {LIMITS['max_body_bytes']} bytes".encode() in body
     return sent, time.perf_counter() - started
@@ -227,10 +233,11 @@ def test_a_chunk_claiming_2_to_the_72_bytes_still_meets_the_body_limit(limited, 
     # Bounded: at most 1 MiB of data, then the client waits for the answer.
     sent, seconds = send_until_answered(
         limited, request_head(ADVANCE, limited.port, CHUNKED_HEAD) + b"ffffffffffffffffff\r\n",
-        b" " * 1024, 2**20)
+        b" " * 1024, 2**20, parser_may_refuse=True)
     reliability.record(
         "Service: slow and chunked bodies", "one chunk whose size line claims 2^72 bytes, "
-        "then 1 MiB of data", 1, f"413 at the 4 KiB body limit, read by the client "
+        "then 1 MiB of data", 1, f"refused (413 at the 4 KiB body limit, or 400 from httptools' "
+        f"chunk parser), read by the client "
         f"{seconds:.1f} s after it started ({sent // 1024:,} KiB sent)")
 
 

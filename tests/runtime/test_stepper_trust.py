@@ -18,6 +18,7 @@ from stridecast import demo_bundle
 from stridecast.runtime import (
     ExtrapolationError,
     ExtrapolationWarning,
+    OptionError,
     TimeError,
     ValidationCurve,
     load,
@@ -208,7 +209,7 @@ def test_with_levels_equals_a_bundle_built_with_those_levels(oscillator, tmp_pat
     same = full.with_levels([1, 2, 4])
     assert same.manifest.validation == CURVE and same.expected_error(0.5) == 0.01
     for bad in ([], [3], [1, 1], ["1"], [True]):
-        with pytest.raises(TimeError, match=r"`strides` is .*; expected a non-empty list of "
+        with pytest.raises(OptionError, match=r"`strides` is .*; expected a non-empty list of "
                                             r"distinct strides of this bundle, \[1, 2, 4\]\."):
             full.with_levels(bad)
 
