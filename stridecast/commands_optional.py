@@ -42,23 +42,31 @@ def register(subparsers, add) -> None:
                  "stridecast.commands_optional:export_command")
     export.add_argument("--level", action="append", required=True, metavar="STRIDE=FILE",
                         help="a torch.export program (.pt2) or TorchScript file; repeat")
-    export.add_argument("--base-step", type=float, required=True)
+    export.add_argument("--base-step", type=float, required=True, metavar="SECONDS",
+                        help="time of one step of the stride-1 level, in --time-unit")
     export.add_argument("--normalization", default=None, metavar="STATS.json",
                         help="JSON with mean and scale (optional state_names, units, envelope)")
-    export.add_argument("--update", choices=("increment", "replace"), default="increment")
-    export.add_argument("--name", default=None)
-    export.add_argument("--time-unit", default="s")
-    export.add_argument("-o", "--out", required=True)
-    export.add_argument("--overwrite", action="store_true")
+    export.add_argument("--update", choices=("increment", "replace"), default="increment",
+                        help="what a network returns: increment (next = state + output) or "
+                        "replace (next = output) (default: %(default)s)")
+    export.add_argument("--name", default=None,
+                        help="bundle name in its manifest (default: the folder name)")
+    export.add_argument("--time-unit", default="s",
+                        help="unit of --base-step and of forecast times (default: %(default)s)")
+    export.add_argument("-o", "--out", required=True, help="bundle folder to write")
+    export.add_argument("--overwrite", action="store_true", help="replace an existing bundle")
 
     serve = add(subparsers, "serve", "Serve bundles over HTTP (JSON, MessagePack, open "
                 "inference protocol v2).", "stridecast serve crane-demo.bundle --port 8000",
                 "stridecast.commands_optional:serve_command")
     serve.add_argument("paths", nargs="*", help="bundles, or folders of bundles")
     serve.add_argument("--demo", action="store_true", help="also serve the shipped demo bundle")
-    serve.add_argument("--host", default="127.0.0.1")
-    serve.add_argument("--port", type=int, default=8000)
-    serve.add_argument("--workers", type=int, default=1)
+    serve.add_argument("--host", default="127.0.0.1",
+                       help="address to listen on; 0.0.0.0 for every interface "
+                       "(default: %(default)s, this machine only)")
+    serve.add_argument("--port", type=int, default=8000, help="TCP port (default: %(default)s)")
+    serve.add_argument("--workers", type=int, default=1,
+                       help="worker processes, each loading every bundle (default: %(default)s)")
     serve.add_argument("--grpc-port", type=int, default=None, metavar="PORT",
                        help="also serve the open inference protocol over gRPC on PORT, same "
                             "host (needs stridecast[grpc])")
@@ -118,7 +126,7 @@ def export_command(arguments: argparse.Namespace) -> int:
 
 
 def serve_command(arguments: argparse.Namespace) -> int:
-    from stridecast.cli import CAUTION
+    from stridecast.caution import CAUTION
     from stridecast.commands_runtime import shipped_bundle
 
     with _needs("service"):
