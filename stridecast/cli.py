@@ -14,6 +14,14 @@ from collections.abc import Callable
 from . import __version__
 from .caution import CAUTION
 
+EXIT_CODES = (
+    "exit codes, the same for every command:\n"
+    "  0  success\n"
+    "  1  failure: bad input, a bundle that does not load, a port in use, a missing extra\n"
+    "  2  usage: unknown option, missing or malformed argument\n"
+    "  130  interrupted (Ctrl-C)"
+)
+
 Handler = Callable[[argparse.Namespace], int]
 
 
@@ -114,6 +122,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="stridecast", formatter_class=_formatter,
         description="Deploy learned multi-scale flow-map time-steppers.\n\n" + CAUTION,
+        epilog=EXIT_CODES,
     )
     parser.add_argument("--version", action="version", version=f"stridecast {__version__}")
     parser.add_argument("--caution", action=_ShowCaution,
@@ -160,7 +169,7 @@ def _register_optional(subparsers) -> None:
     """Commands of the other parts; each module adds its own parser."""
     from . import commands_ensemble, commands_optional
 
-    commands_optional.register(subparsers, _add)
+    commands_optional.register(subparsers, _add, _DeprecatedAlias)
     commands_ensemble.register(subparsers, _add)
 
 

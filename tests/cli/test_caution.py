@@ -30,7 +30,7 @@ def test_advance_shows_the_caution_once_per_session(bundle, capsys, private_cach
     assert (private_cache / "stridecast" / caution.MARKER_NAME).is_file()
     assert main(arguments) == 0
     assert PHRASE not in capsys.readouterr().err
-    assert main(arguments + ["--caution"]) == 0
+    assert main([*arguments, "--caution"]) == 0
     assert PHRASE in capsys.readouterr().err
 
 

@@ -66,7 +66,7 @@ def test_a_value_taken_for_an_option_says_to_write_equals(bundle, capsys):
 def test_forecast_takes_a_batch_of_repeated_states(bundle, capsys, tmp_path):
     arguments = ["forecast", str(bundle), "--state", "1,0", "--state", "0,1",
                  "--times", "0.4,0.8"]
-    assert main(arguments + ["--json"]) == 0
+    assert main([*arguments, "--json"]) == 0
     states = np.asarray(_answer(capsys)["states"])
     assert states.shape == (2, 2, 2)  # (times, members, components)
     for index, t in enumerate((0.4, 0.8)):
@@ -74,7 +74,7 @@ def test_forecast_takes_a_batch_of_repeated_states(bundle, capsys, tmp_path):
         expected = (expm(oscillator_matrix() * t) @ np.eye(2)).T
         assert np.allclose(states[index], expected, atol=1e-5)
     out = tmp_path / "batch.csv"
-    assert main(arguments + ["--out", str(out)]) == 0
+    assert main([*arguments, "--out", str(out)]) == 0
     assert out.read_text().splitlines()[0] == "t,member,x0,x1"
     table = np.loadtxt(out, delimiter=",", skiprows=1)
     assert table[:, :2].tolist() == [[0.4, 0], [0.4, 1], [0.8, 0], [0.8, 1]]
@@ -93,3 +93,11 @@ def test_every_option_says_what_it_does():
                for action in command._actions
                if action.option_strings and not action.help]
     assert missing == []
+
+
+def test_help_documents_the_exit_codes(capsys):
+    with pytest.raises(SystemExit) as stop:
+        main(["--help"])
+    assert stop.value.code == 0
+    text = capsys.readouterr().out
+    assert "0  success" in text and "1  failure" in text and "2  usage" in text
