@@ -111,8 +111,8 @@ def _add_state_options(parser: argparse.ArgumentParser) -> None:
                         default="interpolate", help="what to do between grid times "
                         "(default: %(default)s)")
     parser.add_argument("--dtype", choices=("float32", "float64"), default="float32",
-                        help="arithmetic of the networks: float32 is faster, float64 closer to the exported "
-                        "weights (default: %(default)s)")
+                        help="arithmetic of the networks: float32 is faster, float64 "
+                        "closer to the exported weights (default: %(default)s)")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
     parser.add_argument("--caution", action="store_true",
                         help="print the caution even if this session has shown it already")
