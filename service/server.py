@@ -2,16 +2,24 @@
 
 from __future__ import annotations
 
+import errno
 import json
+import logging
 import os
-from collections.abc import Sequence
+import socket
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
 import uvicorn
 
+from stridecast.runtime.errors import BundleError, StridecastError
+
 from .app import create_app
+from .registry import Registry, load_registry, named_sources
 from .settings import Settings
+
+logger = logging.getLogger("stridecast.service")
 
 FACTORY = "stridecast.service.app:app_from_environment"
 
@@ -44,9 +52,60 @@ def environment_for(settings: Settings) -> dict[str, str]:
     return variables
 
 
+class ServeError(StridecastError):
+    """`serve` cannot start: nothing to serve, clashing names, or the port is taken."""
+
+
+def check_models(settings: Settings) -> Registry:
+    """Load every model once before the server starts; refuse when none loads or names clash.
+
+    Returns the registry (each model loaded, or failed with its reason); the app loads its
+    own copy in its lifespan, so this is a check, done where it can still stop start-up.
+    """
+    sources = named_sources(settings.models)
+    by_name: dict[str, list[str]] = {}
+    for name, description, _ in sources:
+        by_name.setdefault(name, []).append(description)
+    clashes = {name: places for name, places in by_name.items() if len(places) > 1}
+    if clashes:
+        lines = "; ".join(f"{name!r} from {' and '.join(places)}"
+                          for name, places in clashes.items())
+        raise ServeError(f"two bundles would be served under one name: {lines}. A model is "
+                         "named after its folder less `.bundle`; rename one folder (e.g. "
+                         "`mv crane-demo.bundle my-crane.bundle`).")
+    registry = load_registry(sources, dtype=settings.dtype, threads=settings.threads)
+    if not registry.served:
+        reasons = "; ".join(f"{entry.source}: {entry.error}" for entry in registry.entries)
+        raise BundleError(f"no bundle could be loaded, so there is nothing to serve "
+                          f"({reasons or 'no bundle given'}).")
+    for entry in registry.entries:
+        if entry.ready:
+            logger.info("serving model %r from %s", entry.name, entry.source)
+        else:
+            logger.warning("not serving %r from %s: %s", entry.name, entry.source, entry.error)
+    return registry
+
+
+def check_port(host: str, port: int) -> None:
+    """Bind `host:port` once, so a port in use fails here with a clear message, not later
+    inside the ASGI server with the app half started."""
+    family = socket.AF_INET6 if ":" in host else socket.AF_INET
+    with socket.socket(family, socket.SOCK_STREAM) as probe:
+        # As uvicorn does: a port left in TIME_WAIT by a previous run is free to reuse.
+        probe.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        try:
+            probe.bind((host, port))
+        except OSError as error:
+            if error.errno == errno.EADDRINUSE:
+                raise ServeError(f"`port` {port} on {host} is already in use; stop what "
+                                 "listens there or choose another with --port.") from error
+            raise ServeError(f"cannot listen on {host}:{port}: {error.strerror}.") from error
+
+
 def serve(paths: Sequence[str | os.PathLike[str]], *, host: str = "127.0.0.1", port: int = 8000,
           workers: int = 1, token_file: str | os.PathLike[str] | None = None,
-          log_level: str = "info", settings: Settings | None = None, **overrides: Any) -> None:
+          log_level: str = "info", settings: Settings | None = None,
+          on_ready: Callable[[], None] | None = None, **overrides: Any) -> None:
     """Serve the bundles at `paths` over HTTP until interrupted.
 
     Parameters
@@ -66,10 +125,26 @@ def serve(paths: Sequence[str | os.PathLike[str]], *, host: str = "127.0.0.1", p
     settings : Settings, optional
         Base settings (default: from the environment); `overrides` are field values on top,
         e.g. ``max_batch=256``.
+    on_ready : callable, optional
+        Called once the checks have passed, just before the server starts (the CLI prints
+        its caution there, never on a failed start).
+
+    Raises
+    ------
+    ServeError
+        If the port is in use or two bundles would share a name.
+    BundleError
+        If no bundle loads (the message gives each one's reason).
     """
     if workers < 1:
         raise ValueError(f"`workers` is {workers}; expected at least 1.")
     final = effective_settings(paths, token_file=token_file, settings=settings, **overrides)
+    check_port(host, port)
+    if final.grpc_port is not None:
+        check_port(final.grpc_host or host, final.grpc_port)
+    check_models(final)
+    if on_ready is not None:
+        on_ready()
     # Let running requests finish (their budget) before a shutdown stops waiting for them.
     grace = int(final.request_timeout) + 5
     common = dict(host=host, port=port, log_level=log_level, timeout_graceful_shutdown=grace)

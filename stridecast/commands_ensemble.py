@@ -33,8 +33,10 @@ def register(subparsers, add) -> None:
     ensemble.add_argument("--chunk-states", type=int, default=None, metavar="M",
                           help="members per task (default: about 16 MiB of results)")
     ensemble.add_argument("--off-grid", choices=("interpolate", "nearest", "error"),
-                          default="interpolate")
-    ensemble.add_argument("--dtype", choices=("float32", "float64"), default="float32")
+                          default="interpolate", help="what to do between grid times "
+                          "(default: %(default)s)")
+    ensemble.add_argument("--dtype", choices=("float32", "float64"), default="float32",
+                          help="arithmetic of the networks (default: %(default)s)")
     ensemble.add_argument("--no-progress", action="store_true", help="no progress bar")
 
 

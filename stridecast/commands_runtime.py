@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
-from stridecast import demo_bundle
+from stridecast import caution, demo_bundle
 from stridecast.runtime import BundleError, Finding, StateError, TimeError, load
 from stridecast.runtime.findings import WARNING_KINDS
 
@@ -78,6 +78,7 @@ def inspect_command(arguments: argparse.Namespace) -> int:
         for key, value in report.items():
             text = json.dumps(value)
             print(f"  {key}: {text if len(text) < 200 else text[:197] + '...'}")
+    print(caution.CAUTION, file=sys.stderr)
     return 0
 
 
@@ -132,13 +133,20 @@ def _error_text(value: float) -> str:
     return "unbounded" if np.isinf(value) else f"{value:.3g}"
 
 
-def _print_caution(findings: tuple[Finding, ...]) -> None:
-    from stridecast.cli import CAUTION
-
+def _print_findings(findings: tuple[Finding, ...]) -> None:
     for finding in findings:
         label = "warning" if finding.kind in WARNING_KINDS else "note"
         print(f"{label}: {finding.message}", file=sys.stderr)
-    print(CAUTION, file=sys.stderr)
+
+
+def _print_caution_once(arguments: argparse.Namespace) -> None:
+    """The caution after a successful answer: once per session, on demand, never with JSON
+    (a script reading the answer has no reader for it; errors never reach here)."""
+    if arguments.json:
+        return
+    if arguments.caution or caution.due():
+        print(caution.CAUTION, file=sys.stderr)
+        caution.remember_shown()
 
 
 def advance_command(arguments: argparse.Namespace) -> int:
@@ -146,16 +154,16 @@ def advance_command(arguments: argparse.Namespace) -> int:
     # prints them itself rather than through Python warnings.
     stepper = load(bundle_path(arguments), dtype=arguments.dtype, on_extrapolation="ignore")
     states = _read_states(arguments)
-    result, plan = stepper.advance_with_plan(states, arguments.t, off_grid=arguments.off_grid)
+    result, plan = stepper.advance_with_plan(states, arguments.time, off_grid=arguments.off_grid)
     if arguments.json:
-        print(json.dumps({"t": arguments.t, "state": result.tolist(),
+        print(json.dumps({"t": arguments.time, "state": result.tolist(),
                           "state_names": list(stepper.state_names), "plan": plan.to_dict(),
                           "expected_error": _error_or_none(plan.expected_error),
                           "findings": [finding.to_dict() for finding in plan.findings],
                           "warnings": _warnings(plan.findings)}))
     else:
         steps = " + ".join(f"{count}×{stride}" for stride, count in plan.steps) or "none"
-        print(f"t = {arguments.t:g} {stepper.manifest.time_unit}  (method {plan.method}; "
+        print(f"t = {arguments.time:g} {stepper.manifest.time_unit}  (method {plan.method}; "
               f"steps {steps}; {plan.evaluations} network "
               f"evaluation{'' if plan.evaluations == 1 else 's'})")
         rows = result.reshape(-1, stepper.state_dim)
@@ -164,7 +172,8 @@ def advance_command(arguments: argparse.Namespace) -> int:
             print("  ".join(f"{value:>14.7g}" for value in row))
         print(f"expected error {_error_text(plan.expected_error)} (held-out normalised RMS at "
               "this time)")
-    _print_caution(plan.findings)
+    _print_findings(plan.findings)
+    _print_caution_once(arguments)
     return 0
 
 
@@ -186,14 +195,21 @@ def _times(arguments: argparse.Namespace) -> np.ndarray:
 def forecast_command(arguments: argparse.Namespace) -> int:
     stepper = load(bundle_path(arguments), dtype=arguments.dtype, on_extrapolation="ignore")
     states = _read_states(arguments)
-    if states.ndim != 1:
-        raise StateError("`forecast` on the command line takes one initial state.")
     times = _times(arguments)
     result, info = stepper.forecast_with_info(states, times, off_grid=arguments.off_grid)
+    # One table for one state or a batch: a row per (time, member), members numbered from 0.
+    members = 1 if states.ndim == 1 else states.shape[0]
+    rows = result.reshape(len(times) * members, stepper.state_dim)
+    row_times = np.repeat(times, members)
+    row_members = np.tile(np.arange(members), len(times))
+    row_errors = np.repeat(info.expected_error, members)
+    batch = states.ndim != 1
     if arguments.out:
-        _write_table(Path(arguments.out), times, result, stepper.state_names)
-        print(f"wrote {len(times)} states to {arguments.out} ({info.evaluations} network "
-              f"evaluations in {info.network_calls} batched calls)")
+        _write_table(Path(arguments.out), row_times, rows, stepper.state_names,
+                     row_members if batch else None)
+        print(f"wrote {len(rows)} states to {arguments.out} ({info.evaluations} network "
+              f"evaluation{'' if info.evaluations == 1 else 's'} in {info.network_calls} "
+              f"batched call{'' if info.network_calls == 1 else 's'})")
         if np.isfinite(info.expected_error).any() or np.isinf(info.expected_error).any():
             print(f"expected error {_error_text(float(info.expected_error.max()))} at most "
                   "(held-out normalised RMS)")
@@ -207,29 +223,40 @@ def forecast_command(arguments: argparse.Namespace) -> int:
     else:
         known = not np.isnan(info.expected_error).all()
         error_header = f"  {'exp. error':>10}" if known else ""
-        print(f"{'t':>10}  " + "  ".join(f"{name:>14}" for name in stepper.state_names)
-              + error_header)
-        for t, row, error in zip(times, result, info.expected_error, strict=True):
+        member_header = f"  {'member':>6}" if batch else ""
+        print(f"{'t':>10}{member_header}  "
+              + "  ".join(f"{name:>14}" for name in stepper.state_names) + error_header)
+        for t, member, row, error in zip(row_times, row_members, rows, row_errors,
+                                         strict=True):
             error_cell = f"  {_error_text(error):>10}" if known else ""
-            print(f"{t:>10.6g}  " + "  ".join(f"{value:>14.7g}" for value in row) + error_cell)
-    _print_caution(info.findings)
+            member_cell = f"  {member:>6}" if batch else ""
+            print(f"{t:>10.6g}{member_cell}  " + "  ".join(f"{value:>14.7g}" for value in row)
+                  + error_cell)
+    _print_findings(info.findings)
+    _print_caution_once(arguments)
     return 0
 
 
-def _write_table(path: Path, times: np.ndarray, states: np.ndarray, names) -> None:
-    """Write atomically: a temporary file beside the target, then rename."""
+def _write_table(path: Path, times: np.ndarray, states: np.ndarray, names,
+                 members: np.ndarray | None = None) -> None:
+    """Write atomically: a temporary file beside the target, then rename.
+
+    Columns: t, then `member` for a batch, then the state components.
+    """
     if path.suffix not in (".csv", ".npy"):
         raise StateError(f"`--out` {str(path)!r} must end in .csv or .npy.")
     path.parent.mkdir(parents=True, exist_ok=True)
     descriptor, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     try:
+        columns = [times] if members is None else [times, members]
+        table = np.column_stack([*columns, states])
         with os.fdopen(descriptor, "wb") as handle:
             if path.suffix == ".npy":
-                np.save(handle, np.column_stack([times, states]))
+                np.save(handle, table)
             else:
-                header = "t," + ",".join(names)
-                np.savetxt(handle, np.column_stack([times, states]), delimiter=",",
-                           header=header, comments="", fmt="%.9g")
+                header = ",".join(["t", *(["member"] if members is not None else []), *names])
+                np.savetxt(handle, table, delimiter=",", header=header, comments="",
+                           fmt="%.9g")
         os.replace(temporary, path)
     except BaseException:
         if os.path.exists(temporary):

@@ -111,7 +111,8 @@ def register(subparsers, add) -> None:
                          type=_integers("--hidden", "64,64"),
                          help="hidden layer widths (default: %(default)s)")
     network.add_argument("--activation", choices=ACTIVATIONS, default="tanh",
-                         help="activation between layers (default: %(default)s)")
+                         help="activation between layers, one of: " + ", ".join(ACTIVATIONS)
+                         + " (default: %(default)s)")
     network.add_argument("--epochs", type=_count("--epochs"), default=50,
                          help="passes over the windows (default: %(default)s)")
     network.add_argument("--patience", type=_count("--patience", none=True), default=10,

@@ -25,11 +25,11 @@ from stridecast import crane
 from stridecast.runtime import BundleError, StridecastError, load
 
 from . import demo_output
+from .caution import CAUTION
 from .demo_evaluation import evaluate
 from .demo_plots import write_plots
 from .demo_settings import (
     BASE_STEP,
-    CAUTION,
     DEFAULT_OUT,
     FULL,
     GROUND_TRUTH_TOLERANCE,

@@ -111,12 +111,12 @@ def format_commands(bundle: Path, evaluation: Evaluation) -> str:
     url = f"{SERVICE_URL}/v1/models/{model_name(bundle.resolve())}/advance"
     return "\n".join([
         f"6. Query it (the example state: {EXAMPLE_LABEL}):",
-        f"   stridecast advance {where} --state={text} --t {horizon:g}",
+        f"   stridecast advance {where} --state={text} --time {horizon:g}",
         f"   stridecast forecast {where} --state={text} --until {HORIZON:g} --every 0.2",
         f"   stridecast serve {where}",
         f"   curl -s -X POST {url} -H 'Content-Type: application/json' -d {shlex.quote(body)}",
         "   The bundle shipped inside the package answers without torch: "
-        f"stridecast advance --demo --state={text} --t {horizon:g}; stridecast serve --demo",
+        f"stridecast advance --demo --state={text} --time {horizon:g}; stridecast serve --demo",
     ])
 
 

@@ -34,11 +34,6 @@ EXAMPLE_MODES = {"swing_angle": 0.15, "swing_rate": 0.0, "stretch": 0.02, "stret
 EXAMPLE_LABEL = "a 0.15 rad swing and a 2 cm stretch, at rest"
 CHECK_STATES = 8  # held-out states whose errors the report states for the shipped-bundle test
 TOLERANCE_FACTOR = 1.5  # stated tolerance = this × the error measured when the bundle was made
-CAUTION = (
-    "Caution: a learned stepper is an approximation, valid inside its training envelope and "
-    "validated horizon. It is not a safety function: lifting operations follow local codes "
-    "and licensed practice."
-)
 
 
 @dataclass(frozen=True)
