@@ -43,6 +43,8 @@ def shell_lines(body: str) -> list[str]:
 def workdir(tmp_path, monkeypatch):
     shutil.copytree(SHIPPED, tmp_path / "crane-demo.bundle")
     monkeypatch.chdir(tmp_path)
+    # The CLI remembers where it showed the caution; keep that marker out of the user's cache.
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
     return tmp_path
 
 
