@@ -306,8 +306,9 @@ def parse_manifest(document: Any) -> Manifest:
         if envelope.get("samples") is not None:
             samples = _envelope_samples(envelope["samples"])
     if samples is not None and samples.file in _model_files(levels, reduction):
+        owner = "a level" if samples.file in {lv.file for lv in levels} else "the reduction"
         raise BundleError(
-            f"`envelope.samples.file` is {samples.file!r}, the file of a network; expected a "
+            f"`envelope.samples.file` is {samples.file!r}, the file of {owner}; expected a "
             f"file of its own such as {SAMPLES_FILE!r}."
         )
     validation = document.get("validation")
