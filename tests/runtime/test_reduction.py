@@ -11,6 +11,7 @@ its exact flow, scipy.linalg.expm(A_r t), decoded: x(t) = (V expm(A_r t) Vᵀ z0
 from __future__ import annotations
 
 import json
+import pickle
 
 import numpy as np
 import pytest
@@ -28,6 +29,7 @@ from stridecast.runtime import (
     parse_manifest,
     write_bundle,
 )
+from stridecast.runtime.describe import describe_bundle
 from stridecast.runtime.manifest import LevelEntry, ModelFile, Reduction
 from tests.builders import edit_manifest, linear_bundle, reduced_bundle
 
@@ -166,6 +168,17 @@ def test_envelope_is_checked_on_latent_states(tmp_path, system):
     assert stepper.check(states) == ()
 
 
+def test_subsets_pickles_and_descriptions_keep_the_reduction(bundle, system, tmp_path):
+    stepper = load(bundle, dtype="float64")
+    states = initial_states(2)
+    subset = stepper.with_levels([1, 16])
+    assert subset.latent_dim == LATENT
+    assert relative(subset.advance(states, 1.7), reference(states, [1.7], system)[0]) <= 1e-9
+    again = pickle.loads(pickle.dumps(stepper))
+    np.testing.assert_array_equal(again.advance(states, 6.5), stepper.advance(states, 6.5))
+    assert describe_bundle(bundle)["manifest"]["reduction"]["latent_dim"] == LATENT
+
+
 def test_reduced_manifest_round_trips(bundle):
     document = json.loads((bundle / "manifest.json").read_text())
     block = document["reduction"]
@@ -181,8 +194,10 @@ def test_bad_encoder_checksum_is_refused(tmp_path, system):
     data = bytearray((path / ENCODER_FILE).read_bytes())
     data[-1] ^= 1
     (path / ENCODER_FILE).write_bytes(bytes(data))
-    with pytest.raises(BundleError, match="encoder"):
+    with pytest.raises(BundleError, match=r"checksum of .*encoder"):
         load(path)
+    with pytest.raises(BundleError, match=r"checksum of .*encoder"):
+        describe_bundle(path)
 
 
 @pytest.mark.parametrize("file", ["../decoder.onnx", "/etc/passwd", "reduction\\d.onnx"])
