@@ -49,7 +49,11 @@ def pod_system() -> tuple[np.ndarray, np.ndarray]:
     """(A_r, V): the POD basis of z snapshots from random starts and the latent system."""
     rng = np.random.default_rng(7)
     normalised = heat_matrix() * SCALE[None, :] / SCALE[:, None]  # S⁻¹ A S
-    starts = rng.normal(size=(N, 12))
+    # Smooth starts (the first 12 sine modes, amplitudes falling as 1/k): the basis then holds
+    # slow modes, so deviations from the steady profile last over the forecast times.
+    waves = np.arange(1, 13)
+    starts = np.sin(np.pi * np.outer(GRID, waves)) @ (rng.normal(size=(12, 12))
+                                                      / waves[:, None])
     snapshots = np.hstack([expm(normalised * t) @ starts for t in (0.0, 1.0, 5.0, 20.0)])
     basis = np.linalg.svd(snapshots, full_matrices=False)[0][:, :LATENT]
     return basis.T @ normalised @ basis, basis
@@ -81,7 +85,9 @@ def initial_states(count: int) -> np.ndarray:
 
 
 def relative(mine: np.ndarray, exact: np.ndarray) -> float:
-    return float(np.max(np.abs(mine - exact)) / np.max(np.abs(exact)))
+    """Largest error over the largest deviation from the steady profile (not over the
+    temperatures themselves, which the mean of ~300 K would dominate)."""
+    return float(np.max(np.abs(mine - exact)) / np.max(np.abs(exact - STEADY)))
 
 
 @pytest.mark.parametrize("update", ["replace", "increment"])
