@@ -7,6 +7,7 @@ compared with torch (and onnxruntime), and only then renamed into place.
 
 from __future__ import annotations
 
+import copy
 import json
 import logging
 import os
@@ -14,6 +15,7 @@ import shutil
 import sys
 import tempfile
 from collections.abc import Iterable, Mapping
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -24,10 +26,14 @@ from tqdm.auto import tqdm
 
 import stridecast
 from stridecast.runtime import (
+    DECODER_FILE,
+    ENCODER_FILE,
     SAMPLES_FILE,
     EnvelopeSamples,
     LevelEntry,
     Manifest,
+    ModelFile,
+    Reduction,
     ValidationCurve,
     encode_samples,
     load,
@@ -54,10 +60,18 @@ from .onnx_export import (
     export_level,
     infer_state_dim,
     prepare_level,
+    quiet_torch,
     resolve_exporter,
 )
 from .trained import TrainedLevels
-from .verify import DEFAULT_SAMPLES, Tolerance, normalised_example, sample_states, verify_levels
+from .verify import (
+    DEFAULT_SAMPLES,
+    ReducedNetworks,
+    Tolerance,
+    normalised_example,
+    sample_states,
+    verify_levels,
+)
 
 logger = logging.getLogger(__name__)
 _PLACEHOLDER_SHA = "0" * 64
@@ -88,6 +102,8 @@ def export_bundle(
     tolerance: Tolerance | None = None,
     seed: int = 0,
     progress: bool = False,
+    encoder: Any = None,
+    decoder: Any = None,
 ) -> Path:
     """Export one torch network per stride into a verified stridecast bundle.
 
@@ -141,6 +157,14 @@ def export_bundle(
         Seed of the verification draw.
     progress : bool
         Show a progress bar over the levels on stderr.
+    encoder, decoder : torch.nn.Module or torch.export.ExportedProgram, optional
+        Give both for a reduced bundle (manifest block `reduction`): the encoder maps
+        normalised full states z (B, d) to latent states (B, r), the decoder maps them back,
+        and the levels map latent to latent (B, r) → (B, r) under `update`. Both are
+        exported and verified like levels; each level is verified through encoder, level
+        and decoder. `envelope` then only bounds the verification states (the manifest's
+        envelope would be latent); `envelope_samples` and `TrainedLevels` are not supported
+        with them yet.
 
     Returns
     -------
@@ -156,6 +180,7 @@ def export_bundle(
         torch, the runtime and onnxruntime disagree; nothing is left under `out`.
     """
     trained = levels if isinstance(levels, TrainedLevels) else None
+    reducing = _check_reduction_arguments(encoder, decoder, trained, envelope_samples)
     if trained is not None:
         base_step, mean, scale, envelope, validation, state_names, units = _from_trained(
             trained, base_step=base_step, mean=mean, scale=scale, update=update,
@@ -173,7 +198,7 @@ def export_bundle(
     state_dim = declared_state_dim(mean=mean, scale=scale, state_names=state_names, units=units,
                                    envelope=envelope)
     if state_dim is None:
-        state_dim = _inferred_state_dim(pairs)
+        state_dim = _inferred_state_dim([(0, encoder)] if reducing else pairs)
     physical_samples = None
     if envelope_samples is not None:
         physical_samples = check_envelope_samples(envelope_samples, state_dim)
@@ -190,14 +215,27 @@ def export_bundle(
     )
     sample = sample_states(spec, samples=verify_samples, seed=seed, states=verify_states)
     example = normalised_example(spec, sample, EXAMPLE_BATCH)
-    prepared = {stride: prepare_level(stride, level, state_dim, example)
+    reduced = None
+    level_example, level_dim = example, state_dim
+    if reducing:
+        reduced, level_example = _export_reduction(encoder, decoder, example, exporter=exporter,
+                                                   opset=opset)
+        level_dim = level_example.shape[1]
+        spec = replace(spec, envelope_min=None, envelope_max=None)  # a full-space box
+    prepared = {stride: prepare_level(stride, level, level_dim, level_example)
                 for stride, level in pairs}
     for level in prepared.values():
         resolve_exporter(level, exporter)  # refuse a mismatch before any slow export
-    exported = _export_levels(prepared, exporter=exporter, example=example, opset=opset,
+    exported = _export_levels(prepared, exporter=exporter, example=level_example, opset=opset,
                               progress=progress)
     samples = _envelope(spec, trained, physical_samples, envelope_radius)
     manifest = _manifest(spec, exported, curve, samples)
+    extra_files = {} if samples is None else {SAMPLES_FILE: encode_samples(samples[0])}
+    if reduced is not None:
+        manifest = replace(manifest, reduction=Reduction(
+            latent_dim=level_dim, encoder=ModelFile(ENCODER_FILE, _PLACEHOLDER_SHA),
+            decoder=ModelFile(DECODER_FILE, _PLACEHOLDER_SHA)))
+        extra_files |= {ENCODER_FILE: reduced.encoder_bytes, DECODER_FILE: reduced.decoder_bytes}
 
     target.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.export-", dir=target.parent))
@@ -205,10 +243,10 @@ def export_bundle(
         staged = write_bundle(
             staging / "bundle", manifest,
             {stride: level.onnx_bytes for stride, level in exported.items()},
-            extra_files=None if samples is None else {SAMPLES_FILE: encode_samples(samples[0])})
+            extra_files=extra_files)
         stepper = load(staged, dtype="float32", verify=True)
         verification = verify_levels(stepper, prepared, exported, spec, sample,
-                                     tolerance or Tolerance())
+                                     tolerance or Tolerance(), reduced)
         report = _report(staged, spec, verification, validation, trained)
         if samples is not None:
             report["envelope"] = {"samples": len(samples[0]), "radius": samples[1],
@@ -221,6 +259,76 @@ def export_bundle(
         shutil.rmtree(staging, ignore_errors=True)
     logger.info("wrote bundle %s (strides %s)", target, list(spec.strides))
     return target
+
+
+def _check_reduction_arguments(encoder: Any, decoder: Any, trained: TrainedLevels | None,
+                               envelope_samples: Any) -> bool:
+    """Whether the bundle is reduced; refuses half a pair and what is not supported yet."""
+    if encoder is None and decoder is None:
+        return False
+    if encoder is None or decoder is None:
+        given, missing = ("encoder", "decoder") if decoder is None else ("decoder", "encoder")
+        raise BundleError(
+            f"`{given}` was given without `{missing}`; a reduced bundle needs both (or "
+            "neither)."
+        )
+    if trained is not None:
+        raise BundleError("`encoder`/`decoder` cannot be given with TrainedLevels yet; pass "
+                          "the latent levels as a mapping of stride to module.")
+    if envelope_samples is not None:
+        raise BundleError("`envelope_samples` cannot be given with `encoder`/`decoder` yet "
+                          "(a reduced bundle's envelope is latent).")
+    return True
+
+
+def _export_reduction(encoder: Any, decoder: Any, example: torch.Tensor, *, exporter: str,
+                      opset: int | None) -> tuple[ReducedNetworks, torch.Tensor]:
+    """Prepare, check and export the encoder and decoder; return them with the latent
+    example batch (the encoder applied to `example`) the levels are exported on."""
+    dim = example.shape[1]
+    # The latent width is what the encoder makes of the example; checked on the way.
+    latent_dim = _latent_width(encoder, example)
+    prepared_encoder = prepare_level(0, encoder, dim, example, where="the encoder",
+                                     output_dim=latent_dim)
+    with torch.no_grad():
+        latent_example = prepared_encoder.call(example).detach().float().contiguous()
+    prepared_decoder = prepare_level(0, decoder, latent_dim, latent_example,
+                                     where="the decoder", output_dim=dim)
+    encoded = export_level(prepared_encoder, state_dim=dim, exporter=exporter, example=example,
+                           opset=opset, where="the encoder", output_dim=latent_dim)
+    decoded = export_level(prepared_decoder, state_dim=latent_dim, exporter=exporter,
+                           example=latent_example, opset=opset, where="the decoder",
+                           output_dim=dim)
+    return ReducedNetworks(encoder=prepared_encoder, decoder=prepared_decoder,
+                           encoder_bytes=encoded.onnx_bytes,
+                           decoder_bytes=decoded.onnx_bytes), latent_example
+
+
+def _latent_width(encoder: Any, example: torch.Tensor) -> int:
+    if isinstance(encoder, torch.export.ExportedProgram):
+        call = encoder.module()
+    elif isinstance(encoder, torch.nn.Module):
+        # A float32 eval copy, as `prepare_level` makes: the caller's module stays as it is.
+        with quiet_torch():
+            call = copy.deepcopy(encoder).float().eval()
+    else:
+        call = None
+    if call is None:
+        raise BundleError(f"`encoder` is a {type(encoder).__name__}; expected a "
+                          "torch.nn.Module or a torch.export.ExportedProgram.")
+    try:
+        with torch.no_grad():
+            result = call(example)
+    # User code may raise anything; name the encoder and keep the original as the cause.
+    except Exception as error:
+        raise BundleError(f"the encoder cannot run on a float32 batch of shape "
+                          f"{tuple(example.shape)}: {error}.") from error
+    if not isinstance(result, torch.Tensor) or result.ndim != 2 or result.shape[1] < 1:
+        raise BundleError(
+            f"the encoder returns {getattr(result, 'shape', type(result).__name__)}; expected "
+            "a tensor of shape (batch, r)."
+        )
+    return int(result.shape[1])
 
 
 def _export_levels(prepared: Mapping[int, PreparedLevel], *, exporter: str,

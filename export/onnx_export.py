@@ -70,7 +70,8 @@ def infer_state_dim(level: Any) -> int | None:
 
 
 def prepare_level(stride: int, level: Any, state_dim: int,
-                  example: torch.Tensor) -> PreparedLevel:
+                  example: torch.Tensor, *, where: str | None = None,
+                  output_dim: int | None = None) -> PreparedLevel:
     """Copy the module to float32 eval mode (or wrap a program) and check its output shape.
 
     Parameters
@@ -83,8 +84,13 @@ def prepare_level(stride: int, level: Any, state_dim: int,
         d.
     example : torch.Tensor, shape (EXAMPLE_BATCH, d), float32
         States in normalised units used for the shape check (and later as export example).
+    where : str, optional
+        How messages name the network (default "level stride N"; e.g. "the encoder").
+    output_dim : int, optional
+        The width of the output when it differs from the input's (an encoder maps d to the
+        latent r, a decoder r to d); default `state_dim`.
     """
-    where = f"level stride {stride}"
+    where = f"level stride {stride}" if where is None else where
     if isinstance(level, torch.export.ExportedProgram):
         shape = _program_input_shape(level)
         if shape is not None and len(shape) == 2 and isinstance(shape[0], int):
@@ -108,7 +114,7 @@ def prepare_level(stride: int, level: Any, state_dim: int,
             f"{where} is a {type(level).__name__}; expected a torch.nn.Module or a "
             "torch.export.ExportedProgram."
         )
-    _check_output(where, call, example, state_dim)
+    _check_output(where, call, example, state_dim if output_dim is None else output_dim)
     return PreparedLevel(stride=stride, kind=kind, source=source, call=call)
 
 
@@ -130,10 +136,12 @@ def resolve_exporter(prepared: PreparedLevel, exporter: str) -> str:
 
 
 def export_level(prepared: PreparedLevel, *, state_dim: int, exporter: str, example: torch.Tensor,
-                 opset: int | None = None) -> ExportedLevel:
-    """Export one prepared level to in-memory ONNX bytes honouring the level contract."""
+                 opset: int | None = None, where: str | None = None,
+                 output_dim: int | None = None) -> ExportedLevel:
+    """Export one prepared level to in-memory ONNX bytes honouring the level contract
+    (`where` and `output_dim` as for `prepare_level`, for an encoder or decoder)."""
     chosen = resolve_exporter(prepared, exporter)
-    where = f"level stride {prepared.stride}"
+    where = f"level stride {prepared.stride}" if where is None else where
     with quiet_torch():
         try:
             if chosen == "dynamo":
@@ -146,7 +154,7 @@ def export_level(prepared: PreparedLevel, *, state_dim: int, exporter: str, exam
             raise BundleError(
                 f"{where}: the {chosen} exporter failed: {_summary(error)}."
             ) from error
-    model = normalise_model(model, where=where, state_dim=state_dim)
+    model = normalise_model(model, where=where, state_dim=state_dim, output_dim=output_dim)
     opset_version = next(
         (entry.version for entry in model.opset_import if entry.domain in ("", "ai.onnx")), 0)
     return ExportedLevel(
@@ -155,8 +163,10 @@ def export_level(prepared: PreparedLevel, *, state_dim: int, exporter: str, exam
     )
 
 
-def normalise_model(model: onnx.ModelProto, *, where: str, state_dim: int) -> onnx.ModelProto:
-    """Inline local functions, name the input/output per contract, and check shapes."""
+def normalise_model(model: onnx.ModelProto, *, where: str, state_dim: int,
+                    output_dim: int | None = None) -> onnx.ModelProto:
+    """Inline local functions, name the input/output per contract, and check shapes (input
+    width `state_dim`, output width `output_dim`, by default the same)."""
     if len(model.functions):
         model = onnx.inliner.inline_local_functions(model)
         del model.functions[:]
@@ -175,8 +185,9 @@ def normalise_model(model: onnx.ModelProto, *, where: str, state_dim: int) -> on
         )
     _rename_value(graph, inputs[0].name, INPUT_NAME)
     _rename_value(graph, graph.output[0].name, OUTPUT_NAME)
-    for value in (inputs[0], graph.output[0]):
-        _check_value_type(value, where=where, state_dim=state_dim)
+    widths = (state_dim, state_dim if output_dim is None else output_dim)
+    for value, width in zip((inputs[0], graph.output[0]), widths, strict=True):
+        _check_value_type(value, where=where, state_dim=width)
     onnx.checker.check_model(model)
     return model
 
@@ -222,10 +233,13 @@ def _check_output(where: str, call: Callable, example: torch.Tensor, state_dim: 
             f"{where}: the module returned a {type(result).__name__}; expected one tensor "
             f"of shape (batch, {state_dim})."
         )
-    if tuple(result.shape) != tuple(example.shape):
+    expected = (example.shape[0], state_dim)
+    if tuple(result.shape) != expected:
+        kind = ("a (B, d) → (B, d) map" if state_dim == example.shape[1]
+                else f"a (B, {example.shape[1]}) → (B, {state_dim}) map")
         raise BundleError(
             f"{where}: the module maps a batch of shape {tuple(example.shape)} to shape "
-            f"{tuple(result.shape)}; expected {tuple(example.shape)} (a (B, d) → (B, d) map)."
+            f"{tuple(result.shape)}; expected {expected} ({kind})."
         )
     if result.dtype != torch.float32:
         raise BundleError(

@@ -57,6 +57,20 @@ class Tolerance:
 
 
 @dataclass(frozen=True)
+class ReducedNetworks:
+    """The encoder and decoder of a reduced bundle: torch to call and exported ONNX bytes.
+
+    Levels are then verified through the whole path z → encoder → level → decoder → z', in
+    normalised full-state units, so the tolerance and the report read as for a full bundle.
+    """
+
+    encoder: PreparedLevel
+    decoder: PreparedLevel
+    encoder_bytes: bytes
+    decoder_bytes: bytes
+
+
+@dataclass(frozen=True)
 class StateSample:
     """The physical float32 states used for verification, and where they came from."""
 
@@ -104,8 +118,12 @@ def normalised_example(spec: ExportSpec, sample: StateSample, batch: int) -> tor
 
 def verify_levels(stepper: Any, prepared: Mapping[int, PreparedLevel],
                   exported: Mapping[int, ExportedLevel], spec: ExportSpec, sample: StateSample,
-                  tolerance: Tolerance) -> dict[str, Any]:
+                  tolerance: Tolerance, reduced: ReducedNetworks | None = None
+                  ) -> dict[str, Any]:
     """Compare torch, the runtime `stepper` and onnxruntime on every level; raise on mismatch.
+
+    With `reduced`, each level is compared through encoder, level and decoder, and the
+    round trip decoder(encoder(z)) is compared as well (report entry "reduction").
 
     Returns
     -------
@@ -121,8 +139,16 @@ def verify_levels(stepper: Any, prepared: Mapping[int, PreparedLevel],
     levels = []
     for stride in spec.strides:
         outputs = _level_outputs(stepper, prepared[stride], exported[stride], spec, sample,
-                                 onnxruntime)
+                                 onnxruntime, reduced)
         levels.append(_compare(stride, outputs, exported[stride], spec, sample, tolerance))
+    report: dict[str, Any] = {}
+    if reduced is not None:
+        outputs = _round_trip_outputs(stepper, reduced, spec, sample, onnxruntime)
+        round_trip = _compare(0, outputs, None, spec, sample, tolerance,
+                              where="the encoder and decoder (round trip)")
+        report["reduction"] = {"max_abs_difference": round_trip["max_abs_difference"],
+                               "max_difference_over_tolerance":
+                                   round_trip["max_difference_over_tolerance"]}
     return {
         "samples": int(sample.states.shape[0]),
         "states": sample.source,
@@ -132,16 +158,20 @@ def verify_levels(stepper: Any, prepared: Mapping[int, PreparedLevel],
         "runtime_dtype": "float32",
         "onnxruntime": None if onnxruntime is None else onnxruntime.__version__,
         "levels": levels,
+        **report,
         "passed": True,
     }
 
 
 def _level_outputs(stepper: Any, prepared: PreparedLevel, exported: ExportedLevel,
-                   spec: ExportSpec, sample: StateSample, onnxruntime: Any
-                   ) -> dict[str, np.ndarray]:
+                   spec: ExportSpec, sample: StateSample, onnxruntime: Any,
+                   reduced: ReducedNetworks | None = None) -> dict[str, np.ndarray]:
     """Next normalised states (float64) of torch, the runtime and onnxruntime (if present)."""
     where = f"level stride {prepared.stride}"
     z_in = _normalise(sample.states, spec).astype(np.float32)
+    if reduced is not None:
+        return _reduced_level_outputs(stepper, prepared, exported, spec, sample, onnxruntime,
+                                      reduced, z_in)
     with torch.no_grad():
         network = prepared.call(torch.from_numpy(z_in)).numpy().astype(np.float64)
     if not np.isfinite(network).all():
@@ -151,28 +181,87 @@ def _level_outputs(stepper: Any, prepared: PreparedLevel, exported: ExportedLeve
             f"{sample.states[row].tolist()}; the level is not usable inside the envelope."
         )
     outputs = {"torch": _apply_update(z_in, network, spec.update)}
-    stepped = np.asarray(stepper.step(sample.states, prepared.stride), dtype=np.float64)
-    outputs["runtime"] = _normalise(stepped, spec)
-    single = np.asarray(stepper.step(sample.states[0], prepared.stride), dtype=np.float64)
-    outputs["runtime_single"] = _normalise(single[None, :], spec)
     if onnxruntime is not None:
-        try:
-            options = onnxruntime.SessionOptions()
-            options.log_severity_level = 3
-            session = onnxruntime.InferenceSession(exported.onnx_bytes, options,
-                                                   providers=["CPUExecutionProvider"])
-            result = session.run(None, {INPUT_NAME: z_in})[0]
-        # onnxruntime raises its own exception types (not exported by the package).
-        except Exception as error:
-            raise VerificationError(
-                f"{where}: onnxruntime cannot run the exported model: {error}."
-            ) from error
+        result = _onnxruntime_run(onnxruntime, exported.onnx_bytes, z_in, where)
         outputs["onnxruntime"] = _apply_update(z_in, np.asarray(result, np.float64), spec.update)
+    _runtime_outputs(stepper, prepared.stride, spec, sample, outputs)
     return outputs
 
 
-def _compare(stride: int, outputs: Mapping[str, np.ndarray], exported: ExportedLevel,
-             spec: ExportSpec, sample: StateSample, tolerance: Tolerance) -> dict[str, Any]:
+def _runtime_outputs(stepper: Any, stride: int, spec: ExportSpec, sample: StateSample,
+                     outputs: dict[str, np.ndarray]) -> None:
+    """The runtime's step on the whole sample and on its first state alone, normalised."""
+    stepped = np.asarray(stepper.step(sample.states, stride), dtype=np.float64)
+    outputs["runtime"] = _normalise(stepped, spec)
+    single = np.asarray(stepper.step(sample.states[0], stride), dtype=np.float64)
+    outputs["runtime_single"] = _normalise(single[None, :], spec)
+
+
+def _onnxruntime_run(onnxruntime: Any, model: bytes, inputs: np.ndarray, where: str
+                     ) -> np.ndarray:
+    try:
+        options = onnxruntime.SessionOptions()
+        options.log_severity_level = 3
+        session = onnxruntime.InferenceSession(model, options,
+                                               providers=["CPUExecutionProvider"])
+        return session.run(None, {INPUT_NAME: np.ascontiguousarray(inputs, np.float32)})[0]
+    # onnxruntime raises its own exception types (not exported by the package).
+    except Exception as error:
+        raise VerificationError(
+            f"{where}: onnxruntime cannot run the exported model: {error}."
+        ) from error
+
+
+def _reduced_level_outputs(stepper: Any, prepared: PreparedLevel, exported: ExportedLevel,
+                           spec: ExportSpec, sample: StateSample, onnxruntime: Any,
+                           reduced: ReducedNetworks, z_in: np.ndarray
+                           ) -> dict[str, np.ndarray]:
+    """z' = decoder(update(encoder(z))) of torch and onnxruntime, and the runtime's step."""
+    where = f"level stride {prepared.stride}"
+    with torch.no_grad():
+        latent = reduced.encoder.call(torch.from_numpy(z_in))
+        network = prepared.call(latent)
+        stepped = latent + network if spec.update == "increment" else network
+        result = reduced.decoder.call(stepped).numpy().astype(np.float64)
+    if not np.isfinite(result).all():
+        raise VerificationError(
+            f"{where}: the torch encoder, level and decoder return NaN or infinity; the level "
+            "is not usable inside the envelope."
+        )
+    outputs = {"torch": result}
+    if onnxruntime is not None:
+        latent = _onnxruntime_run(onnxruntime, reduced.encoder_bytes, z_in, "the encoder")
+        network = _onnxruntime_run(onnxruntime, exported.onnx_bytes, latent, where)
+        stepped = latent + network if spec.update == "increment" else network
+        outputs["onnxruntime"] = np.asarray(
+            _onnxruntime_run(onnxruntime, reduced.decoder_bytes, stepped, "the decoder"),
+            np.float64)
+    _runtime_outputs(stepper, prepared.stride, spec, sample, outputs)
+    return outputs
+
+
+def _round_trip_outputs(stepper: Any, reduced: ReducedNetworks, spec: ExportSpec,
+                        sample: StateSample, onnxruntime: Any) -> dict[str, np.ndarray]:
+    """decoder(encoder(z)) of torch, onnxruntime and the runtime (a forecast to t = 0)."""
+    z_in = _normalise(sample.states, spec).astype(np.float32)
+    with torch.no_grad():
+        result = reduced.decoder.call(reduced.encoder.call(torch.from_numpy(z_in)))
+    outputs = {"torch": result.numpy().astype(np.float64)}
+    if onnxruntime is not None:
+        latent = _onnxruntime_run(onnxruntime, reduced.encoder_bytes, z_in, "the encoder")
+        outputs["onnxruntime"] = np.asarray(
+            _onnxruntime_run(onnxruntime, reduced.decoder_bytes, latent, "the decoder"),
+            np.float64)
+    # At t = 0 the plan has no step: the answer is the encoded state, decoded.
+    outputs["runtime"] = _normalise(stepper.forecast(sample.states, [0.0])[0], spec)
+    single = stepper.forecast(sample.states[0], [0.0])[0]
+    outputs["runtime_single"] = _normalise(np.asarray(single)[None, :], spec)
+    return outputs
+
+
+def _compare(stride: int, outputs: Mapping[str, np.ndarray], exported: ExportedLevel | None,
+             spec: ExportSpec, sample: StateSample, tolerance: Tolerance,
+             where: str | None = None) -> dict[str, Any]:
     mean, scale = np.asarray(spec.mean), np.asarray(spec.scale)
     reference = outputs["torch"]
     bound = tolerance.bound(reference, sample.states.astype(np.float64),
@@ -187,6 +276,7 @@ def _compare(stride: int, outputs: Mapping[str, np.ndarray], exported: ExportedL
     differences: dict[str, float | None] = {
         "torch_vs_runtime": None, "torch_vs_onnxruntime": None, "runtime_vs_onnxruntime": None}
     worst_ratio = 0.0
+    label = f"level stride {stride}" if where is None else where
     for left, right, a, b in pairs:
         rows = a.shape[0]
         difference = np.abs(a - b)
@@ -194,7 +284,7 @@ def _compare(stride: int, outputs: Mapping[str, np.ndarray], exported: ExportedL
         worst = np.unravel_index(int(np.argmax(ratio)), ratio.shape)
         if not ratio[worst] <= 1.0:
             raise VerificationError(
-                f"level stride {stride}: {left} and {right.replace('_single', ' (one state)')} "
+                f"{label}: {left} and {right.replace('_single', ' (one state)')} "
                 f"differ by {difference[worst]:.3g} (normalised units) in component "
                 f"{spec.state_names[worst[1]]!r} at the state "
                 f"{sample.states[worst[0]].tolist()}; the float32 tolerance there is "
@@ -203,6 +293,9 @@ def _compare(stride: int, outputs: Mapping[str, np.ndarray], exported: ExportedL
         worst_ratio = max(worst_ratio, float(ratio[worst]))
         if right != "runtime_single":
             differences[f"{left}_vs_{right}"] = float(difference.max())
+    if exported is None:
+        return {"max_abs_difference": differences,
+                "max_difference_over_tolerance": worst_ratio}
     return {
         "stride": stride,
         "exporter": exported.exporter,

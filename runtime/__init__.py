@@ -19,10 +19,14 @@ from .findings import Finding
 from .limits import DEFAULT_LIMITS, Limits
 from .loader import load
 from .manifest import (
+    DECODER_FILE,
+    ENCODER_FILE,
     SAMPLES_FILE,
     EnvelopeSamples,
     LevelEntry,
     Manifest,
+    ModelFile,
+    Reduction,
     ValidationCurve,
     parse_manifest,
     parse_manifest_text,
@@ -33,7 +37,9 @@ from .stepper import ForecastInfo, Stepper
 from .threads import ThreadPolicy
 
 __all__ = [
+    "DECODER_FILE",
     "DEFAULT_LIMITS",
+    "ENCODER_FILE",
     "SAMPLES_FILE",
     "BundleError",
     "EnvelopeSamples",
@@ -44,10 +50,12 @@ __all__ = [
     "LevelEntry",
     "Limits",
     "Manifest",
+    "ModelFile",
     "ModelFormatError",
     "NonFiniteError",
     "OptionError",
     "Plan",
+    "Reduction",
     "StateError",
     "Stepper",
     "StridecastError",

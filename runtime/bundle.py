@@ -164,7 +164,36 @@ def read_envelope_samples(root: Path, manifest: Manifest, *, verify: bool = True
                 f"the checksum of {entry.file!r} (envelope samples) is {digest}; the manifest "
                 f"records {entry.sha256}: the file was changed or corrupted."
             )
-    return decode_samples(data, count=entry.count, dim=manifest.state_dim, where=where)
+    return decode_samples(data, count=entry.count, dim=manifest.level_dim, where=where)
+
+
+def read_reduction(root: Path, manifest: Manifest, *, verify: bool = True,
+                   limits: Limits = DEFAULT_LIMITS) -> tuple[bytes, bytes] | None:
+    """Read the encoder and decoder files of a reduced bundle with the level files' checks.
+
+    Returns
+    -------
+    (encoder bytes, decoder bytes), or None for a bundle without `reduction`
+    """
+    reduction = manifest.reduction
+    if reduction is None:
+        return None
+    parts = (("encoder", reduction.encoder), ("decoder", reduction.decoder))
+    for part, entry in parts:
+        check_relative_path(entry.file, f"reduction.{part}.file")
+    contents = []
+    for part, entry in parts:
+        data = read_bundle_file(root, entry.file, f"reduction.{part}.file",
+                                max_bytes=limits.max_model_bytes)
+        if verify:
+            digest = sha256_hex(data)
+            if digest != entry.sha256:
+                raise BundleError(
+                    f"the checksum of {entry.file!r} (the {part}) is {digest}; the manifest "
+                    f"records {entry.sha256}: the file was changed or corrupted."
+                )
+        contents.append(data)
+    return contents[0], contents[1]
 
 
 def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: Mapping[int, bytes],
@@ -184,8 +213,10 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
     overwrite : bool
         Replace an existing bundle at `out`; otherwise an existing path is an error.
     extra_files : mapping of relative path to bytes, optional
-        Further files the manifest refers to: today the envelope samples
-        (``{manifest.envelope_samples.file: encode_samples(z)}``). Each must be referred to
+        Further files the manifest refers to: the envelope samples
+        (``{manifest.envelope_samples.file: encode_samples(z)}``) and, for a reduced bundle,
+        the encoder and decoder ONNX files (``{manifest.reduction.encoder.file: bytes, ...}``;
+        their checksums are filled in). Each must be referred to
         by the manifest (nothing unchecked goes into a bundle); its content is checked the way
         `load` will check it.
     """
@@ -213,6 +244,12 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         samples = final_manifest.envelope_samples
         final_manifest = replace(final_manifest, envelope_samples=replace(
             samples, sha256=sha256_hex(extras[samples.file])))
+    reduction = final_manifest.reduction
+    if reduction is not None:
+        final_manifest = replace(final_manifest, reduction=replace(
+            reduction,
+            encoder=replace(reduction.encoder, sha256=sha256_hex(extras[reduction.encoder.file])),
+            decoder=replace(reduction.decoder, sha256=sha256_hex(extras[reduction.decoder.file]))))
     text = json.dumps(final_manifest.to_dict(), indent=2, allow_nan=False)
     parse_manifest_text(text)  # never write a manifest this reader would refuse
 
@@ -246,6 +283,9 @@ def _staged_extras(manifest: Manifest, extra_files: Mapping[str, bytes]) -> dict
     referenced = {}
     if manifest.envelope_samples is not None:
         referenced[manifest.envelope_samples.file] = "envelope.samples.file"
+    if manifest.reduction is not None:
+        referenced[manifest.reduction.encoder.file] = "reduction.encoder.file"
+        referenced[manifest.reduction.decoder.file] = "reduction.decoder.file"
     taken = {MANIFEST_NAME, REPORT_NAME, *(entry.file for entry in manifest.levels)}
     extras = {}
     for relative, data in extra_files.items():
@@ -271,7 +311,7 @@ def _staged_extras(manifest: Manifest, extra_files: Mapping[str, bytes]) -> dict
         if normal not in extras:
             raise BundleError(
                 f"the manifest's `{where}` is {relative!r} but `extra_files` does not hold it; "
-                f"pass extra_files={{{relative!r}: encode_samples(samples)}}."
+                f"pass extra_files={{{relative!r}: <its bytes>}}."
             )
         if normal != relative:
             raise BundleError(
@@ -279,7 +319,7 @@ def _staged_extras(manifest: Manifest, extra_files: Mapping[str, bytes]) -> dict
             )
     samples = manifest.envelope_samples
     if samples is not None:
-        decode_samples(extras[samples.file], count=samples.count, dim=manifest.state_dim,
+        decode_samples(extras[samples.file], count=samples.count, dim=manifest.level_dim,
                        where=f"extra_files[{samples.file!r}]")
     return extras
 

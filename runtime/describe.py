@@ -13,6 +13,7 @@ from .bundle import (
     read_envelope_samples,
     read_levels,
     read_manifest,
+    read_reduction,
 )
 from .errors import BundleError
 from .limits import DEFAULT_LIMITS, Limits
@@ -26,6 +27,7 @@ def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LI
     manifest = read_manifest(root, limits=limits)
     contents = read_levels(root, manifest, verify=True, limits=limits)
     read_envelope_samples(root, manifest, verify=True, limits=limits)  # checksum and shape
+    read_reduction(root, manifest, verify=True, limits=limits)  # encoder/decoder checksums
     levels = []
     for entry in manifest.levels:
         model = read_model(contents[entry.stride], limits=limits, source=entry.file)

@@ -6,13 +6,20 @@ import os
 
 import numpy as np
 
-from .bundle import open_bundle_root, read_envelope_samples, read_levels, read_manifest
+from .bundle import (
+    open_bundle_root,
+    read_envelope_samples,
+    read_levels,
+    read_manifest,
+    read_reduction,
+)
 from .compile import make_kernel
 from .errors import BundleError, ModelFormatError, StridecastError
 from .findings import POLICIES
 from .graph import build_program
 from .limits import DEFAULT_LIMITS, Limits
 from .onnx_reader import read_model
+from .reduction import LatentMaps, make_map
 from .stepper import Stepper
 from .threads import ThreadPolicy
 
@@ -68,6 +75,15 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
             "(`Limits.max_stride`)."
         )
     contents = read_levels(root, manifest, verify=verify, limits=limits)
+    reduced = read_reduction(root, manifest, verify=verify, limits=limits)
+    maps = None
+    # Levels of a reduced bundle step the latent state, with identity normalisation: the
+    # manifest's normalisation belongs to the full state and is folded into the maps.
+    level_mean, level_scale = manifest.mean, manifest.scale
+    if reduced is not None:
+        maps = _latent_maps(manifest, reduced, compute, fast_path, policy, limits)
+        level_mean = (0.0,) * maps.latent_dim
+        level_scale = (1.0,) * maps.latent_dim
     kernels = {}
     for entry in manifest.levels:
         where = f"level stride {entry.stride} ({entry.file})"
@@ -76,10 +92,10 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
             model = read_model(contents.pop(entry.stride), limits=limits, source=entry.file)
             program = build_program(model, input_name=entry.input, output_name=entry.output,
                                     dtype=compute, max_nodes=limits.max_graph_nodes)
-            kernel = make_kernel(program, mean=manifest.mean, scale=manifest.scale,
+            kernel = make_kernel(program, mean=level_mean, scale=level_scale,
                                  update=manifest.update, fast_path=fast_path,
                                  policy=policy)
-            _probe(kernel, manifest.mean, compute, where)
+            _probe(kernel, level_mean, compute, where)
         except ModelFormatError as error:
             raise type(error)(f"{where}: {error}") from error
         except StridecastError:
@@ -90,12 +106,74 @@ def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool =
         kernels[entry.stride] = kernel
     samples = read_envelope_samples(root, manifest, verify=verify, limits=limits)
     stepper = Stepper(manifest, kernels, dtype=compute, limits=limits, source=str(root),
-                      envelope_samples=samples, on_extrapolation=on_extrapolation)
+                      envelope_samples=samples, on_extrapolation=on_extrapolation,
+                      reduction=maps)
     # What `Stepper.__reduce__` needs to load the same bundle the same way elsewhere.
     stepper._load_arguments = (str(root), {"dtype": compute.name, "verify": verify,
                                            "limits": limits, "fast_path": fast_path,
                                            "on_extrapolation": on_extrapolation})
     return stepper
+
+
+def _latent_maps(manifest, contents: tuple[bytes, bytes], compute: np.dtype, fast_path: bool,
+                 policy: ThreadPolicy, limits: Limits) -> LatentMaps:
+    """Build and probe the encoder and decoder of a reduced bundle."""
+    reduction = manifest.reduction
+    dim, latent_dim = manifest.state_dim, reduction.latent_dim
+    maps = {}
+    for side, entry, data in (("encoder", reduction.encoder, contents[0]),
+                              ("decoder", reduction.decoder, contents[1])):
+        where = f"the {side} ({entry.file})"
+        try:
+            model = read_model(data, limits=limits, source=entry.file)
+            input_name, output_name = _only_names(model)
+            program = build_program(model, input_name=input_name, output_name=output_name,
+                                    dtype=compute, max_nodes=limits.max_graph_nodes)
+            function = make_map(program, side=side, mean=manifest.mean, scale=manifest.scale,
+                                latent_dim=latent_dim, fast_path=fast_path, policy=policy)
+            width_in, width_out = (dim, latent_dim) if side == "encoder" else (latent_dim, dim)
+            probe = (np.tile(np.asarray(manifest.mean, dtype=compute), (2, 1))
+                     if side == "encoder" else np.zeros((2, latent_dim), dtype=compute))
+            _probe_map(function, probe, width_out)
+        except ModelFormatError as error:
+            raise type(error)(f"{where}: {error}") from error
+        except StridecastError:
+            raise
+        except (ValueError, TypeError, IndexError, KeyError) as error:
+            raise ModelFormatError(
+                f"{where}: the network cannot be prepared for `reduction.latent_dim` = "
+                f"{latent_dim} (it must map (batch, {width_in}) to (batch, {width_out})): "
+                f"{error}."
+            ) from error
+        maps[side] = function
+    return LatentMaps(latent_dim=latent_dim, encoder=maps["encoder"], decoder=maps["decoder"])
+
+
+def _only_names(model) -> tuple[str, str]:
+    """The one runtime input and the one output of an encoder or decoder graph (the manifest
+    names neither: each has exactly one of both)."""
+    graph = model.graph
+    constants = {tensor.name for tensor in graph.initializers}
+    inputs = [info.name for info in graph.inputs if info.name not in constants]
+    outputs = [info.name for info in graph.outputs]
+    if len(inputs) != 1 or len(outputs) != 1:
+        raise ModelFormatError(
+            f"the graph has runtime inputs {inputs} and outputs {outputs}; an encoder or "
+            "decoder must have exactly one of each."
+        )
+    return inputs[0], outputs[0]
+
+
+def _probe_map(function, states: np.ndarray, width_out: int) -> None:
+    """Run an encoder or decoder once on a batch of two to check its output shape."""
+    with np.errstate(all="ignore"):
+        result = np.asarray(function(states))
+    if result.shape != (states.shape[0], width_out):
+        raise ModelFormatError(
+            f"the network maps a batch of shape {states.shape} to shape {result.shape}; "
+            f"expected ({states.shape[0]}, {width_out}) (`reduction.latent_dim` and "
+            "`state.dim` give the widths)."
+        )
 
 
 def _probe(kernel, mean, dtype: np.dtype, where: str) -> None:

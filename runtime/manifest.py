@@ -22,11 +22,14 @@ UPDATE_FORMS = ("increment", "replace")
 _SHA256 = re.compile(r"^[0-9a-f]{64}$")
 _TOP_LEVEL = {
     "format", "format_version", "name", "description", "state", "time", "normalization",
-    "update", "levels", "envelope", "validated_horizon", "validation", "producer",
+    "update", "levels", "envelope", "validated_horizon", "validation", "producer", "reduction",
 }
 VALIDATION_METRICS = ("normalised_rms",)
 SAMPLES_FILE = "envelope/samples.npy"
 """The conventional path of the envelope samples inside a bundle."""
+ENCODER_FILE = "reduction/encoder.onnx"
+DECODER_FILE = "reduction/decoder.onnx"
+"""The conventional paths of a reduced bundle's encoder and decoder."""
 _REQUIRED = {"format", "format_version", "state", "time", "normalization", "update", "levels"}
 
 
@@ -104,6 +107,35 @@ class EnvelopeSamples:
 
 
 @dataclass(frozen=True)
+class ModelFile:
+    """An ONNX file of the bundle other than a level (the encoder or the decoder)."""
+
+    file: str
+    sha256: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"file": self.file, "sha256": self.sha256}
+
+
+@dataclass(frozen=True)
+class Reduction:
+    """The manifest block `reduction`: the levels run in a latent space of `latent_dim`.
+
+    The encoder maps the normalised full state z = (x − mean) / scale, shape (B, d), to the
+    latent (B, r); the levels map latent to latent (without normalisation); the decoder maps
+    the latent (B, r) back to z, shape (B, d), and x = z · scale + mean.
+    """
+
+    latent_dim: int
+    encoder: ModelFile
+    decoder: ModelFile
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"latent_dim": self.latent_dim, "encoder": self.encoder.to_dict(),
+                "decoder": self.decoder.to_dict()}
+
+
+@dataclass(frozen=True)
 class Manifest:
     """The validated content of `manifest.json`."""
 
@@ -123,10 +155,17 @@ class Manifest:
     producer: Mapping[str, Any] = field(default_factory=dict)
     validation: ValidationCurve | None = None
     envelope_samples: EnvelopeSamples | None = None
+    reduction: Reduction | None = None
 
     @property
     def state_dim(self) -> int:
         return len(self.state_names)
+
+    @property
+    def level_dim(self) -> int:
+        """The length of the states the levels map: the latent dimension of a reduced
+        bundle, else the state dimension (also the length of the envelope)."""
+        return self.state_dim if self.reduction is None else self.reduction.latent_dim
 
     @property
     def strides(self) -> tuple[int, ...]:
@@ -169,6 +208,8 @@ class Manifest:
         }
         if self.validation is not None:
             document["validation"] = self.validation.to_dict()
+        if self.reduction is not None:
+            document["reduction"] = self.reduction.to_dict()
         return document
 
 
@@ -248,21 +289,27 @@ def parse_manifest(document: Any) -> Manifest:
         raise BundleError(f"`update` is {update!r}; expected one of {list(UPDATE_FORMS)}.")
 
     levels = _levels(document["levels"])
+    reduction = document.get("reduction")
+    if reduction is not None:
+        reduction = _reduction(reduction, levels)
+    # The envelope describes the states the levels visit: latent in a reduced bundle.
+    space = dim if reduction is None else reduction.latent_dim
 
     envelope_min = envelope_max = samples = None
     envelope = document.get("envelope")
     if envelope is not None:
         envelope = _object(envelope, "envelope", required={"min", "max"}, optional={"samples"})
-        envelope_min = _floats(envelope["min"], "envelope.min", dim)
-        envelope_max = _floats(envelope["max"], "envelope.max", dim)
+        envelope_min = _floats(envelope["min"], "envelope.min", space)
+        envelope_max = _floats(envelope["max"], "envelope.max", space)
         if any(lo > hi for lo, hi in zip(envelope_min, envelope_max, strict=True)):
             raise BundleError("`envelope.min` must not exceed `envelope.max` in any component.")
         if envelope.get("samples") is not None:
             samples = _envelope_samples(envelope["samples"])
-    if samples is not None and samples.file in {level.file for level in levels}:
+    if samples is not None and samples.file in _model_files(levels, reduction):
+        owner = "a level" if samples.file in {lv.file for lv in levels} else "the reduction"
         raise BundleError(
-            f"`envelope.samples.file` is {samples.file!r}, the file of a level; expected a file "
-            f"of its own such as {SAMPLES_FILE!r}."
+            f"`envelope.samples.file` is {samples.file!r}, the file of {owner}; expected a "
+            f"file of its own such as {SAMPLES_FILE!r}."
         )
     validation = document.get("validation")
     if validation is not None:
@@ -295,7 +342,42 @@ def parse_manifest(document: Any) -> Manifest:
         producer=producer,
         validation=validation,
         envelope_samples=samples,
+        reduction=reduction,
     )
+
+
+def _model_files(levels: tuple[LevelEntry, ...], reduction: Reduction | None) -> set[str]:
+    files = {level.file for level in levels}
+    if reduction is not None:
+        files |= {reduction.encoder.file, reduction.decoder.file}
+    return files
+
+
+def _reduction(value: Any, levels: tuple[LevelEntry, ...]) -> Reduction:
+    block = _object(value, "reduction", required={"latent_dim", "encoder", "decoder"})
+    latent_dim = _positive_int(block["latent_dim"], "reduction.latent_dim")
+    files = []
+    for part in ("encoder", "decoder"):
+        where = f"reduction.{part}"
+        entry = _object(block[part], where, required={"file", "sha256"})
+        file = _string(entry["file"], f"{where}.file")
+        digest = _string(entry["sha256"], f"{where}.sha256")
+        if not _SHA256.match(digest):
+            raise BundleError(
+                f"`{where}.sha256` must be 64 lowercase hexadecimal digits; got {digest!r}."
+            )
+        if file in {level.file for level in levels}:
+            raise BundleError(
+                f"`{where}.file` is {file!r}, the file of a level; expected a file of its own "
+                f"such as {(ENCODER_FILE if part == 'encoder' else DECODER_FILE)!r}."
+            )
+        files.append(ModelFile(file=file, sha256=digest))
+    if files[0].file == files[1].file:
+        raise BundleError(
+            f"`reduction.encoder.file` and `reduction.decoder.file` are both {files[0].file!r}; "
+            "expected two files."
+        )
+    return Reduction(latent_dim=latent_dim, encoder=files[0], decoder=files[1])
 
 
 def _validation(value: Any, dim: int) -> ValidationCurve:

@@ -35,6 +35,7 @@ from .limits import DEFAULT_LIMITS, Limits
 from .manifest import Manifest
 from .plan import Plan
 from .planner import StridePlanner
+from .reduction import LatentMaps
 from .validation import (
     check_off_grid,
     check_state,
@@ -86,7 +87,7 @@ class Stepper:
     def __init__(self, manifest: Manifest, kernels: Mapping[int, Kernel], *,
                  dtype: np.dtype | str = "float32", limits: Limits = DEFAULT_LIMITS,
                  source: str = "", envelope_samples: np.ndarray | None = None,
-                 on_extrapolation: str = "warn"):
+                 on_extrapolation: str = "warn", reduction: LatentMaps | None = None):
         if on_extrapolation not in POLICIES:
             raise BundleError(
                 f"`on_extrapolation` is {on_extrapolation!r}; expected one of {list(POLICIES)}."
@@ -98,6 +99,13 @@ class Stepper:
         self._limits = limits
         self._source = source
         self._samples = envelope_samples
+        # A reduced bundle: `_states` encodes every full state it checks and `_full` decodes
+        # the answers; everything between (plans, waves, interpolation, the envelope) runs on
+        # latent states.
+        self._reduction = reduction
+        space = manifest.level_dim
+        level_mean, level_scale = ((manifest.mean, manifest.scale) if reduction is None
+                                   else ((0.0,) * space, (1.0,) * space))
         self._planner = StridePlanner(self._kernels, max_steps=limits.max_steps_per_query)
         self._hybrid_planners: dict[int, StridePlanner] = {}
         self._lock = threading.Lock()
@@ -108,7 +116,7 @@ class Stepper:
             np.asarray(lower, dtype=np.float64), np.asarray(manifest.envelope_max, np.float64))
         entry = manifest.envelope_samples
         self._data_envelope = Envelope(
-            lower, manifest.envelope_max, mean=manifest.mean, scale=manifest.scale,
+            lower, manifest.envelope_max, mean=level_mean, scale=level_scale,
             samples=envelope_samples if entry is not None else None,
             radius=entry.radius if entry is not None else 1.0,
             max_work=limits.max_envelope_work)
@@ -130,6 +138,16 @@ class Stepper:
     @property
     def state_dim(self) -> int:
         return self._manifest.state_dim
+
+    @property
+    def latent_dim(self) -> int | None:
+        """r, the length of the latent state a reduced bundle's levels step; None otherwise."""
+        return None if self._reduction is None else self._reduction.latent_dim
+
+    @property
+    def reduction_paths(self) -> dict[str, str]:
+        """Which execution path the encoder and decoder use (empty without reduction)."""
+        return {} if self._reduction is None else self._reduction.paths
 
     @property
     def state_names(self) -> tuple[str, ...]:
@@ -165,8 +183,7 @@ class Stepper:
         arguments = getattr(self, "_load_arguments", None)
         if arguments is None:
             raise TypeError("only a Stepper made by `stridecast.runtime.load` can be pickled.")
-        checksums = tuple((entry.stride, entry.sha256) for entry in self._manifest.levels)
-        return _load_again, (*arguments, checksums)
+        return _load_again, (*arguments, _checksums(self._manifest))
 
     def __repr__(self) -> str:
         return (f"Stepper(name={self._manifest.name!r}, state_dim={self.state_dim}, "
@@ -208,7 +225,7 @@ class Stepper:
         states, single = self._states(state)
         if stride not in self._kernels:
             raise OptionError(f"`stride` is {stride!r}; this bundle has strides {self.strides}.")
-        result = self._apply(stride, states, depth=0)
+        result = self._full(self._apply(stride, states, depth=0))
         return result[0] if single else result
 
     def advance(self, state: np.ndarray, t: float, *, off_grid: str = "interpolate",
@@ -264,6 +281,7 @@ class Stepper:
             if found:
                 plan = replace(plan, findings=found + plan.findings)
         warn_or_raise(plan.findings, self._policy)
+        result = self._full(result)
         return (result[0] if single else result), plan
 
     def forecast(self, state: np.ndarray, times: Sequence[float], *,
@@ -292,7 +310,7 @@ class Stepper:
         else:
             output, info = self._forecast_integrated(states, distinct, off_grid, vector_field,
                                                      hybrid_below)
-        output = output[inverse.reshape(-1)]
+        output = self._full(output)[inverse.reshape(-1)]  # each distinct time decoded once
         findings = info.findings + self._horizon_findings(distinct)
         info = replace(info, findings=findings,
                        expected_error=expected_errors(self._manifest.validation, requested))
@@ -391,8 +409,26 @@ class Stepper:
         return results, info
 
     def _states(self, state) -> tuple[np.ndarray, bool]:
-        return check_state(state, names=self.state_names, dtype=self._dtype,
-                           max_batch=self._limits.max_batch)
+        """Check full states and return them as (B, ·) in the space the levels step: the
+        states themselves, or their latent coordinates for a reduced bundle."""
+        states, single = check_state(state, names=self.state_names, dtype=self._dtype,
+                                     max_batch=self._limits.max_batch)
+        if self._reduction is not None:
+            states = self._reduction.encode(states)
+        return states, single
+
+    def _full(self, states: np.ndarray) -> np.ndarray:
+        """The inverse side of `_states`: decode latent answers (..., r) to full (..., d)."""
+        if self._reduction is None:
+            return states
+        return self._reduction.decode(states, self.state_dim)
+
+    def _space_labels(self) -> tuple[tuple[str, ...], tuple[str, ...]]:
+        """Component names and units of the states the levels step (for findings)."""
+        if self._reduction is None:
+            return self._manifest.state_names, self._manifest.state_units
+        count = self._reduction.latent_dim
+        return tuple(f"latent[{i}]" for i in range(count)), ("",) * count
 
     def outside_envelope(self, state: np.ndarray) -> np.ndarray:
         """Per state, whether any component lies outside the training envelope."""
@@ -479,7 +515,7 @@ class Stepper:
             manifest = replace(manifest, validation=None, validated_horizon=None)
         subset = Stepper(manifest, {s: self._kernels[s] for s in chosen}, dtype=self._dtype,
                          limits=self._limits, source=self._source,
-                         on_extrapolation=self._policy)
+                         on_extrapolation=self._policy, reduction=self._reduction)
         subset._data_envelope = self._data_envelope  # immutable; share its precomputed norms
         return subset
 
@@ -497,9 +533,10 @@ class Stepper:
             return ()  # the common case without samples costs three array operations
         manifest = self._manifest
         entry = manifest.envelope_samples
+        names, units = self._space_labels()
         return envelope_findings(
-            envelope.assess(visits, times), names=manifest.state_names,
-            units=manifest.state_units, lower=envelope.lower, upper=envelope.upper,
+            envelope.assess(visits, times), names=names,
+            units=units, lower=envelope.lower, upper=envelope.upper,
             radius=None if entry is None else entry.radius, visit_times=path,
             unit=manifest.time_unit)
 
@@ -528,6 +565,12 @@ class Stepper:
         check_off_grid(off_grid)
         if vector_field is not None and not callable(vector_field):
             raise OptionError("`vector_field` must be a callable f(states) -> derivatives.")
+        if self._reduction is not None and (vector_field is not None
+                                            or hybrid_below is not None):
+            raise OptionError(
+                "`vector_field` and `hybrid_below` are not supported by a reduced bundle (its "
+                "levels step latent states); use off_grid='interpolate' or 'nearest'."
+            )
         if t / self.base_step > 2.0**52:
             raise TimeError(f"`t` is {t!r}, more than 2**52 base steps; refused.")
         positions, nearests, on_grids = grid_positions(np.array([t]), self.base_step)
@@ -755,8 +798,17 @@ def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...]
     from .loader import load
 
     stepper = load(path, **options)
-    found = tuple((entry.stride, entry.sha256) for entry in stepper.manifest.levels)
-    if found != checksums:
+    if _checksums(stepper.manifest) != checksums:
         raise BundleError(f"the bundle at {path!r} changed since the stepper was pickled "
                           "(its levels or checksums differ); refusing to use it.")
     return stepper
+
+
+def _checksums(manifest: Manifest) -> tuple[tuple[int | str, str], ...]:
+    """What identifies a bundle's networks: each level's stride and checksum, then the
+    encoder's and decoder's checksums for a reduced bundle."""
+    found = tuple((entry.stride, entry.sha256) for entry in manifest.levels)
+    if manifest.reduction is not None:
+        found += (("encoder", manifest.reduction.encoder.sha256),
+                  ("decoder", manifest.reduction.decoder.sha256))
+    return found

@@ -24,10 +24,14 @@ from onnx.reference import ReferenceEvaluator
 from scipy.linalg import expm
 
 from stridecast.runtime import (
+    DECODER_FILE,
+    ENCODER_FILE,
     SAMPLES_FILE,
     EnvelopeSamples,
     LevelEntry,
     Manifest,
+    ModelFile,
+    Reduction,
     ValidationCurve,
     encode_samples,
     write_bundle,
@@ -115,6 +119,80 @@ def linear_bundle(out: Path, system: np.ndarray, *, base_step: float, strides: S
         validated_horizon=validated_horizon,
     )
     extra = None if samples is None else {SAMPLES_FILE: encode_samples(samples)}
+    return write_bundle(out, manifest, files, overwrite=overwrite, extra_files=extra)
+
+
+def linear_map_model(matrix: np.ndarray, *, input_name: str, output_name: str,
+                     dtype=np.float64, use_gemm: bool = False) -> onnx.ModelProto:
+    """A graph computing output = input @ matrix.T, matrix (out, in): one MatMul or one Gemm
+    (an encoder or decoder made of a linear basis)."""
+    elem = TensorProto.DOUBLE if np.dtype(dtype) == np.float64 else TensorProto.FLOAT
+    width_out, width_in = matrix.shape
+    if use_gemm:  # the weight as stored by torch.nn.Linear, (out, in), with transB
+        weight = numpy_helper.from_array(np.ascontiguousarray(matrix, dtype=dtype), "weight")
+        node = helper.make_node("Gemm", [input_name, "weight"], [output_name], transB=1)
+    else:
+        weight = numpy_helper.from_array(np.ascontiguousarray(matrix.T, dtype=dtype), "weight")
+        node = helper.make_node("MatMul", [input_name, "weight"], [output_name])
+    graph = helper.make_graph(
+        [node], "map",
+        [helper.make_tensor_value_info(input_name, elem, ["batch", width_in])],
+        [helper.make_tensor_value_info(output_name, elem, ["batch", width_out])],
+        initializer=[weight],
+    )
+    model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)])
+    model.ir_version = 8
+    return model
+
+
+def reduced_bundle(out: Path, latent_system: np.ndarray, basis: np.ndarray, *,
+                   base_step: float, strides: Sequence[int], mean: Sequence[float],
+                   scale: Sequence[float], update: str = "replace", dtype=np.float64,
+                   use_gemm: bool = False, encoder_matrix: np.ndarray | None = None,
+                   envelope: tuple[Sequence[float], Sequence[float]] | None = None,
+                   samples: np.ndarray | None = None, radius: float = 0.5,
+                   overwrite: bool = False) -> Path:
+    """A reduced bundle with exact latent flow maps: encoder z ↦ Vᵀz, level k the exact flow
+    map expm(A_r k Δt) of y' = A_r y (scipy.linalg.expm; as an increment, that minus I),
+    decoder y ↦ V y, with the manifest normalisation z = (x − mean)/scale on the full state.
+
+    `basis` V is (d, r); `encoder_matrix` (r, d) replaces Vᵀ (e.g. to build a mismatched
+    bundle). `envelope` and `samples` are latent (length r; samples (count, r)).
+    """
+    dim, latent_dim = basis.shape
+    files = {}
+    for stride in strides:
+        flow = expm(latent_system * stride * base_step)
+        if update == "increment":
+            flow = flow - np.eye(latent_dim)
+        files[stride] = linear_level_model(flow, dtype=dtype,
+                                           use_gemm=use_gemm).SerializeToString()
+    encoder = basis.T if encoder_matrix is None else encoder_matrix
+    extra = {
+        ENCODER_FILE: linear_map_model(encoder, input_name="z", output_name="latent",
+                                       dtype=dtype, use_gemm=use_gemm).SerializeToString(),
+        DECODER_FILE: linear_map_model(basis, input_name="latent", output_name="z",
+                                       dtype=dtype, use_gemm=use_gemm).SerializeToString(),
+    }
+    if samples is not None:
+        extra[SAMPLES_FILE] = encode_samples(samples)
+    manifest = Manifest(
+        name="reduced",
+        state_names=tuple(f"u{i}" for i in range(dim)),
+        state_units=("K",) * dim,
+        base_step=base_step,
+        mean=tuple(float(v) for v in mean),
+        scale=tuple(float(v) for v in scale),
+        update=update,
+        levels=tuple(LevelEntry(stride=s, file="", sha256=PLACEHOLDER_SHA) for s in strides),
+        envelope_min=None if envelope is None else tuple(float(v) for v in envelope[0]),
+        envelope_max=None if envelope is None else tuple(float(v) for v in envelope[1]),
+        envelope_samples=None if samples is None else EnvelopeSamples(
+            file=SAMPLES_FILE, sha256=PLACEHOLDER_SHA, count=len(samples), radius=radius),
+        reduction=Reduction(latent_dim=latent_dim,
+                            encoder=ModelFile(ENCODER_FILE, PLACEHOLDER_SHA),
+                            decoder=ModelFile(DECODER_FILE, PLACEHOLDER_SHA)),
+    )
     return write_bundle(out, manifest, files, overwrite=overwrite, extra_files=extra)
 
 

@@ -361,3 +361,66 @@ def test_refuses_bad_envelope_samples(tmp_path, overrides, message):
         export_bundle({4: mlp("tanh")}, tmp_path / "b", base_step=0.5, mean=MEAN, scale=SCALE,
                       exporter="legacy", **overrides)
     assert not (tmp_path / "b").exists()
+
+
+# --- reduced bundles: encoder and decoder -----------------------------------------------------
+
+FIELD = 24
+FIELD_MEAN = np.linspace(280.0, 320.0, FIELD)
+FIELD_SCALE = np.full(FIELD, 4.0)
+
+
+def reduced_modules(latent: int = 3) -> tuple[nn.Module, nn.Module, dict[int, nn.Module]]:
+    torch.manual_seed(4)
+    encoder, decoder = nn.Linear(FIELD, latent), nn.Linear(latent, FIELD)
+    levels = {1: nn.Sequential(nn.Linear(latent, 16), nn.Tanh(), nn.Linear(16, latent)),
+              4: nn.Linear(latent, latent)}
+    return encoder, decoder, levels
+
+
+@pytest.mark.parametrize("exporter", ["dynamo", "legacy"])
+def test_reduced_round_trip_with_linear_encoder_and_decoder(tmp_path, exporter):
+    encoder, decoder, levels = reduced_modules()
+    bundle = export_bundle(levels, tmp_path / "field.bundle", base_step=0.1, mean=FIELD_MEAN,
+                           scale=FIELD_SCALE, encoder=encoder, decoder=decoder,
+                           exporter=exporter, verify_samples=128)
+    document = json.loads((bundle / "manifest.json").read_text())
+    assert document["reduction"]["latent_dim"] == 3
+    assert document["state"]["dim"] == FIELD and document["envelope"] is None
+    report = json.loads((bundle / "report.json").read_text())
+    assert 0 <= report["verification"]["reduction"]["max_difference_over_tolerance"] <= 1
+    stepper = load(bundle)
+    # A torch Linear exports as one Gemm (or MatMul + Add): the compiled path.
+    assert stepper.reduction_paths == {"encoder": "affine-chain", "decoder": "affine-chain"}
+    states = np.random.default_rng(2).uniform(FIELD_MEAN - 8, FIELD_MEAN + 8, (50, FIELD))
+    # Reference: torch itself, z → encoder → levels (increment) → decoder, in float64.
+    z = torch.from_numpy((states - FIELD_MEAN) / FIELD_SCALE)
+    with torch.no_grad():
+        latent = encoder.double()(z)
+        for stride in (4, 1):  # t = 0.5 is strides 4 + 1 (either order: same count)
+            latent = latent + levels[stride].double()(latent)
+        expected = decoder.double()(latent).numpy() * FIELD_SCALE + FIELD_MEAN
+    result = stepper.advance(states.astype(np.float32), 0.5)
+    # float32 evaluation of a few layers against float64: a common-practice bound.
+    np.testing.assert_allclose(result, expected, rtol=0, atol=1e-4 * np.abs(expected).max())
+    # The exported encoder, run by onnxruntime, gives the runtime's latent state.
+    session = onnxruntime.InferenceSession((bundle / "reduction/encoder.onnx").read_bytes(),
+                                           providers=["CPUExecutionProvider"])
+    by_onnxruntime = session.run(None, {"state": z.float().numpy()})[0]
+    with torch.no_grad():
+        np.testing.assert_allclose(by_onnxruntime, encoder.float()(z.float()).numpy(),
+                                   rtol=1e-5, atol=1e-5)
+
+
+def test_reduced_export_refuses_half_pairs_and_wrong_widths(tmp_path):
+    encoder, decoder, levels = reduced_modules()
+    options = {"base_step": 0.1, "mean": FIELD_MEAN, "scale": FIELD_SCALE}
+    with pytest.raises(BundleError, match="`encoder` was given without `decoder`"):
+        export_bundle(levels, tmp_path / "a", encoder=encoder, **options)
+    with pytest.raises(BundleError, match="the decoder"):
+        export_bundle(levels, tmp_path / "b", encoder=encoder,
+                      decoder=nn.Linear(3, FIELD + 1), **options)
+    with pytest.raises(BundleError, match="level stride 4"):
+        export_bundle({**levels, 4: nn.Linear(FIELD, FIELD)}, tmp_path / "c", encoder=encoder,
+                      decoder=decoder, **options)
+    assert not any(tmp_path.iterdir())
