@@ -1,6 +1,6 @@
 """Ensembles: states per second against Dask workers, and peak client memory against size.
 
-Run: python benchmarks/ensemble_bench.py [--quick] [--json FILE]
+Run: python -m stridecast.benchmarks.ensemble_bench [--quick] [--json FILE]
 Peers measured in the same run: a single-process `Stepper.forecast` over the same chunks, and
 `forecast_ensemble` in-process (no cluster). Memory is the client's peak traced allocation
 (tracemalloc) while streaming states from a zarr store to a zarr store.
@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
-from stridecast.commands_runtime import DEMO_BUNDLE
+from stridecast import demo_bundle
 from stridecast.ensemble import forecast_ensemble
 from stridecast.runtime import load
 
@@ -35,7 +35,7 @@ def crane_states(count: int, seed: int = 0) -> np.ndarray:
 def throughput(count: int) -> dict:
     from distributed import Client, LocalCluster
 
-    stepper = load(DEMO_BUNDLE)
+    stepper = load(demo_bundle())
     states = crane_states(count)
     rows = {}
     start = time.perf_counter()
@@ -60,7 +60,7 @@ def client_memory(sizes: list[int]) -> dict:
     import xarray as xr
     from distributed import Client, LocalCluster
 
-    stepper = load(DEMO_BUNDLE)
+    stepper = load(demo_bundle())
     result = {}
     with tempfile.TemporaryDirectory() as folder, \
             LocalCluster(n_workers=2, threads_per_worker=1, processes=True,

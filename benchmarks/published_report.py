@@ -1,6 +1,6 @@
 """Full runs on the published systems, written to docs/published-systems.md.
 
-    python -m benchmarks.published_report --out docs/published-systems.md
+    python -m stridecast.benchmarks.published_report --out docs/published-systems.md
 
 For each system: the largest Lyapunov exponent by the Benettin/QR method against the
 literature, then `published.run` at the sizes of `FULL` (train_levels defaults otherwise),
@@ -181,7 +181,7 @@ def _write(path: Path, text: str) -> None:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="python -m benchmarks.published_report",
+    parser = argparse.ArgumentParser(prog="python -m stridecast.benchmarks.published_report",
                                      description=__doc__.split("\n\n")[0])
     parser.add_argument("--out", type=Path, default=Path("docs/published-systems.md"),
                         help="Markdown report (a .json beside it) (default: %(default)s)")
@@ -212,7 +212,7 @@ def main(argv: list[str] | None = None) -> int:
                            "time_scales": system.time_scales},
                 "scale": {**scale.__dict__, "hidden": scale.hidden},
                 "lyapunov": lyapunov, "outcome": outcome_json(outcome)})
-    command = "python -m benchmarks.published_report " + " ".join(
+    command = "python -m stridecast.benchmarks.published_report " + " ".join(
         argv if argv is not None else sys.argv[1:])
     _write(args.out, markdown(results, command.strip()))
     _write(args.out.with_suffix(".json"),

@@ -1,9 +1,9 @@
 """What the envelope check costs: `advance`/`forecast` with and without it, and the
 nearest-sample search against SciPy's k-d tree.
 
-Run: ``python -m benchmarks.trust_bench [--quick]``. The same crane bundle is written three
-times (no envelope, the min/max box only, box plus N normalised training samples), and the
-three steppers are timed in interleaved rounds so load from elsewhere hits them alike.
+Run: ``python -m stridecast.benchmarks.trust_bench [--quick]``. The same crane bundle is
+written three times (no envelope, the min/max box only, box plus N normalised training
+samples), and the three steppers are timed in interleaved rounds so load from elsewhere hits them alike.
 """
 
 from __future__ import annotations
@@ -97,7 +97,7 @@ def nearest_costs(quick: bool) -> dict[str, dict[str, float]]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="python -m benchmarks.trust_bench",
+    parser = argparse.ArgumentParser(prog="python -m stridecast.benchmarks.trust_bench",
                                      description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="short budgets")
     parser.add_argument("--json", action="store_true", help="print JSON instead of tables")

@@ -10,7 +10,8 @@ SciPy's DOP853 at rtol 1e-10. The requirements (issue 10):
 - the error at the bundle's validated horizon is at most its tolerance;
 - `ExtrapolationWarning` fires past the horizon and for a state far from the data.
 
-The full-size runs are `python -m benchmarks.published_report` (docs/published-systems.md).
+The full-size runs are `python -m stridecast.benchmarks.published_report`
+(docs/published-systems.md).
 """
 
 from __future__ import annotations
