@@ -3,7 +3,8 @@ nearest-sample search against SciPy's k-d tree.
 
 Run: ``python -m stridecast.benchmarks.trust_bench [--quick]``. The same crane bundle is
 written three times (no envelope, the min/max box only, box plus N normalised training
-samples), and the three steppers are timed in interleaved rounds so load from elsewhere hits them alike.
+samples), and the three steppers are timed in interleaved rounds so load from elsewhere
+hits them alike.
 """
 
 from __future__ import annotations
