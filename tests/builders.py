@@ -11,6 +11,7 @@
 from __future__ import annotations
 
 import json
+import shutil
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -479,3 +480,18 @@ def sample(rng: np.random.Generator, shape, dtype, *, low=-3.0, high=3.0) -> np.
     if dtype.kind == "b":
         return rng.random(shape) < 0.5
     return rng.uniform(low, high, size=shape).astype(dtype)
+
+
+def older_crane_bundle(out: Path) -> Path:
+    """The shipped crane bundle as bundles were written before the optional `validation` block
+    and envelope samples existed (format version 1 all the same): a copy with both removed."""
+    from stridecast import demo_bundle
+
+    shutil.copytree(demo_bundle(), out)
+    path = out / "manifest.json"
+    document = json.loads(path.read_text(encoding="utf-8"))
+    document.pop("validation", None)
+    (document.get("envelope") or {}).pop("samples", None)
+    path.write_text(json.dumps(document, indent=2), encoding="utf-8")
+    shutil.rmtree(out / "envelope", ignore_errors=True)
+    return out

@@ -18,6 +18,7 @@ from stridecast.runtime import (
     parse_manifest,
     parse_manifest_text,
 )
+from tests.builders import older_crane_bundle
 
 CRANE = demo_bundle()
 SHA = "ab" * 32
@@ -71,14 +72,23 @@ def test_blocks_are_optional():
     assert "samples" not in manifest.to_dict()["envelope"]
 
 
-def test_shipped_older_bundle_still_loads():
-    # The crane demo bundle was written before these blocks existed.
-    document = json.loads((CRANE / "manifest.json").read_text())
+def test_older_bundle_still_loads(tmp_path):
+    # A bundle written before these blocks existed (the shipped one, with both removed).
+    older = older_crane_bundle(tmp_path / "older.bundle")
+    document = json.loads((older / "manifest.json").read_text())
     assert "validation" not in document and "samples" not in (document.get("envelope") or {})
-    stepper = load(CRANE)
+    stepper = load(older)
     assert stepper.manifest.validation is None
     assert stepper.manifest.envelope_samples is None
     assert stepper.manifest.to_dict() == {**document, "producer": document["producer"]}
+
+
+def test_shipped_bundle_blocks_round_trip():
+    document = json.loads((CRANE / "manifest.json").read_text())
+    manifest = load(CRANE).manifest
+    assert manifest.validation is not None and manifest.envelope_samples is not None
+    assert manifest.to_dict()["validation"] == document["validation"]
+    assert manifest.to_dict()["envelope"] == document["envelope"]
 
 
 def _set(path: str, value):

@@ -23,7 +23,7 @@ from stridecast.runtime import (
     ValidationCurve,
     load,
 )
-from tests.builders import linear_bundle, oscillator_matrix
+from tests.builders import linear_bundle, older_crane_bundle, oscillator_matrix
 
 OMEGA = 2.0  # x'' = −ω² x: period π, velocity amplitude ω for unit position amplitude
 OSCILLATOR = oscillator_matrix(OMEGA)
@@ -51,7 +51,7 @@ def oscillator(tmp_path_factory):
                          samples=RING, radius=0.3, validation=CURVE, validated_horizon=1.0)
 
 
-def test_expected_error_interpolates_the_curve(oscillator):
+def test_expected_error_interpolates_the_curve(oscillator, tmp_path):
     stepper = load(oscillator, dtype="float64")
     times = np.linspace(0.0, 1.5, 31)
     # Reference: numpy.interp on the curve with (0, 0) prepended.
@@ -59,7 +59,8 @@ def test_expected_error_interpolates_the_curve(oscillator):
     np.testing.assert_allclose(stepper.expected_error(times), expected, rtol=1e-15)
     assert stepper.expected_error(0.75) == pytest.approx(0.02, rel=1e-15)
     assert math.isinf(stepper.expected_error(1.75)) and math.isinf(stepper.expected_error(9.0))
-    assert math.isnan(load(CRANE).expected_error(1.0))  # no validation block
+    older = older_crane_bundle(tmp_path / "older.bundle")
+    assert math.isnan(load(older).expected_error(1.0))  # no validation block
     with pytest.raises(TimeError, match=r"`t` is -1.0; expected a finite time ≥ 0\."):
         stepper.expected_error(-1.0)
 
@@ -214,8 +215,8 @@ def test_with_levels_equals_a_bundle_built_with_those_levels(oscillator, tmp_pat
             full.with_levels(bad)
 
 
-def test_older_bundle_without_blocks_checks_box_only():
-    stepper = load(CRANE, on_extrapolation="ignore")
+def test_older_bundle_without_blocks_checks_box_only(tmp_path):
+    stepper = load(older_crane_bundle(tmp_path / "older.bundle"), on_extrapolation="ignore")
     state = np.array([0.5, -24.0, 0.1, 0.0])
     assert stepper.check(state) == ()
     outside = stepper.check(np.array([100.0, -24.0, 0.1, 0.0]), t=200.0)
