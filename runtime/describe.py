@@ -14,6 +14,7 @@ from .bundle import (
     read_levels,
     read_manifest,
     read_reduction,
+    sha256_hex,
 )
 from .errors import BundleError
 from .limits import DEFAULT_LIMITS, Limits
@@ -22,30 +23,52 @@ from .onnx_reader import read_model
 
 def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LIMITS
                     ) -> dict[str, Any]:
-    """Read a bundle, verify its checksums, and summarise manifest, levels and report."""
+    """Read a bundle, check every file's checksum, and summarise manifest, levels and report.
+
+    Unlike `load`, a checksum mismatch does not stop the description: each level says
+    "ok" or "mismatch" under `checksum` (a mismatched level is not parsed), the other files
+    the manifest names (envelope samples, encoder, decoder) are listed under `files`, and
+    `checksums_ok` says whether everything matched. Unsafe paths and malformed manifests
+    still raise `BundleError`.
+    """
     root = open_bundle_root(path)
     manifest = read_manifest(root, limits=limits)
-    contents = read_levels(root, manifest, verify=True, limits=limits)
-    read_envelope_samples(root, manifest, verify=True, limits=limits)  # checksum and shape
-    read_reduction(root, manifest, verify=True, limits=limits)  # encoder/decoder checksums
+    contents = read_levels(root, manifest, verify=False, limits=limits)
     levels = []
     for entry in manifest.levels:
-        model = read_model(contents[entry.stride], limits=limits, source=entry.file)
-        operators = Counter(node.op_type for node in model.graph.nodes)
-        parameters = sum(int(t.array.size) for t in model.graph.initializers
-                         if t.array.dtype.kind == "f")
-        levels.append({
+        data = contents[entry.stride]
+        digest = sha256_hex(data)
+        level: dict[str, Any] = {
             "stride": entry.stride,
             "stride_time": entry.stride * manifest.base_step,
             "file": entry.file,
-            "bytes": len(contents[entry.stride]),
+            "bytes": len(data),
             "sha256": entry.sha256,
-            "checksum": "ok",
-            "opset": model.opset,
-            "producer": f"{model.producer_name} {model.producer_version}".strip(),
-            "operators": dict(sorted(operators.items())),
-            "parameters": parameters,
-        })
+            "checksum": "ok" if digest == entry.sha256 else "mismatch",
+        }
+        if digest != entry.sha256:
+            level.update(actual_sha256=digest, opset=None, producer="", operators={},
+                         parameters=None)
+        else:
+            model = read_model(data, limits=limits, source=entry.file)
+            operators = Counter(node.op_type for node in model.graph.nodes)
+            level.update(
+                opset=model.opset,
+                producer=f"{model.producer_name} {model.producer_version}".strip(),
+                operators=dict(sorted(operators.items())),
+                parameters=sum(int(t.array.size) for t in model.graph.initializers
+                               if t.array.dtype.kind == "f"))
+        levels.append(level)
+    files = []
+    for what, reader in (("envelope samples", read_envelope_samples),
+                         ("encoder and decoder", read_reduction)):
+        try:
+            present = reader(root, manifest, verify=True, limits=limits)
+        except BundleError as error:
+            files.append({"what": what, "checksum": "mismatch", "error": str(error)})
+            continue
+        if present is not None:
+            files.append({"what": what, "checksum": "ok", "error": None})
     report = None
     report_path = root / REPORT_NAME
     if report_path.is_file() and not report_path.is_symlink():
@@ -54,5 +77,9 @@ def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LI
             report = json.loads(text)
         except ValueError as error:
             raise BundleError(f"`{REPORT_NAME}` is not valid JSON: {error}.") from error
+    plots = sorted(item.name for item in root.iterdir()
+                   if item.suffix == ".png" and item.is_file() and not item.is_symlink())
+    checksums_ok = (all(level["checksum"] == "ok" for level in levels)
+                    and all(item["checksum"] == "ok" for item in files))
     return {"path": str(root), "manifest": manifest.to_dict(), "levels": levels,
-            "report": report}
+            "files": files, "checksums_ok": checksums_ok, "plots": plots, "report": report}

@@ -38,9 +38,10 @@ def inspect_command(arguments: argparse.Namespace) -> int:
     from stridecast.runtime.describe import describe_bundle
 
     description = describe_bundle(bundle_path(arguments))
+    status = 0 if description["checksums_ok"] else 1
     if arguments.json:
         print(json.dumps(description, indent=2))
-        return 0
+        return status
     manifest = description["manifest"]
     unit = manifest["time"]["unit"]
     base = manifest["time"]["base_step"]
@@ -54,8 +55,16 @@ def inspect_command(arguments: argparse.Namespace) -> int:
     print(f"  {'stride':>7} {'time':>12}  {'params':>8}  {'opset':>5}  checksum  operators")
     for level in description["levels"]:
         operators = ", ".join(f"{op}×{count}" for op, count in level["operators"].items())
+        if level["checksum"] != "ok":
+            print(f"  {level['stride']:>7} {level['stride_time']:>10g} {unit:<2} "
+                  f"{'-':>8}  {'-':>5}  MISMATCH  {level['file']} was changed or corrupted "
+                  f"(sha256 {level['actual_sha256'][:12]}…, manifest {level['sha256'][:12]}…)")
+            continue
         print(f"  {level['stride']:>7} {level['stride_time']:>10g} {unit:<2} "
               f"{level['parameters']:>8}  {level['opset']:>5}  {level['checksum']:<8}  {operators}")
+    for item in description["files"]:
+        print(f"  {item['what']}: checksum {item['checksum']}"
+              + (f" ({item['error']})" if item["error"] else ""))
     envelope = manifest.get("envelope")
     if envelope:
         print("envelope")
@@ -72,14 +81,54 @@ def inspect_command(arguments: argparse.Namespace) -> int:
     horizon = manifest.get("validated_horizon")
     print(f"validated   {'not recorded' if horizon is None else f'{horizon:g} {unit}'}")
     _print_validation(manifest.get("validation"), unit)
-    report = description.get("report")
-    if report:
-        print("report")
-        for key, value in report.items():
-            text = json.dumps(value)
-            print(f"  {key}: {text if len(text) < 200 else text[:197] + '...'}")
+    _print_report(description.get("report"), description["plots"], unit)
+    if status:
+        bad = [level["file"] for level in description["levels"] if level["checksum"] != "ok"]
+        bad += [item["what"] for item in description["files"] if item["checksum"] != "ok"]
+        print(f"error: the checksums of {', '.join(bad)} do not match the manifest; `load` will "
+              "refuse this bundle.", file=sys.stderr)
+        return status
     print(caution.CAUTION, file=sys.stderr)
     return 0
+
+
+def _print_report(report: dict | None, plots: list[str], unit: str) -> None:
+    """A readable summary of report.json (the full document: `inspect --json`)."""
+    print(f"plots       {', '.join(plots) if plots else 'none in the bundle'}")
+    if not report:
+        print("report      none (report.json is optional)")
+        return
+    print("report      report.json (full content: stridecast inspect --json)")
+    verification = report.get("verification") or {}
+    if verification:
+        passed = {True: "passed", False: "FAILED"}.get(verification.get("passed"), "?")
+        print(f"  export verification  {passed} on {verification.get('samples', '?')} states")
+    validation = report.get("validation") or {}
+    if validation:
+        kept, trained = validation.get("strides"), validation.get("trained_strides")
+        if kept is not None:
+            print(f"  levels kept          {kept}"
+                  + (f" of {trained}" if trained and trained != kept else ""))
+        summary = validation.get("summary") or {}
+        if summary.get("why"):
+            print(f"  why                  {summary['why']}")
+        at = validation.get("at_validated_horizon") or {}
+        horizon = validation.get("validated_horizon")
+        if horizon is not None:
+            estimate, bound = at.get("estimate"), at.get("upper_bound")
+            figures = "" if estimate is None else (
+                f": held-out error {estimate:.3g}, 95 % bound {bound:.3g}" if bound is not None
+                else f": held-out error {estimate:.3g}")
+            print(f"  validated horizon    {horizon:g} {unit}{figures}")
+    training = report.get("training") or {}
+    history = training.get("history") or {}
+    if history:
+        seconds = sum(float(entry.get("seconds") or 0) for entry in history.values())
+        print(f"  training             {len(history)} levels, {seconds:.0f} s")
+    others = [key for key in report if key not in ("verification", "validation", "training",
+                                                    "plots")]
+    if others:
+        print(f"  also                 {', '.join(others)}")
 
 
 def _print_validation(validation: dict | None, unit: str, points: int = 6) -> None:

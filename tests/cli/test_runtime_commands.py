@@ -36,7 +36,16 @@ def test_inspect_lists_levels_and_checksums(bundle, capsys):
 def test_inspect_reports_tampering(bundle, capsys):
     (bundle / "levels" / "stride-00004.onnx").write_bytes(b"\x08\x07")
     assert main(["inspect", str(bundle)]) == 1
-    assert "checksum" in capsys.readouterr().err
+    captured = capsys.readouterr()
+    assert "checksum" in captured.err and "stride-00004.onnx" in captured.err
+    # Every level gets its status; the untouched ones still read "ok".
+    lines = [line.split() for line in captured.out.splitlines() if line.strip()[:1].isdigit()]
+    status = {int(line[0]): ("MISMATCH" if "MISMATCH" in line else "ok") for line in lines}
+    assert status == {1: "ok", 4: "MISMATCH", 16: "ok"}
+    assert main(["inspect", str(bundle), "--json"]) == 1
+    description = json.loads(capsys.readouterr().out)
+    assert [level["checksum"] for level in description["levels"]] == ["ok", "mismatch", "ok"]
+    assert description["checksums_ok"] is False
 
 
 def test_advance_prints_state_and_no_caution_with_json(bundle, capsys):
