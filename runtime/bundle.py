@@ -123,6 +123,16 @@ def read_manifest(root: Path, *, limits: Limits = DEFAULT_LIMITS) -> Manifest:
     return parse_manifest_text(data, max_bytes=limits.max_manifest_bytes)
 
 
+def check_checksum(data: bytes, expected: str, file: str, what: str) -> None:
+    """Raise `BundleError` unless `data` hashes to `expected` (one wording for every file)."""
+    digest = sha256_hex(data)
+    if digest != expected:
+        raise BundleError(
+            f"the checksum of {file!r} ({what}) is {digest}; the manifest records {expected}: "
+            "the file was changed or corrupted."
+        )
+
+
 def read_levels(root: Path, manifest: Manifest, *, verify: bool = True,
                 limits: Limits = DEFAULT_LIMITS) -> dict[int, bytes]:
     """Read every level file, checking all paths first and then every checksum."""
@@ -133,12 +143,7 @@ def read_levels(root: Path, manifest: Manifest, *, verify: bool = True,
         data = read_bundle_file(root, entry.file, f"levels[{index}].file",
                                 max_bytes=limits.max_model_bytes)
         if verify:
-            digest = sha256_hex(data)
-            if digest != entry.sha256:
-                raise BundleError(
-                    f"the checksum of {entry.file!r} (stride {entry.stride}) is {digest}; the "
-                    f"manifest records {entry.sha256}: the file was changed or corrupted."
-                )
+            check_checksum(data, entry.sha256, entry.file, f"stride {entry.stride}")
         contents[entry.stride] = data
     return contents
 
@@ -158,12 +163,7 @@ def read_envelope_samples(root: Path, manifest: Manifest, *, verify: bool = True
     where = "envelope.samples.file"
     data = read_bundle_file(root, entry.file, where, max_bytes=limits.max_model_bytes)
     if verify:
-        digest = sha256_hex(data)
-        if digest != entry.sha256:
-            raise BundleError(
-                f"the checksum of {entry.file!r} (envelope samples) is {digest}; the manifest "
-                f"records {entry.sha256}: the file was changed or corrupted."
-            )
+        check_checksum(data, entry.sha256, entry.file, "envelope samples")
     return decode_samples(data, count=entry.count, dim=manifest.level_dim, where=where)
 
 
@@ -186,12 +186,7 @@ def read_reduction(root: Path, manifest: Manifest, *, verify: bool = True,
         data = read_bundle_file(root, entry.file, f"reduction.{part}.file",
                                 max_bytes=limits.max_model_bytes)
         if verify:
-            digest = sha256_hex(data)
-            if digest != entry.sha256:
-                raise BundleError(
-                    f"the checksum of {entry.file!r} (the {part}) is {digest}; the manifest "
-                    f"records {entry.sha256}: the file was changed or corrupted."
-                )
+            check_checksum(data, entry.sha256, entry.file, f"the {part}")
         contents.append(data)
     return contents[0], contents[1]
 
