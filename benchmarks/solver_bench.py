@@ -1,7 +1,7 @@
 """stridecast against SciPy's `solve_ivp` on the crane scenario, reaching the same times.
 
 RK45 runs at SciPy's default tolerances. DOP853 runs at the loosest tolerance whose error is no
-larger than the stepper's own error against the ground truth (`stridecast.crane.simulate`,
+larger than the stepper's own error against the ground truth (`stridecast.demo.crane.simulate`,
 DOP853 at 1e-10) — which needs a bundle trained on the crane. Without one, the stepper timed is
 the given (untrained) bundle, which costs the same per step as any network of its size, and
 DOP853 runs at a fixed tolerance that is reported as not matched.
@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from stridecast import crane
+from stridecast.demo import crane
 from stridecast.runtime import Stepper
 
 from .timing import Budget, interleaved, summary
@@ -132,7 +132,7 @@ def run(stepper: Stepper, horizons: Sequence[int], *, trained_on_crane: bool,
                     {name: f"{value['p50'] * 1e3:.3g} ms" for name, value in row["times"].items()})
         rows.append(row)
     return {
-        "scenario": "stridecast.crane (planar elastic pendulum)",
+        "scenario": "stridecast.demo.crane (planar elastic pendulum)",
         "trained_on_crane": trained_on_crane,
         "stepper": stepper.manifest.name,
         "stepper_source": source,

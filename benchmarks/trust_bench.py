@@ -19,7 +19,8 @@ from typing import Any
 
 import numpy as np
 
-from stridecast import crane, demo_bundle
+from stridecast import demo_bundle
+from stridecast.demo import crane
 from stridecast.runtime import SAMPLES_FILE, EnvelopeSamples, encode_samples, load, write_bundle
 from stridecast.runtime.bundle import read_levels, read_manifest
 from stridecast.runtime.nearest import SampleIndex

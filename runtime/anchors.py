@@ -8,7 +8,11 @@ from __future__ import annotations
 
 import numpy as np
 
+from .errors import TimeError
 from .planner import StridePlanner
+
+# Beyond 2**52 base steps, float64 positions stop being whole numbers of steps.
+MAX_BASE_STEPS = 2.0**52
 
 
 def grid_positions(times: np.ndarray, base_step: float
@@ -17,8 +21,21 @@ def grid_positions(times: np.ndarray, base_step: float
 
     A time counts as a grid time when it is one up to floating-point rounding (0.3 / 0.1 is
     2.9999999999999996): within 1e-9 base steps, or 1e-12 relative for large positions.
+
+    Raises
+    ------
+    TimeError
+        If a time lies more than 2**52 base steps ahead, where step counts stop being exact.
     """
-    positions = np.asarray(times, dtype=np.float64) / base_step
+    times = np.asarray(times, dtype=np.float64)
+    if times.size:
+        latest = float(times.max())
+        # Compared as a product: latest / base_step overflows for times near the float limit.
+        if latest > MAX_BASE_STEPS * base_step:
+            raise TimeError(f"time {latest!r} is more than 2**52 base steps ({base_step!r}) "
+                            "ahead, where step counts stop being exact; expected at most "
+                            f"{MAX_BASE_STEPS * base_step!r}.")
+    positions = times / base_step
     nearest = np.rint(positions)
     on_grid = np.abs(positions - nearest) <= np.maximum(1e-9, 1e-12 * positions)
     return positions, nearest.astype(np.int64), on_grid

@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from stridecast import crane
+from stridecast.demo import crane
 
 DEMO_HORIZON = 60.0  # seconds: the longest horizon `stridecast demo` forecasts
 

@@ -8,13 +8,16 @@ from __future__ import annotations
 import argparse
 import sys
 
+from .common import bundle_path, needs_extra, read_times
+from .parsing import add_command
 
-def register(subparsers, add) -> None:
-    ensemble = add(subparsers, "ensemble", "Forecast an ensemble of initial states on Dask "
+
+def register(subparsers) -> None:
+    ensemble = add_command(subparsers, "ensemble", "Forecast an ensemble of initial states on Dask "
                    "into a zarr store or NetCDF file.",
                    "stridecast ensemble crane-demo.bundle --states states.npy --until 60 "
                    "--every 0.5 --out ensemble.zarr --workers 2",
-                   "stridecast.commands_ensemble:ensemble_command")
+                   "stridecast.cli.ensemble_command:ensemble_command")
     ensemble.add_argument("bundle", nargs="?", help="bundle directory")
     ensemble.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
     ensemble.add_argument("--states", required=True, metavar="FILE",
@@ -41,16 +44,14 @@ def register(subparsers, add) -> None:
 
 
 def ensemble_command(arguments: argparse.Namespace) -> int:
-    from stridecast.commands_optional import _needs
-    from stridecast.commands_runtime import _times, bundle_path
     from stridecast.runtime import load
 
-    with _needs("ensemble"):
+    with needs_extra("ensemble"):
         from distributed import Client, LocalCluster
 
         from stridecast.ensemble import forecast_ensemble
     stepper = load(bundle_path(arguments), dtype=arguments.dtype)
-    times = _times(argparse.Namespace(times=None, until=arguments.until,
+    times = read_times(argparse.Namespace(times=None, until=arguments.until,
                                       every=arguments.every))
     if arguments.workers is not None and arguments.workers < 1:
         print(f"stridecast ensemble: `--workers` is {arguments.workers}; expected at least 1.",

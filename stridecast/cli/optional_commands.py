@@ -11,36 +11,24 @@ import argparse
 import sys
 from pathlib import Path
 
-EXTRAS = {
-    "torch": "export", "onnx": "export", "onnxscript": "export", "tqdm": "export",
-    "fastapi": "service", "uvicorn": "service", "msgpack": "service",
-    "prometheus_client": "service", "pydantic_settings": "service", "anyio": "service",
-    "pydantic": "service",
-    "scipy": "demo", "matplotlib": "plot", "onnxruntime": "dev",
-}
+from stridecast.demo.options import add_arguments as add_demo_arguments
+
+from .common import bundle_path, needs_extra, shipped_bundle
+from .parsing import DeprecatedAlias, add_command
 
 
-def register(subparsers, add, deprecated_alias) -> None:
-    demo = add(subparsers, "demo", "Train, export, reload and evaluate the harbour-crane demo.",
-               "stridecast demo --quick", "stridecast.commands_optional:demo_command")
-    demo.add_argument("--out", default="crane-demo.bundle", help="bundle folder to write "
-                      "(default: %(default)s)")
-    demo.add_argument("--quick", action="store_true",
-                      help="smaller data and networks: ~30 s, lower accuracy")
-    demo.add_argument("--overwrite", action="store_true", help="replace an existing bundle")
-    demo.add_argument("--no-progress", action="store_true", help="no progress bars")
-    demo.add_argument("--plots-dir", default=None,
-                      help="where forecast.png and error.png go (default: inside the "
-                      "bundle folder)")
+def register(subparsers) -> None:
+    demo = add_command(
+        subparsers, "demo", "Train, export, reload and evaluate the harbour-crane demo.",
+               "stridecast demo --quick", "stridecast.cli.optional_commands:demo_command")
+    add_demo_arguments(demo)
 
-    from . import commands_train
 
-    commands_train.register(subparsers, add)
-
-    export = add(subparsers, "export", "Export per-stride torch programs to a verified bundle.",
+    export = add_command(
+        subparsers, "export", "Export per-stride torch programs to a verified bundle.",
                  "stridecast export --level 1=fine.pt2 --level 16=coarse.pt2 --base-step 0.05 "
                  "--normalization stats.json -o my.bundle",
-                 "stridecast.commands_optional:export_command")
+                 "stridecast.cli.optional_commands:export_command")
     export.add_argument("--level", action="append", required=True, metavar="STRIDE=FILE",
                         help="a torch.export program (.pt2) or TorchScript file; repeat")
     export.add_argument("--base-step", type=float, required=True, metavar="SECONDS",
@@ -57,9 +45,9 @@ def register(subparsers, add, deprecated_alias) -> None:
     export.add_argument("-o", "--out", required=True, help="bundle folder to write")
     export.add_argument("--overwrite", action="store_true", help="replace an existing bundle")
 
-    serve = add(subparsers, "serve", "Serve bundles over HTTP (JSON, MessagePack, open "
+    serve = add_command(subparsers, "serve", "Serve bundles over HTTP (JSON, MessagePack, open "
                 "inference protocol v2).", "stridecast serve crane-demo.bundle --port 8000",
-                "stridecast.commands_optional:serve_command")
+                "stridecast.cli.optional_commands:serve_command")
     serve.add_argument("paths", nargs="*", help="bundles, or folders of bundles")
     serve.add_argument("--demo", action="store_true", help="also serve the shipped demo bundle")
     serve.add_argument("--host", default="127.0.0.1",
@@ -78,52 +66,32 @@ def register(subparsers, add, deprecated_alias) -> None:
                        "turn (default: CPU count)")
     # The old name borrowed uvicorn's flag, which means something else (open connections).
     serve.add_argument("--limit-concurrency", type=int, dest="compute_slots",
-                       action=deprecated_alias, new_name="--compute-slots")
+                       action=DeprecatedAlias, new_name="--compute-slots")
     serve.add_argument("--threads", "--blas-threads", dest="threads", type=int, default=None,
                        help="threads one request splits a large batch over, per worker "
                        "process (default: 1; BLAS runs single-threaded around large batches)")
 
-    bench = add(subparsers, "bench", "Benchmark a bundle against onnxruntime, torch and the "
+    bench = add_command(
+        subparsers, "bench", "Benchmark a bundle against onnxruntime, torch and the "
                 "naive rollout.", "stridecast bench crane-demo.bundle --quick",
-                "stridecast.commands_optional:bench_command")
+                "stridecast.cli.optional_commands:bench_command")
     bench.add_argument("bundle", nargs="?", help="bundle directory")
     bench.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
     bench.add_argument("--quick", action="store_true", help="short run")
     bench.add_argument("--json-out", default=None, metavar="FILE",
                        help="also write the results as JSON to FILE")
-    bench.add_argument("--json", dest="json_out", metavar="FILE", action=deprecated_alias,
+    bench.add_argument("--json", dest="json_out", metavar="FILE", action=DeprecatedAlias,
                        new_name="--json-out")
 
 
-def _needs(extra_hint: str):
-    """Turn a missing optional dependency into a one-line instruction."""
-
-    class _Guard:
-        def __enter__(self):
-            return self
-
-        def __exit__(self, kind, error, traceback):
-            if kind is ModuleNotFoundError:
-                package = (error.name or "").split(".")[0]
-                extra = EXTRAS.get(package, extra_hint)
-                # Not on any package index: the extra comes from the repository's clone.
-                print(f"stridecast: this command needs the {extra!r} extra (missing module "
-                      f"{package!r}); install it from the repository folder with "
-                      f'pip install -e ".[{extra}]"', file=sys.stderr)
-                raise SystemExit(1) from error
-            return False
-
-    return _Guard()
-
-
 def demo_command(arguments: argparse.Namespace) -> int:
-    with _needs("all"):
-        from stridecast import demo
-    return demo.main(arguments)
+    with needs_extra("all"):
+        from stridecast.demo import run
+    return run.main(arguments)
 
 
 def export_command(arguments: argparse.Namespace) -> int:
-    with _needs("export"):
+    with needs_extra("export"):
         from stridecast.export.cli_support import export_from_files, parse_level_option
     # A list, not a dict: export_from_files refuses a repeated stride instead of dropping it.
     levels = [parse_level_option(text) for text in arguments.level]
@@ -137,9 +105,8 @@ def export_command(arguments: argparse.Namespace) -> int:
 
 def serve_command(arguments: argparse.Namespace) -> int:
     from stridecast.caution import CAUTION
-    from stridecast.commands_runtime import shipped_bundle
 
-    with _needs("service"):
+    with needs_extra("service"):
         from stridecast.service.server import serve
     paths = [Path(p) for p in arguments.paths]
     if arguments.demo:
@@ -180,9 +147,8 @@ def _log_to_stderr(name: str) -> None:
 
 
 def bench_command(arguments: argparse.Namespace) -> int:
-    from stridecast.commands_runtime import bundle_path
 
-    with _needs("dev"):
+    with needs_extra("dev"):
         from stridecast.benchmarks import bundle_bench
     result = bundle_bench.run(bundle_path(arguments), quick=arguments.quick)
     print(bundle_bench.to_markdown(result))

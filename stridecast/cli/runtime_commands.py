@@ -11,27 +11,48 @@ from pathlib import Path
 
 import numpy as np
 
-from stridecast import caution, demo_bundle
-from stridecast.runtime import BundleError, Finding, StateError, TimeError, load
+from stridecast import caution
+from stridecast.runtime import Finding, StateError, load
 from stridecast.runtime.findings import WARNING_KINDS
 
-
-def shipped_bundle() -> Path:
-    """`stridecast.demo_bundle()`, its absence reported as a `BundleError`."""
-    try:
-        return demo_bundle()
-    except FileNotFoundError as error:
-        raise BundleError(str(error)) from error
+from .common import bundle_path, read_times
+from .parsing import DeprecatedAlias, add_command, add_state_options
 
 
-def bundle_path(arguments: argparse.Namespace) -> Path:
-    if getattr(arguments, "demo", False):
-        if arguments.bundle:
-            raise BundleError("give either a bundle path or --demo, not both.")
-        return shipped_bundle()
-    if not arguments.bundle:
-        raise BundleError("a bundle path is required (or --demo for the shipped one).")
-    return Path(arguments.bundle)
+def register(subparsers) -> None:
+    inspect = add_command(subparsers, "inspect", "Show a bundle's levels, operators and figures; "
+                   "re-verify its checksums.", "stridecast inspect crane-demo.bundle",
+                   "stridecast.cli.runtime_commands:inspect_command")
+    inspect.add_argument("bundle", nargs="?", help="bundle directory")
+    inspect.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
+    inspect.add_argument("--json", action="store_true", help="print JSON")
+
+    advance = add_command(subparsers, "advance", "Forecast the state at one time.",
+                   "stridecast advance crane-demo.bundle --state 3,-24,0,0 --time 12.5",
+                   "stridecast.cli.runtime_commands:advance_command")
+    advance.add_argument("bundle", nargs="?", help="bundle directory")
+    advance.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
+    when = advance.add_mutually_exclusive_group(required=True)
+    when.add_argument("--time", type=float, metavar="T",
+                      help="time to reach, ≥ 0, in the bundle's time unit")
+    when.add_argument("--t", type=float, dest="time", action=DeprecatedAlias,
+                      new_name="--time")
+    add_state_options(advance)
+
+    forecast = add_command(
+        subparsers, "forecast", "Forecast the state at many times (dense output).",
+                    "stridecast forecast crane-demo.bundle --state 3,-24,0,0 --until 60 "
+                    "--every 0.5 --out forecast.csv",
+                    "stridecast.cli.runtime_commands:forecast_command")
+    forecast.add_argument("bundle", nargs="?", help="bundle directory")
+    forecast.add_argument("--demo", action="store_true", help="the bundle shipped in the package")
+    times = forecast.add_mutually_exclusive_group(required=True)
+    times.add_argument("--times", metavar="T1,T2,...", help="comma-separated times")
+    times.add_argument("--until", type=float, help="last time of an evenly spaced grid")
+    forecast.add_argument("--every", type=float, help="spacing of the grid given by --until")
+    forecast.add_argument("--out", metavar="FILE", help="write .csv or .npy instead of printing")
+    add_state_options(forecast)
+
 
 
 def inspect_command(arguments: argparse.Namespace) -> int:
@@ -226,25 +247,10 @@ def advance_command(arguments: argparse.Namespace) -> int:
     return 0
 
 
-def _times(arguments: argparse.Namespace) -> np.ndarray:
-    if arguments.times:
-        try:
-            return np.asarray([float(part) for part in arguments.times.split(",")])
-        except ValueError as error:
-            raise TimeError(f"`--times` {arguments.times!r} is not a comma-separated list of "
-                            "numbers.") from error
-    if arguments.every is None or not arguments.every > 0:
-        raise TimeError("`--until` needs `--every` with a positive spacing.")
-    count = int(np.floor(arguments.until / arguments.every + 1e-9)) + 1
-    if count < 1:
-        raise TimeError(f"`--until` is {arguments.until!r}; expected a time ≥ 0.")
-    return np.arange(count) * arguments.every
-
-
 def forecast_command(arguments: argparse.Namespace) -> int:
     stepper = load(bundle_path(arguments), dtype=arguments.dtype, on_extrapolation="ignore")
     states = _read_states(arguments)
-    times = _times(arguments)
+    times = read_times(arguments)
     result, info = stepper.forecast_with_info(states, times, off_grid=arguments.off_grid)
     # One table for one state or a batch: a row per (time, member), members numbered from 0.
     members = 1 if states.ndim == 1 else states.shape[0]

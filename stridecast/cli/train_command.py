@@ -11,7 +11,8 @@ import argparse
 import json
 import math
 
-from .commands_optional import _needs
+from .common import needs_extra
+from .parsing import add_command
 
 # The choices of `stridecast.export.networks.ACTIVATIONS` (kept equal by a test, so the parser
 # need not import torch).
@@ -77,10 +78,10 @@ def _count(option: str, *, none: bool = False, minimum: int = 1):
     return parse
 
 
-def register(subparsers, add) -> None:
-    train = add(subparsers, "train", "Train levels from trajectories and export a bundle.",
+def register(subparsers) -> None:
+    train = add_command(subparsers, "train", "Train levels from trajectories and export a bundle.",
                 "stridecast train data.npz --base-step 0.05 --strides 1,4,16,64 -o my.bundle",
-                "stridecast.commands_train:train_command")
+                "stridecast.cli.train_command:train_command")
     data = train.add_argument_group("data")
     data.add_argument("data", help="trajectories: .npy (N, T, d) or (T, d); .npz (key "
                       "`trajectories`, or one array per trajectory); a folder of .npy files; "
@@ -154,7 +155,7 @@ TRAINING_OPTIONS = {
 
 
 def train_command(arguments: argparse.Namespace) -> int:
-    with _needs("export"):
+    with needs_extra("export"):
         from stridecast.export.cli_support import train_from_file, training_summary
     training = {keyword: getattr(arguments, name) for name, keyword in TRAINING_OPTIONS.items()}
     path, trained = train_from_file(

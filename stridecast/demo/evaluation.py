@@ -14,10 +14,10 @@ from typing import Any
 
 import numpy as np
 
-from stridecast import crane
 from stridecast.runtime import Stepper
 
-from .demo_settings import (
+from . import crane
+from .settings import (
     BASE_STEP,
     CHECK_STATES,
     CURVE_SPACING,

@@ -14,11 +14,11 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from stridecast import crane
 from stridecast.runtime.bundle import REPORT_NAME, model_name
 
-from .demo_evaluation import Evaluation
-from .demo_settings import (
+from . import crane
+from .evaluation import Evaluation
+from .settings import (
     BASE_STEP,
     EXAMPLE_LABEL,
     GROUND_TRUTH_TOLERANCE,

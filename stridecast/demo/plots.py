@@ -10,8 +10,8 @@ from typing import Any
 
 import numpy as np
 
-from .demo_evaluation import Evaluation
-from .demo_settings import BASE_STEP, EXAMPLE_LABEL, HYBRID_BELOW, DemoSettings
+from .evaluation import Evaluation
+from .settings import BASE_STEP, EXAMPLE_LABEL, HYBRID_BELOW, DemoSettings
 
 FORECAST_PNG = "forecast.png"
 ERROR_PNG = "error.png"

@@ -21,16 +21,16 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from stridecast import crane
+from stridecast.caution import CAUTION
 from stridecast.runtime import BundleError, StridecastError, load
 
-from . import demo_output
-from .caution import CAUTION
-from .demo_evaluation import evaluate
-from .demo_plots import write_plots
-from .demo_settings import (
+from . import crane
+from . import output as demo_output
+from .evaluation import evaluate
+from .options import add_arguments
+from .plots import write_plots
+from .settings import (
     BASE_STEP,
-    DEFAULT_OUT,
     FULL,
     GROUND_TRUTH_TOLERANCE,
     QUICK,
@@ -46,20 +46,6 @@ NEEDED_MODULES = ("torch", "onnx", "scipy", "matplotlib", "tqdm")
 
 
 # ------------------------------------------------------------------------------ entry points
-def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Add the options of `stridecast demo` to `parser`."""
-    parser.add_argument("--out", type=Path, default=DEFAULT_OUT, metavar="DIR",
-                        help="bundle folder to write (default: ./%(default)s)")
-    parser.add_argument("--quick", action="store_true",
-                        help="smaller data and networks: the same steps in about 30 s, at a "
-                        "lower accuracy")
-    parser.add_argument("--overwrite", action="store_true",
-                        help="replace an existing bundle folder at --out")
-    parser.add_argument("--no-progress", action="store_true", help="no progress bars")
-    parser.add_argument("--plots-dir", type=Path, default=None, metavar="DIR",
-                        help="where forecast.png and error.png go (default: the bundle folder)")
-
-
 def main(arguments: argparse.Namespace) -> int:
     """Run `stridecast demo` with parsed `arguments`; return the exit status."""
     run_demo(arguments.out, quick=arguments.quick, overwrite=arguments.overwrite,
@@ -253,7 +239,7 @@ def _torch_threads(count: int) -> Iterator[None]:
         torch.set_num_threads(previous)
 
 
-def _module_main(argv: list[str] | None = None) -> int:
+def module_main(argv: list[str] | None = None) -> int:
     """`python -m stridecast.demo [--ship]`: the demo, or regenerate the shipped bundle."""
     parser = argparse.ArgumentParser(prog="python -m stridecast.demo",
                                      description=__doc__.split("\n\n")[0])
@@ -273,7 +259,3 @@ def _module_main(argv: list[str] | None = None) -> int:
     except StridecastError as error:
         print(f"stridecast demo: error: {error}", file=sys.stderr)
         return 1
-
-
-if __name__ == "__main__":
-    sys.exit(_module_main())

@@ -19,7 +19,6 @@ pytest.importorskip("torch")
 pytest.importorskip("scipy")
 pytest.importorskip("matplotlib")
 
-from stridecast import crane
 from stridecast.benchmarks import (
     bundle_bench,
     environment,
@@ -42,6 +41,7 @@ from stridecast.benchmarks.reference import (
     torch_twins,
 )
 from stridecast.benchmarks.timing import Budget, interleaved, summary
+from stridecast.demo import crane
 from stridecast.runtime import load
 
 TINY_STRIDES = (1, 2, 4, 8)
@@ -115,7 +115,7 @@ def test_naive_rollout_is_the_finest_level_repeated(reference, tmp_path):
 
 def test_solver_matches_the_crane_ground_truth():
     state = solver_bench.initial_state()
-    # Expected: stridecast.crane.simulate, SciPy DOP853 at rtol = atol = 1e-10.
+    # Expected: stridecast.demo.crane.simulate, SciPy DOP853 at rtol = atol = 1e-10.
     truth = crane.simulate(state, np.array([0.5]))[0]
     tight = solver_bench.solve(state, 0.5, "DOP853", {"rtol": 1e-10, "atol": 1e-10})
     np.testing.assert_allclose(tight, truth, rtol=0, atol=1e-7)

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from stridecast.cli import build_parser, main
-from stridecast.commands_train import ACTIVATIONS, TRAINING_OPTIONS
+from stridecast.cli.train_command import ACTIVATIONS, TRAINING_OPTIONS
 from stridecast.runtime import load
 from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
 

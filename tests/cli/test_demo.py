@@ -1,6 +1,6 @@
 """`stridecast demo` and the crane bundle shipped in the package.
 
-Expected states come from SciPy (solve_ivp, DOP853) through `stridecast.crane.simulate`.
+Expected states come from SciPy (solve_ivp, DOP853) through `stridecast.demo.crane.simulate`.
 """
 
 from __future__ import annotations
@@ -14,10 +14,11 @@ import sys
 import numpy as np
 import pytest
 
-from stridecast import crane, demo
 from stridecast.cli import main as cli_main
-from stridecast.demo_evaluation import ground_truth, held_out_states, position_errors, round_up
-from stridecast.demo_settings import (
+from stridecast.demo import crane
+from stridecast.demo import run as demo
+from stridecast.demo.evaluation import ground_truth, held_out_states, position_errors, round_up
+from stridecast.demo.settings import (
     BASE_STEP,
     EXAMPLE_MODES,
     FULL,
@@ -76,14 +77,14 @@ def test_a_missing_dependency_is_named_with_the_extras_to_install(monkeypatch, t
 
 def test_ship_refuses_the_quick_settings(capsys):
     with pytest.raises(SystemExit) as stopped:
-        demo._module_main(["--ship", "--quick"])
+        demo.module_main(["--ship", "--quick"])
     assert stopped.value.code == 2
     assert "--ship uses the full settings; drop --quick." in capsys.readouterr().err
 
 
 def test_importing_the_demo_loads_no_heavy_module():
     # `stridecast --help` builds the demo's parser; torch and friends load only when it runs.
-    code = ("import json, sys, stridecast.demo\n"
+    code = ("import json, sys, stridecast.demo.run, stridecast.cli\n"
             "print(json.dumps(sorted({m.split('.')[0] for m in sys.modules})))")
     output = subprocess.run([sys.executable, "-c", code], check=True, capture_output=True,
                             text=True).stdout
@@ -155,7 +156,7 @@ def test_shipped_bundle_runs_without_torch_or_scipy():
     # The runtime-only install: load, advance, and hybrid stepping on crane.vector_field.
     code = (
         "import json, sys\n"
-        "from stridecast import crane\n"
+        "from stridecast.demo import crane\n"
         "from stridecast.runtime import load\n"
         f"stepper = load({str(SHIPPED_BUNDLE)!r})\n"
         "state = [3.6178, -23.9374, 0.0, 0.0]\n"

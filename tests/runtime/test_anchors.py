@@ -2,10 +2,14 @@
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 
+from stridecast.runtime import TimeError
 from stridecast.runtime.anchors import (
+    MAX_BASE_STEPS,
     grid_positions,
     interpolation_anchors,
     interpolation_rows,
@@ -68,3 +72,19 @@ def test_interpolation_rows_reproduce_cubics_exactly():
                                rtol=1e-12, atol=1e-9)
     # Grid times are answered by their own grid state with weight 1.
     assert anchors[2, 0] == 7 and weights[2].tolist() == [1.0, 0.0, 0.0, 0.0]
+
+
+@pytest.mark.parametrize("time", [1e20, 1e300, 1.7e308])
+def test_times_beyond_exact_step_counts_are_refused_without_overflow(time):
+    # float64 holds every integer up to 2**53 exactly (IEEE 754 binary64, 53-bit significand);
+    # the runtime stops at 2**52 base steps. 1.7e308 / 0.04 overflows a plain division, so the
+    # guard must not divide (no RuntimeWarning, which pytest turns into an error here).
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with pytest.raises(TimeError, match=r"more than 2\*\*52 base steps \(0\.04\) ahead"):
+            grid_positions(np.array([0.0, time]), 0.04)
+
+
+def test_the_last_exact_time_is_accepted():
+    _, nearest, on_grid = grid_positions(np.array([MAX_BASE_STEPS * 0.5]), 0.5)
+    assert nearest[0] == 2**52 and on_grid[0]

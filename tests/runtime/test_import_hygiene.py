@@ -14,7 +14,8 @@ import pytest
 FORBIDDEN = ("torch", "onnx", "onnxruntime", "fastapi", "scipy", "starlette", "pydantic")
 
 
-@pytest.mark.parametrize("module", ["stridecast", "stridecast.runtime", "stridecast.cli"])
+@pytest.mark.parametrize(
+    "module", ["stridecast", "stridecast.runtime", "stridecast.cli", "stridecast.demo"])
 def test_no_heavy_imports(module):
     code = (
         f"import sys, json, {module}\n"
