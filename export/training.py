@@ -150,7 +150,7 @@ def train_levels(
         Whenever there is a validation loss, the weights of the best epoch are restored at the
         end (`history[stride]["best_epoch"]`, `"stop_reason"`). None never stops early.
     reduce : int, float or None
-        Train a reduced model (docs/export.md, "Reduced bundles"): an int r keeps r POD modes
+        Train a reduced model (docs/export.md, "Reduced models"): an int r keeps r POD modes
         (1 ≤ r < d), a float in (0, 1) keeps the fewest modes holding that share of the
         training states' energy. The normalisation then uses one scale per unit
         (`state_units`; one for all components without units), the levels step standardised
