@@ -64,8 +64,8 @@ def test_simulated_periods_match_the_string_with_an_end_mass(mode):
     truth = mooring.simulate(_shape_state(beta, parameters), times, parameters=parameters,
                              rtol=1e-10, atol=1e-14)
     # Sampled where the mode moves most: the boat for the sway, the first antinode otherwise.
-    node = parameters.nodes - 1 if mode == 0 else int(
-        round(0.5 * math.pi / beta * parameters.nodes)) - 1
+    node = (parameters.nodes - 1 if mode == 0
+            else round(0.5 * math.pi / beta * parameters.nodes) - 1)
     measured = _crossing_period(times, truth[:, node])
     assert measured == pytest.approx(period, rel=2e-3)
 
