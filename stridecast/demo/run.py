@@ -11,26 +11,25 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
-import importlib.util
 import sys
 import time
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, TextIO
 
 import numpy as np
 
 from stridecast.caution import CAUTION
-from stridecast.runtime import BundleError, StridecastError, load
+from stridecast.runtime import StridecastError, load
 
-from . import crane
+from . import crane, scenarios
 from . import output as demo_output
+from .common import check_dependencies, check_out, printer, timed, torch_threads
 from .evaluation import evaluate
 from .options import add_arguments
 from .plots import write_plots
 from .settings import (
     BASE_STEP,
+    DEFAULT_OUT,
     FULL,
     GROUND_TRUTH_TOLERANCE,
     QUICK,
@@ -40,15 +39,16 @@ from .settings import (
     DemoSettings,
 )
 
-# Imported by the demo's stages; checked up front so a missing one fails in a second, not
-# after minutes of training.
-NEEDED_MODULES = ("torch", "onnx", "scipy", "matplotlib", "tqdm")
-
 
 # ------------------------------------------------------------------------------ entry points
 def main(arguments: argparse.Namespace) -> int:
-    """Run `stridecast demo` with parsed `arguments`; return the exit status."""
-    run_demo(arguments.out, quick=arguments.quick, overwrite=arguments.overwrite,
+    """Run `stridecast demo` with parsed `arguments` (the scenario they name); exit status."""
+    return scenarios.main(arguments)
+
+
+def crane_main(arguments: argparse.Namespace) -> int:
+    """The crane scenario's runner (see `scenarios.SCENARIOS`)."""
+    run_demo(arguments.out or DEFAULT_OUT, quick=arguments.quick, overwrite=arguments.overwrite,
              progress=not arguments.no_progress, plots_dir=arguments.plots_dir)
     return 0
 
@@ -88,35 +88,35 @@ def run_demo(out: Path, *, quick: bool = False, overwrite: bool = False, progres
     """
     out = Path(out)
     settings = QUICK if quick else FULL
-    _check_out(out, overwrite)
-    _check_dependencies()
-    say = _printer(sys.stdout if stream is None else stream)
+    check_out(out, overwrite)
+    check_dependencies()
+    say = printer(sys.stdout if stream is None else stream)
     seconds: dict[str, float] = {}
     started = time.perf_counter()
     say(demo_output.introduction(settings))
 
-    with _timed(seconds, "data"):
+    with timed(seconds, "data"):
         trajectories = make_trajectories(settings, progress=progress)
     say(f"1. Ground truth: {len(trajectories)} trajectories of {settings.duration:g} s "
         f"({trajectories.shape[1]} samples every {BASE_STEP:g} s) from varied swings and "
         f"stretches, SciPy DOP853 at rtol {GROUND_TRUTH_TOLERANCE:g}, in {seconds['data']:.1f} s.")
-    with _timed(seconds, "training"), _torch_threads(1):
+    with timed(seconds, "training"), torch_threads(1):
         trained = train(trajectories, settings, progress=progress)
     say(f"2. Trained {len(trained.levels)} levels, strides {list(trained.strides)} base steps "
         f"({', '.join(f'{s * BASE_STEP:g}' for s in trained.strides)} s), hidden layers "
         f"{list(settings.hidden)}, in {seconds['training']:.1f} s.")
-    with _timed(seconds, "export"), _torch_threads(1):
+    with timed(seconds, "export"), torch_threads(1):
         bundle = export(trained, out, settings, overwrite=overwrite)
     say(f"   Exported and verified {bundle} in {seconds['export']:.1f} s.")
 
-    with _timed(seconds, "evaluation"):
+    with timed(seconds, "evaluation"):
         # The evaluation measures errors on purpose, also where states graze the envelope.
         stepper = load(bundle, on_extrapolation="ignore")
         evaluation = evaluate(stepper, settings)
     say(f"3. Reloaded with the NumPy-only runtime: {stepper!r}")
     say(demo_output.format_table(evaluation, settings))
     say(demo_output.format_hybrid(evaluation))
-    with _timed(seconds, "plots"):
+    with timed(seconds, "plots"):
         plots = write_plots(Path(plots_dir) if plots_dir else bundle, evaluation, settings)
     say(f"5. Plots: {plots[0]}\n          {plots[1]}")
     figures = demo_output.demo_figures(evaluation, settings)
@@ -191,54 +191,6 @@ def export(trained: Any, out: Path, settings: DemoSettings, *, overwrite: bool) 
                               exporter=settings.exporter, seed=SEED))
 
 
-# ----------------------------------------------------------------------------------- helpers
-def _check_out(out: Path, overwrite: bool) -> None:
-    """Refuse an existing `out` before minutes of work, not after."""
-    if (out.exists() or out.is_symlink()) and not overwrite:
-        raise BundleError(f"`--out` {str(out)!r} already exists; pass --overwrite to replace "
-                          "it, or choose another folder.")
-
-
-def _check_dependencies() -> None:
-    missing = [name for name in NEEDED_MODULES if importlib.util.find_spec(name) is None]
-    if missing:
-        raise StridecastError(
-            f"the demo needs {', '.join(missing)}, which is not installed; install the extras "
-            "with `pip install \"stridecast[export,demo]\"`."
-        )
-
-
-def _printer(stream: TextIO) -> Callable[[str], None]:
-    def say(text: str = "") -> None:
-        stream.write(text + "\n")
-        stream.flush()
-    return say
-
-
-@contextmanager
-def _timed(seconds: dict[str, float], name: str) -> Iterator[None]:
-    started = time.perf_counter()
-    yield
-    seconds[name] = time.perf_counter() - started
-
-
-@contextmanager
-def _torch_threads(count: int) -> Iterator[None]:
-    """Run torch on `count` threads, restoring the previous setting afterwards.
-
-    Networks this small gain nothing from intra-op threads, whose synchronisation costs more
-    than their arithmetic; on a busy 2-core machine it made training about 50 times slower.
-    """
-    import torch
-
-    previous = torch.get_num_threads()
-    torch.set_num_threads(count)
-    try:
-        yield
-    finally:
-        torch.set_num_threads(previous)
-
-
 def module_main(argv: list[str] | None = None) -> int:
     """`python -m stridecast.demo [--ship]`: the demo, or regenerate the shipped bundle."""
     parser = argparse.ArgumentParser(prog="python -m stridecast.demo",
@@ -252,6 +204,10 @@ def module_main(argv: list[str] | None = None) -> int:
     if arguments.ship:
         if arguments.quick:
             parser.error("--ship uses the full settings; drop --quick.")
+        if not scenarios.get_scenario(arguments.scenario).ships:
+            shipped = ", ".join(s.name for s in scenarios.SCENARIOS if s.ships)
+            parser.error(f"--ship regenerates the bundle shipped in the package, which only "
+                         f"the {shipped} scenario has; drop --ship.")
         arguments.out, arguments.overwrite = SHIPPED_BUNDLE, True
         arguments.plots_dir = arguments.plots_dir or Path("crane-demo-plots")
     try:

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 from stridecast.cli import main as cli_main
-from stridecast.demo import crane
+from stridecast.demo import common, crane
 from stridecast.demo import run as demo
 from stridecast.demo.evaluation import ground_truth, held_out_states, position_errors, round_up
 from stridecast.demo.settings import (
@@ -46,7 +46,8 @@ def _report(bundle) -> dict:
 # ----------------------------------------------------------------------------- the options
 def test_options_and_their_defaults():
     arguments = _arguments()
-    assert str(arguments.out) == "crane-demo.bundle"
+    assert arguments.out is None  # each scenario has its own default folder
+    assert arguments.scenario == "crane"
     assert (arguments.quick, arguments.overwrite, arguments.no_progress) == (False,) * 3
     assert arguments.plots_dir is None
     arguments = _arguments("--out", "x.bundle", "--quick", "--overwrite", "--no-progress",
@@ -66,8 +67,8 @@ def test_an_existing_folder_is_refused_before_any_work(tmp_path):
 
 
 def test_a_missing_dependency_is_named_with_the_extras_to_install(monkeypatch, tmp_path):
-    real = demo.importlib.util.find_spec
-    monkeypatch.setattr(demo.importlib.util, "find_spec",
+    real = common.importlib.util.find_spec
+    monkeypatch.setattr(common.importlib.util, "find_spec",
                         lambda name: None if name == "matplotlib" else real(name))
     with pytest.raises(StridecastError, match=r"the demo needs matplotlib, .*"
                                               r"stridecast\[export,demo\]"):
