@@ -71,7 +71,7 @@ def format_results(evaluation: FieldEvaluation, settings: FieldSettings) -> str:
     lines.append(
         f"   Speed: the runtime's forecast of all {len(evaluation.grid)} times took "
         f"{1e3 * figures['forecast_seconds']:.1f} ms ({figures['network_evaluations']} "
-        f"latent state-steps in {figures['network_calls']} batched network calls); SciPy "
+        f"latent network evaluations in {figures['network_calls']} batched calls); SciPy "
         f"integrating the full field took {figures['scipy_seconds']:.1f} s — "
         f"{figures['speedup']:.0f} times longer.")
     return "\n".join(lines)
