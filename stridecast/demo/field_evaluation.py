@@ -92,6 +92,8 @@ def held_out_states(count: int) -> np.ndarray:
     rng = np.random.default_rng(HELD_OUT_SEED)
     example = mooring.state_from_modes(np.array(EXAMPLE_AMPLITUDES),
                                        np.zeros(len(EXAMPLE_AMPLITUDES)))
+    if count == 1:
+        return example[None, :]
     return np.vstack([example, mooring.sample_initial_states(count - 1, rng)])
 
 

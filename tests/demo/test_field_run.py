@@ -40,6 +40,7 @@ def test_held_out_states_start_with_the_example():
     np.testing.assert_array_equal(states[0, 128:], 0.0)
     assert states[0, 127] == pytest.approx(EXAMPLE_AMPLITUDES[0], rel=0.05)
     np.testing.assert_array_equal(states, held_out_states(3))  # a fixed seed
+    np.testing.assert_array_equal(held_out_states(1), states[:1])  # the example alone
 
 
 def test_normalised_rms_is_the_root_mean_square_per_time():
