@@ -1,7 +1,8 @@
 """Figures of a field forecast: space–time images and the error against time.
 
 spacetime.png shows the example motion's displacement u(x, t) — SciPy truth, the runtime's
-forecast and their difference side by side, the validated horizon marked; field-error.png the
+forecast and their difference side by side, the validated horizon marked, and below them the
+middle of the line over the first and last seconds; field-error.png the
 held-out error against time with the bundle's tolerance. matplotlib is imported inside
 `write_plots`, with a file backend, so the demo runs headless.
 """
@@ -19,6 +20,7 @@ from .field_settings import EXAMPLE_LABEL, FieldSettings
 
 SPACETIME_PNG = "spacetime.png"
 FIELD_ERROR_PNG = "field-error.png"
+DETAIL_SECONDS = 4.0  # the line plots: about 7 string periods, a fifth of a sway
 
 
 def write_plots(directory: Path, evaluation: FieldEvaluation,
@@ -56,25 +58,44 @@ def _spacetime_figure(pyplot: Any, evaluation: FieldEvaluation, suffix: str) -> 
     forecast = evaluation.forecast[:, 0, :nodes]
     error = forecast - truth
     # x from the bollard (0) to the boat; t downwards, as a seismogram is read.
-    positions = np.concatenate([[0.0], mooring.DEFAULT_PARAMETERS.positions])
-    extent = (positions[0], positions[-1], evaluation.grid[-1], evaluation.grid[0])
+    positions = mooring.DEFAULT_PARAMETERS.positions
+    extent = (0.0, positions[-1], evaluation.grid[-1], evaluation.grid[0])
     limit = float(np.abs(truth).max()) or 1.0
-    figure, axes = pyplot.subplots(1, 3, figsize=(13, 6.5), sharey=True)
-    panels = ((axes[0], truth, "SciPy truth", limit),
-              (axes[1], forecast, "stridecast forecast (NumPy runtime)", limit),
-              (axes[2], error, "forecast − truth", float(np.abs(error).max()) or 1.0))
-    for axis, values, title, scale in panels:
+    figure = pyplot.figure(figsize=(13, 9))
+    layout = figure.add_gridspec(2, 3, height_ratios=(2.2, 1))
+    images = [figure.add_subplot(layout[0, column]) for column in range(3)]
+    panels = ((truth, "SciPy truth", limit),
+              (forecast, "stridecast forecast (NumPy runtime)", limit),
+              (error, "forecast − truth (own colour scale)", float(np.abs(error).max()) or 1.0))
+    for axis, (values, title, scale) in zip(images, panels, strict=True):
         image = axis.imshow(values, aspect="auto", extent=extent, cmap="RdBu_r",
                             vmin=-scale, vmax=scale, interpolation="nearest")
         figure.colorbar(image, ax=axis, label="displacement u [m]", fraction=0.05)
         _mark_horizon(axis, evaluation, vertical=False)
         axis.set_xlabel("position along the line x [m] (boat at the right)")
         axis.set_title(title, fontsize="medium")
-    axes[0].set_ylabel("time [s]")
+    images[0].set_ylabel("time [s]")
     if evaluation.validated_horizon is not None:
-        axes[0].legend(loc="lower left", fontsize="small")
-    figure.suptitle(f"Mooring line from the example state ({EXAMPLE_LABEL}){suffix}\n"
-                    "error panel on its own colour scale", fontsize="medium")
+        images[0].legend(loc="lower left", fontsize="small")
+    # The fast vibration riding on the slow sway, at the middle of the line.
+    middle = nodes // 2 - 1
+    for column, (title, window) in enumerate((
+            ("first", evaluation.grid <= DETAIL_SECONDS),
+            ("last", evaluation.grid >= evaluation.grid[-1] - DETAIL_SECONDS))):
+        axis = figure.add_subplot(layout[1, column])
+        axis.plot(evaluation.grid[window], truth[window, middle], color="black", lw=1.6,
+                  label="SciPy truth")
+        axis.plot(evaluation.grid[window], forecast[window, middle], color="tab:blue",
+                  lw=1.1, ls="--", label="forecast")
+        if column == 0:
+            _mark_horizon(axis, evaluation, vertical=True)
+        axis.set_xlabel("time [s]")
+        axis.set_ylabel(f"u at x = {positions[middle]:g} m [m]")
+        axis.set_title(f"{title.capitalize()} {DETAIL_SECONDS:g} s at mid-line: vibration on "
+                       "the sway", fontsize="medium")
+        axis.legend(fontsize="small", loc="upper right")
+    figure.suptitle(f"Mooring line from the example state ({EXAMPLE_LABEL}){suffix}",
+                    fontsize="medium")
     figure.tight_layout()
     return figure
 
