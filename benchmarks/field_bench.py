@@ -53,21 +53,23 @@ def solve(states: np.ndarray, times: np.ndarray, method: str, rtol: float) -> np
     return solution.y.T.reshape(len(times), count, dim)
 
 
-def _timed(function: Any) -> tuple[Any, float]:
-    started = time.perf_counter()
-    result = function()
-    return result, time.perf_counter() - started
-
-
 def matched(states: np.ndarray, times: np.ndarray, method: str, target: float,
             truth: np.ndarray, scale: np.ndarray) -> dict[str, Any]:
     """The loosest rung of `RTOL_LADDER` at which `method` is at least as accurate as
     `target`, with its wall time (one run: these take seconds) and error."""
     tried = []
     for rtol in RTOL_LADDER:
-        answer, seconds = _timed(lambda r=rtol: solve(states, times, method, r))
-        error = float(np.sqrt(np.mean(normalised_rms(answer, truth, scale) ** 2)))
-        tried.append({"rtol": rtol, "seconds": seconds, "error": error})
+        started = time.perf_counter()
+        try:
+            with np.errstate(all="ignore"):  # a loose rung may blow up; it is reported
+                answer = solve(states, times, method, rtol)
+            error = float(np.sqrt(np.mean(normalised_rms(answer, truth, scale) ** 2)))
+        except RuntimeError:  # solve_ivp gave up (its step underflowed)
+            error = math.inf
+        seconds = time.perf_counter() - started
+        # A rung that failed or blew up is recorded with error None (JSON has no infinity).
+        tried.append({"rtol": rtol, "seconds": seconds,
+                      "error": error if math.isfinite(error) else None})
         if error <= target:
             return {"method": method, "rtol": rtol, "seconds": seconds, "error": error,
                     "matched": True, "tried": tried}
@@ -111,16 +113,19 @@ def format_table(results: list[dict[str, Any]]) -> str:
                      f"{'':>7} {format_seconds(own['seconds']):>10} {'1':>12} "
                      f"{own['error']:>9.3g}")
         for peer in case["scipy"]:
+            error = "failed" if peer["error"] is None else format(peer["error"], ".3g")
             label = f"solve_ivp {peer['method']}" + ("" if peer["matched"] else " (unmatched)")
             lines.append(f"{'':>5} {'':>6}  {label:<22} {peer['rtol']:>7.0e} "
                          f"{format_seconds(peer['seconds']):>10} "
-                         f"{peer['seconds'] / own['seconds']:>12.0f} {peer['error']:>9.3g}")
+                         f"{peer['seconds'] / own['seconds']:>12.0f} "
+                         f"{error:>9}")
     lines.append("rungs tried (rtol: wall time, error) — the step is bounded by the line's "
                  "shortest discrete mode, so loose tolerances barely run faster:")
     for case in results:
         for peer in case["scipy"]:
             rungs = ", ".join(f"{rung['rtol']:.0e}: {format_seconds(rung['seconds'])}, "
-                              f"{rung['error']:.3g}" for rung in peer["tried"])
+                              + ("failed" if rung["error"] is None else f"{rung['error']:.3g}")
+                              for rung in peer["tried"])
             lines.append(f"  batch {case['batch']:>2} {peer['method']:<6} {rungs}")
     return "\n".join(lines)
 
