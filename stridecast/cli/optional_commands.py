@@ -19,8 +19,10 @@ from .parsing import DeprecatedAlias, add_command
 
 def register(subparsers) -> None:
     demo = add_command(
-        subparsers, "demo", "Train, export, reload and evaluate the harbour-crane demo.",
-               "stridecast demo --quick", "stridecast.cli.optional_commands:demo_command")
+        subparsers, "demo", "Train, export, reload and evaluate an invented harbour scenario "
+               "(the crane by default; --scenario mooring for a field).",
+               "stridecast demo --quick --scenario mooring",
+               "stridecast.cli.optional_commands:demo_command")
     add_demo_arguments(demo)
 
 
