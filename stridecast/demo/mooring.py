@@ -38,10 +38,11 @@ class MooringParameters:
         √(T0/μ) is 141 m/s and the line's first string mode 1.77 Hz.
     axial_stiffness : float
         EA, N: the tension is T0 + EA (ℓ − L)/L for a line of current length ℓ. Default 0.4 MN
-        (a soft synthetic line): the largest motions the demo trains on add about 1 % to the
-        tension and shift the frequencies by up to about 0.5 %, so that over a 5 s stride the
-        phase of the fastest excited mode depends on the amplitude by up to a tenth of a cycle —
-        mild enough to learn, not linear. 0 gives the linear limit of constant tension.
+        (a soft synthetic line): the largest motions the demo trains on add about 0.5 % to the
+        tension and shift the frequencies by up to about 0.25 %, so that over a 5 s stride the
+        phase of the fastest excited mode (27 cycles) depends on the amplitude by up to about
+        0.07 cycle — mild enough to learn, not linear. 0 gives the linear limit of constant
+        tension.
     boat_mass : float
         Mass of the workboat in sway (including added water mass), kg. Default 7600 kg: held
         only by the line's tension, it sways with a period of about 20 s.
