@@ -346,7 +346,7 @@ class Stepper:
                                            results, distinct)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
-            network_calls=sum(len(wave) for wave in schedule.waves),
+            network_calls=schedule.calls,
             depth=schedule.depth,
             integrator_evaluations=rk_total,
             methods=tuple(sorted({r.method for r in resolutions})),
@@ -398,7 +398,7 @@ class Stepper:
                                            None if weights is None else results, times)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
-            network_calls=sum(len(wave) for wave in schedule.waves),
+            network_calls=schedule.calls,
             depth=schedule.depth,
             integrator_evaluations=0,
             methods=tuple(sorted(methods)),

@@ -12,7 +12,9 @@ import numpy as np
 
 from .errors import OptionError, StateError, TimeError
 
+# The one list of each option's choices: the CLI, the service and the ensemble take them from here.
 OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
+DTYPES = ("float32", "float64")
 
 
 def check_state(state, *, names: Sequence[str], dtype: np.dtype, max_batch: int

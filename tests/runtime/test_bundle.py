@@ -138,6 +138,37 @@ def test_write_refuses_existing_and_overwrites_atomically(bundle):
     assert [p.name for p in bundle.parent.iterdir() if p.name.startswith(".")] == []
 
 
+def test_check_target_names_the_option_and_never_replaces_a_file(tmp_path):
+    # The one overwrite rule (runtime.bundle.check_target) that every writer calls.
+    bundle_module.check_target(tmp_path / "new.bundle", overwrite=False)  # nothing there: fine
+    existing = tmp_path / "old.bundle"
+    existing.mkdir()
+    with pytest.raises(BundleError, match=r"^`--out` '.*old\.bundle' already exists; pass "
+                                          r"--overwrite\.$"):
+        bundle_module.check_target(existing, overwrite=False, where="--out",
+                                   hint="pass --overwrite")
+    bundle_module.check_target(existing, overwrite=True)
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(BundleError, match=r"exists and is not a directory; refusing"):
+        bundle_module.check_target(tmp_path / "file", overwrite=True)
+    (tmp_path / "link").symlink_to(existing)
+    with pytest.raises(BundleError, match=r"exists and is not a directory; refusing"):
+        bundle_module.check_target(tmp_path / "link", overwrite=True)
+
+
+def test_write_report_replaces_the_file_whole_and_readable(bundle):
+    path = bundle_module.write_report(bundle, {"a": [1.5, None]})
+    assert json.loads(path.read_text()) == {"a": [1.5, None]}
+    assert path.stat().st_mode & 0o777 == 0o644  # bundles are read by other users
+    bundle_module.write_report(bundle, {"b": 2})
+    assert json.loads(path.read_text()) == {"b": 2}
+    # JSON has no NaN (RFC 8259, section 6): refused, and the old file stays as it was.
+    with pytest.raises(BundleError, match=r"`report` cannot be written as JSON"):
+        bundle_module.write_report(bundle, {"c": float("nan")})
+    assert json.loads(path.read_text()) == {"b": 2}
+    assert [p.name for p in bundle.iterdir() if p.name.startswith(".report")] == []
+
+
 def test_interrupted_write_leaves_nothing(tmp_path, monkeypatch, bundle):
     before = (bundle / "manifest.json").read_bytes()
 
