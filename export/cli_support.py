@@ -16,8 +16,9 @@ import torch
 
 from stridecast.runtime.bundle import check_target
 from stridecast.runtime.errors import BundleError, StateError
+from stridecast.runtime.validation import check_stride
 
-from .arguments import check_base_step, check_stride, level_pairs, same_base_step
+from .arguments import check_base_step, level_pairs, same_base_step
 from .bundle_export import export_bundle
 from .data import load_trajectories
 from .onnx_export import quiet_torch

@@ -90,7 +90,7 @@ def test_checksum_mismatch(bundle):
     (lambda d: d["normalization"].__setitem__("mean", [1.0]), "normalization.mean"),
     (lambda d: d.__setitem__("update", "multiply"), "`update`"),
     (lambda d: d["levels"][1].__setitem__("stride", 1), "distinct"),
-    (lambda d: d["levels"][1].__setitem__("stride", 0), "positive integer"),
+    (lambda d: d["levels"][1].__setitem__("stride", 0), "positive number of base steps"),
     (lambda d: d["levels"][1].__setitem__("sha256", "abc"), "hexadecimal"),
     (lambda d: d["state"].__setitem__("names", ["a", "a"]), "distinct"),
     (lambda d: d.__setitem__("levels", []), "non-empty"),
