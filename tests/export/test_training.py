@@ -12,7 +12,7 @@ from stridecast.export import TrainingError, export_bundle, train_levels
 from stridecast.export.training import window_loss
 from stridecast.export.windows import Ragged, gather_windows, window_starts
 from stridecast.runtime import BundleError, StateError, load
-from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
+from tests.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 BASE_STEP = 0.1
 TINY = {"hidden": (8,), "epochs": 2, "rollout": 2, "progress": False}
