@@ -183,10 +183,11 @@ def training_summary(trained: TrainedLevels, *, time_unit: str = "") -> list[str
     trained_strides = ", ".join(map(str, sorted(trained.history)))
     summary = (trained.validation or {}).get("summary")
     kept = ", ".join(map(str, trained.strides))
+    lines = [] if trained.reduction is None else [_reduction_line(trained.reduction)]
     if not summary:
-        return [f"levels kept: {kept} (all trained; no held-out data, so no selection and no "
-                "validated horizon)"]
-    lines = [f"levels kept: {kept} of {trained_strides}: {summary['why']}"]
+        return [*lines, f"levels kept: {kept} (all trained; no held-out data, so no selection "
+                "and no validated horizon)"]
+    lines.append(f"levels kept: {kept} of {trained_strides}: {summary['why']}")
     horizon = summary["validated_horizon"]
     tolerance = f"normalised RMS error ≤ {summary['tolerance']:g}"
     lines.append("validated horizon: " + (f"none ({tolerance} fails at the first check)"
@@ -197,6 +198,15 @@ def training_summary(trained: TrainedLevels, *, time_unit: str = "") -> list[str
                      f"error {_figure(at['hierarchical'])}, finest-only "
                      f"{_figure(at['finest_only'])}")
     return lines
+
+
+def _reduction_line(reduction: Mapping[str, Any]) -> str:
+    """The reduced model in one line: latent dimension, energy kept, reconstruction check."""
+    kept = reduction["energy_kept"]
+    return (f"reduced: {reduction['latent_dim']} latent coordinates for {reduction['state_dim']} "
+            f"components (POD), energy kept {100 * kept:.6g} % (lost {1 - kept:.3g}); "
+            "states whose reconstruction error exceeds "
+            f"{reduction['reconstruction']['threshold']:.3g} (normalised RMS) are unlike the data")
 
 
 def _figure(value: float | None) -> str:

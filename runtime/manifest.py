@@ -29,6 +29,7 @@ VALIDATION_METRICS = ("normalised_rms",)
 SAMPLES_FILE = "envelope/samples.npy"
 """The conventional path of the envelope samples inside a bundle."""
 ENCODER_FILE = "reduction/encoder.onnx"
+RECONSTRUCTION_METRIC = "normalised_rms"
 DECODER_FILE = "reduction/decoder.onnx"
 """The conventional paths of a reduced bundle's encoder and decoder."""
 _REQUIRED = {"format", "format_version", "state", "time", "normalization", "update", "levels"}
@@ -125,15 +126,24 @@ class Reduction:
     The encoder maps the normalised full state z = (x − mean) / scale, shape (B, d), to the
     latent (B, r); the levels map latent to latent (without normalisation); the decoder maps
     the latent (B, r) back to z, shape (B, d), and x = z · scale + mean.
+
+    `reconstruction_threshold` (optional, block `reconstruction`, metric "normalised_rms"):
+    a full state whose reconstruction error, the RMS over components of
+    z − decoder(encoder(z)), exceeds it is unlike the data the basis was fitted to.
     """
 
     latent_dim: int
     encoder: ModelFile
     decoder: ModelFile
+    reconstruction_threshold: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        return {"latent_dim": self.latent_dim, "encoder": self.encoder.to_dict(),
-                "decoder": self.decoder.to_dict()}
+        block = {"latent_dim": self.latent_dim, "encoder": self.encoder.to_dict(),
+                 "decoder": self.decoder.to_dict()}
+        if self.reconstruction_threshold is not None:
+            block["reconstruction"] = {"metric": RECONSTRUCTION_METRIC,
+                                       "threshold": self.reconstruction_threshold}
+        return block
 
 
 @dataclass(frozen=True)
@@ -355,7 +365,8 @@ def _model_files(levels: tuple[LevelEntry, ...], reduction: Reduction | None) ->
 
 
 def _reduction(value: Any, levels: tuple[LevelEntry, ...]) -> Reduction:
-    block = _object(value, "reduction", required={"latent_dim", "encoder", "decoder"})
+    block = _object(value, "reduction", required={"latent_dim", "encoder", "decoder"},
+                    optional={"reconstruction"})
     latent_dim = _positive_int(block["latent_dim"], "reduction.latent_dim")
     files = []
     for part in ("encoder", "decoder"):
@@ -378,7 +389,23 @@ def _reduction(value: Any, levels: tuple[LevelEntry, ...]) -> Reduction:
             f"`reduction.encoder.file` and `reduction.decoder.file` are both {files[0].file!r}; "
             "expected two files."
         )
-    return Reduction(latent_dim=latent_dim, encoder=files[0], decoder=files[1])
+    threshold = None
+    if block.get("reconstruction") is not None:
+        threshold = _reconstruction(block["reconstruction"])
+    return Reduction(latent_dim=latent_dim, encoder=files[0], decoder=files[1],
+                     reconstruction_threshold=threshold)
+
+
+def _reconstruction(value: Any) -> float:
+    block = _object(value, "reduction.reconstruction", required={"metric", "threshold"})
+    if block["metric"] != RECONSTRUCTION_METRIC:
+        raise BundleError(f"`reduction.reconstruction.metric` is {block['metric']!r}; expected "
+                          f"{RECONSTRUCTION_METRIC!r}.")
+    threshold = _finite(block["threshold"], "reduction.reconstruction.threshold")
+    if threshold <= 0:
+        raise BundleError(
+            f"`reduction.reconstruction.threshold` must be > 0; got {threshold!r}.")
+    return threshold
 
 
 def _validation(value: Any, dim: int) -> ValidationCurve:
