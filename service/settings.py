@@ -48,6 +48,15 @@ class Settings(BaseSettings):
     max_body_bytes, max_batch, max_forecast_points, max_forecast_values : int
         Request limits; larger requests get 413 (body) or 422. `max_forecast_values` bounds
         the numbers in one forecast answer (times x batch x d).
+    max_abs_value : float, optional
+        Largest magnitude of a state component (422 beyond). None: whatever the model's dtype
+        holds. A bound keeps a model's arithmetic from overflowing (an overflowing answer is a
+        422 the OpenAPI document cannot foresee); the document states the bound.
+    max_coarse_steps : int, optional
+        Evaluations of a model's coarsest level one answer may take; sets each model's longest
+        accepted time (this x largest stride x base step; 422 beyond). None: a quarter of the
+        runtime's per-query budget (250,000). Lower it so that the longest time fits in
+        `request_timeout`.
     request_timeout : float
         Wall-time budget of one request in seconds, queueing included; 504 when exceeded.
     max_concurrency : int
@@ -78,6 +87,8 @@ class Settings(BaseSettings):
     max_batch: int = Field(DEFAULT_MAX_BATCH, ge=1)
     max_forecast_points: int = Field(DEFAULT_MAX_FORECAST_POINTS, ge=1)
     max_forecast_values: int = Field(DEFAULT_MAX_FORECAST_VALUES, ge=1)
+    max_abs_value: float | None = Field(None, gt=0, allow_inf_nan=False)
+    max_coarse_steps: int | None = Field(None, ge=1)
     request_timeout: float = Field(DEFAULT_REQUEST_TIMEOUT, gt=0, allow_inf_nan=False)
     max_concurrency: int = Field(default_factory=_cpu_count, ge=1)
     max_waiting: int = Field(64, ge=0)

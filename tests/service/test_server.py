@@ -5,6 +5,8 @@ Expected numbers: the runtime called in this process on the same input (bitwise)
 
 from __future__ import annotations
 
+import select
+import socket
 import subprocess
 import sys
 
@@ -80,6 +82,42 @@ def test_uvicorn_process_answers_and_shuts_down(models_dir, token_file, stepper)
             assert 'route="/v1/models/{name}/advance",status="200"' in metrics
     finally:
         code = stop(process)
+    assert code == 0, process.stderr.read().decode()
+
+
+def test_413_reaches_a_client_still_trickling_a_chunked_body(models_dir, token_file):
+    # RFC 9112 §7.1 (chunked transfer coding) and RFC 9110 §15.5.14 (413: the server may close
+    # the connection to stop the client sending): the answer must reach a client that is still
+    # sending, not wait for a body that never ends.
+    process, base = start(models_dir, token_file)
+    port = int(base.rsplit(":", 1)[1])
+    piece, pieces = b" " * 256, 256  # 64 KiB of JSON whitespace against a 4 KiB limit
+    chunk = f"{len(piece):x}\r\n".encode() + piece + b"\r\n"
+    head = (b"POST /v1/models/oscillator/advance HTTP/1.1\r\nHost: 127.0.0.1\r\n"
+            b"Authorization: Bearer tok-123\r\nContent-Type: application/json\r\n"
+            b"Transfer-Encoding: chunked\r\n\r\n")
+    sent = 0
+    try:
+        with socket.create_connection(("127.0.0.1", port), timeout=30) as connection:
+            connection.sendall(head)
+            # One chunk at a time with a pause, until the answer is readable: a trickle.
+            while sent < pieces and not select.select([connection], [], [], 0.02)[0]:
+                connection.sendall(chunk)
+                sent += 1
+            answer = b""
+            while b"\r\n\r\n" not in answer:
+                data = connection.recv(65536)
+                if not data:
+                    break
+                answer += data
+    finally:
+        code = stop(process)
+    status_line, _, rest = answer.partition(b"\r\n")
+    assert status_line.split()[1] == b"413", answer
+    assert b"connection: close" in rest.lower()
+    # Answered after the limit was passed and long before the body's end (its last chunk and
+    # the terminating zero-size chunk were never sent).
+    assert 4096 // len(piece) <= sent < pieces
     assert code == 0, process.stderr.read().decode()
 
 
