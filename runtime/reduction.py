@@ -110,6 +110,29 @@ def _folded(stages: list[Stage], side: str, mean: np.ndarray, scale: np.ndarray,
                        input_scale=input_scale, policy=policy)
 
 
+def reconstruction_errors(states: np.ndarray, rebuilt: np.ndarray, scale: np.ndarray
+                          ) -> tuple[np.ndarray, np.ndarray]:
+    """How far decoder(encoder(x)) lies from x, per state (manifest metric "normalised_rms").
+
+    Parameters
+    ----------
+    states, rebuilt : ndarray, shape (B, d)
+        Full states x and their reconstructions x̂, physical units.
+    scale : ndarray, shape (d,)
+        The manifest's normalisation scale.
+
+    Returns
+    -------
+    errors : ndarray, shape (B,)
+        sqrt(mean_i ((x_i − x̂_i) / scale_i)²), in float64.
+    worst : ndarray, shape (d,)
+        (x − x̂) / scale of the state with the largest error (which components make it).
+    """
+    residual = (states.astype(np.float64) - rebuilt) / scale
+    errors = np.sqrt(np.mean(residual * residual, axis=1))
+    return errors, residual[int(np.argmax(errors))]
+
+
 @dataclass(frozen=True)
 class LatentMaps:
     """A loaded encoder/decoder pair.

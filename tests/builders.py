@@ -32,6 +32,7 @@ from stridecast.runtime import (
     LevelEntry,
     Manifest,
     ModelFile,
+    Reconstruction,
     Reduction,
     ValidationCurve,
     encode_samples,
@@ -152,13 +153,14 @@ def reduced_bundle(out: Path, latent_system: np.ndarray, basis: np.ndarray, *,
                    use_gemm: bool = False, encoder_matrix: np.ndarray | None = None,
                    envelope: tuple[Sequence[float], Sequence[float]] | None = None,
                    samples: np.ndarray | None = None, radius: float = 0.5,
-                   overwrite: bool = False) -> Path:
+                   reconstruction: float | None = None, overwrite: bool = False) -> Path:
     """A reduced bundle with exact latent flow maps: encoder z ↦ Vᵀz, level k the exact flow
     map expm(A_r k Δt) of y' = A_r y (scipy.linalg.expm; as an increment, that minus I),
     decoder y ↦ V y, with the manifest normalisation z = (x − mean)/scale on the full state.
 
     `basis` V is (d, r); `encoder_matrix` (r, d) replaces Vᵀ (e.g. to build a mismatched
-    bundle). `envelope` and `samples` are latent (length r; samples (count, r)).
+    bundle). `envelope` is the full-state box (length d each); `samples` are latent states
+    (count, r); `reconstruction` is the normalised-RMS threshold of the off-subspace check.
     """
     dim, latent_dim = basis.shape
     files = {}
@@ -192,7 +194,9 @@ def reduced_bundle(out: Path, latent_system: np.ndarray, basis: np.ndarray, *,
             file=SAMPLES_FILE, sha256=PLACEHOLDER_SHA, count=len(samples), radius=radius),
         reduction=Reduction(latent_dim=latent_dim,
                             encoder=ModelFile(ENCODER_FILE, PLACEHOLDER_SHA),
-                            decoder=ModelFile(DECODER_FILE, PLACEHOLDER_SHA)),
+                            decoder=ModelFile(DECODER_FILE, PLACEHOLDER_SHA),
+                            reconstruction=None if reconstruction is None else Reconstruction(
+                                "normalised_rms", float(reconstruction))),
     )
     return write_bundle(out, manifest, files, overwrite=overwrite, extra_files=extra)
 
