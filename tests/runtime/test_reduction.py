@@ -26,7 +26,6 @@ from stridecast.runtime import (
     ExtrapolationWarning,
     Manifest,
     ModelFormatError,
-    OptionError,
     load,
     parse_manifest,
     write_bundle,
