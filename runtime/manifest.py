@@ -25,10 +25,10 @@ _TOP_LEVEL = {
     "update", "levels", "envelope", "validated_horizon", "validation", "producer", "reduction",
 }
 VALIDATION_METRICS = ("normalised_rms",)
-RECONSTRUCTION_METRICS = ("normalised_rms",)
 SAMPLES_FILE = "envelope/samples.npy"
 """The conventional path of the envelope samples inside a bundle."""
 ENCODER_FILE = "reduction/encoder.onnx"
+RECONSTRUCTION_METRIC = "normalised_rms"
 DECODER_FILE = "reduction/decoder.onnx"
 """The conventional paths of a reduced bundle's encoder and decoder."""
 _REQUIRED = {"format", "format_version", "state", "time", "normalization", "update", "levels"}
@@ -119,47 +119,30 @@ class ModelFile:
 
 
 @dataclass(frozen=True)
-class Reconstruction:
-    """The manifest block `reduction.reconstruction`: when a full state is off the subspace.
-
-    Attributes
-    ----------
-    metric : str
-        "normalised_rms": for a state x and x̂ = decoder(encoder(x)), the root mean square
-        over the d components of (x − x̂) / scale (the manifest's normalisation scale).
-    threshold : float
-        A state whose error exceeds this is not well represented by the reduced basis (the
-        writer derives it from the training data's reconstruction errors).
-    """
-
-    metric: str
-    threshold: float
-
-    def to_dict(self) -> dict[str, Any]:
-        return {"metric": self.metric, "threshold": self.threshold}
-
-
-@dataclass(frozen=True)
 class Reduction:
     """The manifest block `reduction`: the levels run in a latent space of `latent_dim`.
 
     The encoder maps the normalised full state z = (x − mean) / scale, shape (B, d), to the
     latent (B, r); the levels map latent to latent (without normalisation); the decoder maps
-    the latent (B, r) back to z, shape (B, d), and x = z · scale + mean. `reconstruction`,
-    when recorded, is the threshold of the full-space reconstruction-error check.
+    the latent (B, r) back to z, shape (B, d), and x = z · scale + mean.
+
+    `reconstruction_threshold` (optional, block `reconstruction`, metric "normalised_rms"):
+    a full state whose reconstruction error, the RMS over components of
+    z − decoder(encoder(z)), exceeds it is unlike the data the basis was fitted to.
     """
 
     latent_dim: int
     encoder: ModelFile
     decoder: ModelFile
-    reconstruction: Reconstruction | None = None
+    reconstruction_threshold: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        document = {"latent_dim": self.latent_dim, "encoder": self.encoder.to_dict(),
-                    "decoder": self.decoder.to_dict()}
-        if self.reconstruction is not None:
-            document["reconstruction"] = self.reconstruction.to_dict()
-        return document
+        block = {"latent_dim": self.latent_dim, "encoder": self.encoder.to_dict(),
+                 "decoder": self.decoder.to_dict()}
+        if self.reconstruction_threshold is not None:
+            block["reconstruction"] = {"metric": RECONSTRUCTION_METRIC,
+                                       "threshold": self.reconstruction_threshold}
+        return block
 
 
 @dataclass(frozen=True)
@@ -191,8 +174,7 @@ class Manifest:
     @property
     def level_dim(self) -> int:
         """The length of the states the levels map: the latent dimension of a reduced
-        bundle, else the state dimension (also the width of the envelope samples; the
-        envelope's min/max box is always on the full state)."""
+        bundle, else the state dimension (also the length of the envelope)."""
         return self.state_dim if self.reduction is None else self.reduction.latent_dim
 
     @property
@@ -320,14 +302,15 @@ def parse_manifest(document: Any) -> Manifest:
     reduction = document.get("reduction")
     if reduction is not None:
         reduction = _reduction(reduction, levels)
-    # The min/max box is on full states; the samples are states the levels visit (latent in
-    # a reduced bundle; their width is checked when the file is read).
+    # The envelope describes the states the levels visit: latent in a reduced bundle.
+    space = dim if reduction is None else reduction.latent_dim
+
     envelope_min = envelope_max = samples = None
     envelope = document.get("envelope")
     if envelope is not None:
         envelope = _object(envelope, "envelope", required={"min", "max"}, optional={"samples"})
-        envelope_min = _floats(envelope["min"], "envelope.min", dim)
-        envelope_max = _floats(envelope["max"], "envelope.max", dim)
+        envelope_min = _floats(envelope["min"], "envelope.min", space)
+        envelope_max = _floats(envelope["max"], "envelope.max", space)
         if any(lo > hi for lo, hi in zip(envelope_min, envelope_max, strict=True)):
             raise BundleError("`envelope.min` must not exceed `envelope.max` in any component.")
         if envelope.get("samples") is not None:
@@ -405,27 +388,23 @@ def _reduction(value: Any, levels: tuple[LevelEntry, ...]) -> Reduction:
             f"`reduction.encoder.file` and `reduction.decoder.file` are both {files[0].file!r}; "
             "expected two files."
         )
-    reconstruction = block.get("reconstruction")
-    if reconstruction is not None:
-        reconstruction = _reconstruction(reconstruction)
+    threshold = None
+    if block.get("reconstruction") is not None:
+        threshold = _reconstruction(block["reconstruction"])
     return Reduction(latent_dim=latent_dim, encoder=files[0], decoder=files[1],
-                     reconstruction=reconstruction)
+                     reconstruction_threshold=threshold)
 
 
-def _reconstruction(value: Any) -> Reconstruction:
+def _reconstruction(value: Any) -> float:
     block = _object(value, "reduction.reconstruction", required={"metric", "threshold"})
-    metric = _string(block["metric"], "reduction.reconstruction.metric")
-    if metric not in RECONSTRUCTION_METRICS:
-        raise BundleError(
-            f"`reduction.reconstruction.metric` is {metric!r}; expected one of "
-            f"{list(RECONSTRUCTION_METRICS)}."
-        )
+    if block["metric"] != RECONSTRUCTION_METRIC:
+        raise BundleError(f"`reduction.reconstruction.metric` is {block['metric']!r}; expected "
+                          f"{RECONSTRUCTION_METRIC!r}.")
     threshold = _finite(block["threshold"], "reduction.reconstruction.threshold")
     if threshold <= 0:
         raise BundleError(
-            f"`reduction.reconstruction.threshold` must be > 0; got {threshold!r}."
-        )
-    return Reconstruction(metric=metric, threshold=threshold)
+            f"`reduction.reconstruction.threshold` must be > 0; got {threshold!r}.")
+    return threshold
 
 
 def _validation(value: Any, dim: int) -> ValidationCurve:

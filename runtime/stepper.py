@@ -101,9 +101,15 @@ class Stepper:
         self._source = source
         self._samples = envelope_samples
         # A reduced bundle: `_states` encodes every full state it checks and `_full` decodes
-        # the answers; everything between (plans, waves, interpolation, the envelope
-        # samples) runs on latent states.
+        # the answers; everything between (plans, waves, interpolation, the envelope) runs on
+        # latent states. Given full states are also checked against the reconstruction
+        # threshold (`_off_subspace`), when the bundle records one.
         self._reduction = reduction
+        self._threshold = None if reduction is None else (
+            manifest.reduction.reconstruction_threshold)
+        space = manifest.level_dim
+        level_mean, level_scale = ((manifest.mean, manifest.scale) if reduction is None
+                                   else ((0.0,) * space, (1.0,) * space))
         self._planner = StridePlanner(self._kernels, max_steps=limits.max_steps_per_query)
         self._hybrid_planners: dict[int, StridePlanner] = {}
         self._lock = threading.Lock()
@@ -113,27 +119,11 @@ class Stepper:
         self._envelope = None if lower is None else (
             np.asarray(lower, dtype=np.float64), np.asarray(manifest.envelope_max, np.float64))
         entry = manifest.envelope_samples
-        samples = envelope_samples if entry is not None else None
-        radius = entry.radius if entry is not None else 1.0
-        # `_data_envelope` checks the states the levels visit. In a reduced bundle those are
-        # latent, while the min/max box is on full states: the box then lives in `_full_box`
-        # (checked on the given states and the decoded answers, not widened: the samples are
-        # in another space) and `reconstruction` is the off-subspace threshold.
-        self._full_box = None
-        self._reconstruction = None
-        if reduction is None:
-            self._data_envelope = Envelope(
-                lower, manifest.envelope_max, mean=manifest.mean, scale=manifest.scale,
-                samples=samples, radius=radius, max_work=limits.max_envelope_work)
-        else:
-            space = reduction.latent_dim
-            self._data_envelope = Envelope(None, None, mean=(0.0,) * space,
-                                           scale=(1.0,) * space, samples=samples,
-                                           radius=radius, max_work=limits.max_envelope_work)
-            if lower is not None:
-                self._full_box = Envelope(lower, manifest.envelope_max, mean=manifest.mean,
-                                          scale=manifest.scale)
-            self._reconstruction = manifest.reduction.reconstruction
+        self._data_envelope = Envelope(
+            lower, manifest.envelope_max, mean=level_mean, scale=level_scale,
+            samples=envelope_samples if entry is not None else None,
+            radius=entry.radius if entry is not None else 1.0,
+            max_work=limits.max_envelope_work)
 
     # ----------------------------------------------------------------- descriptive attributes
     @property
@@ -298,7 +288,7 @@ class Stepper:
             level_answer = result[None] if off_path and (
                 self._reduction is None or not integrated) else None
             found = self._path_findings(states, visits, visited, level_answer, times)
-        found += self._full_findings(full, states, answer[None], times)
+        found += self._off_subspace(full, states)
         if found:
             plan = replace(plan, findings=found + plan.findings)
         warn_or_raise(plan.findings, self._policy)
@@ -331,7 +321,7 @@ class Stepper:
         else:
             output, info = self._forecast_integrated(states, distinct, off_grid, vector_field,
                                                      hybrid_below)
-        found = self._full_findings(full, states, output, distinct)
+        found = self._off_subspace(full, states)
         output = output[inverse.reshape(-1)]
         findings = found + info.findings + self._horizon_findings(distinct)
         info = replace(info, findings=findings,
@@ -463,7 +453,7 @@ class Stepper:
 
     def outside_envelope(self, state: np.ndarray) -> np.ndarray:
         """Per state, whether any component lies outside the training envelope."""
-        _, single, states = self._states(state)
+        states, single, _ = self._states(state)
         if self._envelope is None:
             flags = np.zeros(states.shape[0], dtype=bool)
         else:
@@ -510,7 +500,7 @@ class Stepper:
         """
         batch, _, full = self._states(states)
         findings = self._envelope_findings(batch[None], np.zeros(1), path=False)
-        findings += self._full_findings(full, batch, None, None)
+        findings += self._off_subspace(full, batch)
         if t is not None:
             times = (np.array([check_time(t, unit=self._manifest.time_unit)]) if np.ndim(t) == 0
                      else check_times(t, max_points=self._limits.max_forecast_points))
@@ -549,7 +539,6 @@ class Stepper:
                          limits=self._limits, source=self._source,
                          on_extrapolation=self._policy, reduction=self._reduction)
         subset._data_envelope = self._data_envelope  # immutable; share its precomputed norms
-        subset._full_box = self._full_box
         return subset
 
     def _horizon_findings(self, times: np.ndarray) -> tuple[Finding, ...]:
@@ -591,37 +580,19 @@ class Stepper:
             return ()  # nothing to report: spare the copy of every visited state
         return self._envelope_findings(np.concatenate(parts), times, path=True)
 
-    def _full_findings(self, full: np.ndarray, states: np.ndarray,
-                       answers: np.ndarray | None, answer_times: np.ndarray | None
-                       ) -> tuple[Finding, ...]:
-        """A reduced bundle's checks in the full space: the given states `full` (B, d) and
-        the decoded `answers` (T, B, d) at `answer_times` against the min/max box, and the
-        given states against the reconstruction threshold (`states`: their latent codes).
-        Nothing for a bundle without reduction (its box is checked on the path)."""
-        if self._reduction is None:
+    def _off_subspace(self, full: np.ndarray, states: np.ndarray) -> tuple[Finding, ...]:
+        """A reduced bundle's full-space check of the given states `full` (B, d), latent
+        codes `states` (B, r): the reconstruction error against the bundle's threshold (none
+        recorded, or no reduction: nothing to check). Intermediate states are latent and
+        meet the envelope on the path instead."""
+        if self._threshold is None:
             return ()
-        found: tuple[Finding, ...] = ()
-        box = self._full_box
-        if box is not None:
-            parts, times = [full[None]], np.zeros(1)
-            if answers is not None:
-                parts.append(answers)
-                times = np.concatenate((times, answer_times))
-            if not all(map(box.inside_box, parts)):
-                manifest = self._manifest
-                found += envelope_findings(
-                    box.assess(np.concatenate(parts), times), names=manifest.state_names,
-                    units=manifest.state_units, lower=box.lower, upper=box.upper, radius=None,
-                    visit_times=answers is not None, unit=manifest.time_unit)
-        check = self._reconstruction
-        if check is not None:
-            # One decoder call over the given states: the cost of the check.
-            rebuilt = self._reduction.decode(states, self.state_dim)
-            errors, worst = reconstruction_errors(full, rebuilt.astype(np.float64),
-                                                  np.asarray(self._manifest.scale))
-            found += reconstruction_findings(errors, worst, threshold=check.threshold,
-                                             names=self._manifest.state_names)
-        return found
+        # One decoder call over the given states: the whole cost of the check.
+        rebuilt = self._reduction.decode(states, self.state_dim)
+        errors, worst = reconstruction_errors(full, rebuilt.astype(np.float64),
+                                              np.asarray(self._manifest.scale))
+        return reconstruction_findings(errors, worst, threshold=self._threshold,
+                                       names=self._manifest.state_names)
 
     # ------------------------------------------------------------------------------ internals
     def _resolve(self, t: float, off_grid: str, vector_field: VectorField | None,

@@ -32,7 +32,6 @@ from stridecast.runtime import (
     LevelEntry,
     Manifest,
     ModelFile,
-    Reconstruction,
     Reduction,
     ValidationCurve,
     encode_samples,
@@ -159,8 +158,8 @@ def reduced_bundle(out: Path, latent_system: np.ndarray, basis: np.ndarray, *,
     decoder y ↦ V y, with the manifest normalisation z = (x − mean)/scale on the full state.
 
     `basis` V is (d, r); `encoder_matrix` (r, d) replaces Vᵀ (e.g. to build a mismatched
-    bundle). `envelope` is the full-state box (length d each); `samples` are latent states
-    (count, r); `reconstruction` is the normalised-RMS threshold of the off-subspace check.
+    bundle). `envelope` and `samples` are latent (length r; samples (count, r));
+    `reconstruction` is the normalised-RMS threshold of the off-subspace check.
     """
     dim, latent_dim = basis.shape
     files = {}
@@ -195,8 +194,7 @@ def reduced_bundle(out: Path, latent_system: np.ndarray, basis: np.ndarray, *,
         reduction=Reduction(latent_dim=latent_dim,
                             encoder=ModelFile(ENCODER_FILE, PLACEHOLDER_SHA),
                             decoder=ModelFile(DECODER_FILE, PLACEHOLDER_SHA),
-                            reconstruction=None if reconstruction is None else Reconstruction(
-                                "normalised_rms", float(reconstruction))),
+                            reconstruction_threshold=reconstruction),
     )
     return write_bundle(out, manifest, files, overwrite=overwrite, extra_files=extra)
 

@@ -167,7 +167,7 @@ def test_envelope_samples_are_checked_on_latent_states(tmp_path, system):
     # states (the decay moves them away by more than the radius) are not.
     path = reduced_bundle(tmp_path / "b", latent, basis, base_step=BASE_STEP, strides=STRIDES,
                           mean=STEADY, scale=SCALE, samples=start, radius=1e-3,
-                          envelope=(STEADY - 1e3, STEADY + 1e3))  # a full box that never binds
+                          envelope=(start[0] - 1e3, start[0] + 1e3))  # a box that never binds
     stepper = load(path, dtype="float64")
     assert not stepper.outside_envelope(states[0])
     with pytest.warns(ExtrapolationWarning, match=r"far from the training data.*latent\["):
@@ -275,13 +275,13 @@ def test_bad_reduction_blocks_are_refused(change, message):
         parse_manifest(_manifest(**change))
 
 
-def test_envelope_box_of_a_reduced_bundle_has_the_full_length():
+def test_envelope_of_a_reduced_bundle_has_the_latent_length():
     document = _manifest()
-    document["envelope"] = {"min": [0, 0], "max": [1, 1]}
-    with pytest.raises(BundleError, match="list of 3 finite numbers"):
-        parse_manifest(document)
     document["envelope"] = {"min": [0, 0, 0], "max": [1, 1, 1]}
-    assert parse_manifest(document).envelope_min == (0.0, 0.0, 0.0)
+    with pytest.raises(BundleError, match="list of 2 finite numbers"):
+        parse_manifest(document)
+    document["envelope"] = {"min": [0, 0], "max": [1, 1]}
+    assert parse_manifest(document).envelope_min == (0.0, 0.0)
 
 
 def test_write_bundle_needs_the_reduction_files(tmp_path):
@@ -313,29 +313,21 @@ def _off_subspace(basis: np.ndarray, size: float) -> np.ndarray:
     return direction * size * np.sqrt(N) / np.linalg.norm(direction)
 
 
-def test_full_box_is_checked_on_given_states_and_decoded_answers(tmp_path, system):
+def test_envelope_box_is_checked_on_latent_states(tmp_path, system):
     latent, basis = system
-    states = initial_states(2)
-    deviation = np.abs(states - STEADY).max()
+    states = initial_states(1)
+    start = ((states - STEADY) / SCALE) @ basis
+    lower, upper = start[0] - 1e-3, start[0] + 1e-3  # only the start is inside
     path = reduced_bundle(tmp_path / "b", latent, basis, base_step=BASE_STEP, strides=STRIDES,
-                          mean=STEADY, scale=SCALE,
-                          envelope=(STEADY - 2 * deviation, STEADY + 2 * deviation))
-    stepper = load(path, dtype="float64", on_extrapolation="ignore")
+                          mean=STEADY, scale=SCALE, envelope=(lower, upper))
+    stepper = load(path, dtype="float64")
+    assert not stepper.outside_envelope(states[0])
+    with pytest.warns(ExtrapolationWarning, match=r"latent\["):
+        stepper.advance(states[0], 20.0)
     assert stepper.check(states) == ()
-    assert stepper.manifest.envelope_min == tuple(STEADY - 2 * deviation)
-    hot = states.copy()
-    hot[1, 5] = STEADY[5] + 3 * deviation  # one component past the full-state box
-    assert list(stepper.outside_envelope(hot)) == [False, True]
+    hot = states[0] + SCALE * (basis @ np.full(LATENT, 1.0))  # latent start moved by 1
     [finding] = stepper.check(hot)
-    assert finding.kind == "outside_box" and finding.states == (1,)
-    assert finding.components[0] == "u5" and finding.t is None
-    # An answer outside the box: a box that only the (decaying) start fits.
-    tight = reduced_bundle(tmp_path / "t", latent, basis, base_step=BASE_STEP,
-                           strides=STRIDES, mean=STEADY, scale=SCALE,
-                           envelope=(states.min(axis=0), states.max(axis=0)))
-    stepper = load(tight, dtype="float64")
-    with pytest.warns(ExtrapolationWarning, match=r"leave the training range .*first at t = 6\.4"):
-        stepper.forecast(states, [6.4, 12.8])
+    assert finding.kind == "outside_box" and finding.components[0].startswith("latent[")
 
 
 def test_reconstruction_error_is_checked_on_the_given_states(tmp_path, system):
@@ -343,7 +335,7 @@ def test_reconstruction_error_is_checked_on_the_given_states(tmp_path, system):
     path = reduced_bundle(tmp_path / "b", latent, basis, base_step=BASE_STEP, strides=STRIDES,
                           mean=STEADY, scale=SCALE, reconstruction=0.05)
     stepper = load(path, dtype="float64")
-    assert stepper.manifest.reduction.reconstruction.threshold == 0.05
+    assert stepper.manifest.reduction.reconstruction_threshold == 0.05
     inside = STEADY + SCALE * (basis @ np.linspace(-3.0, 3.0, LATENT))  # in the span: error 0
     off = inside + SCALE * _off_subspace(basis, 0.2)
     assert stepper.check(inside) == ()
