@@ -39,7 +39,7 @@ from stridecast.runtime import (
     load,
     write_bundle,
 )
-from stridecast.runtime.bundle import REPORT_NAME, move_into_place
+from stridecast.runtime.bundle import check_target, move_into_place, write_report
 from stridecast.runtime.errors import BundleError
 
 from . import plots, validity
@@ -163,8 +163,10 @@ def export_bundle(
         and the levels map latent to latent (B, r) → (B, r) under `update`. Both are
         exported and verified like levels; each level is verified through encoder, level
         and decoder. `envelope` then only bounds the verification states (the manifest's
-        envelope would be latent); `envelope_samples` and `TrainedLevels` are not supported
-        with them yet.
+        envelope is latent); `envelope_samples` are physical full states, encoded for the
+        latent envelope. A `TrainedLevels` from `train_levels(reduce=...)` brings its POD
+        basis as encoder and decoder (then neither may be given), its latent envelope and
+        its reconstruction-error threshold (manifest `reduction.reconstruction`).
 
     Returns
     -------
@@ -180,12 +182,16 @@ def export_bundle(
         torch, the runtime and onnxruntime disagree; nothing is left under `out`.
     """
     trained = levels if isinstance(levels, TrainedLevels) else None
-    reducing = _check_reduction_arguments(encoder, decoder, trained, envelope_samples)
+    reducing = _check_reduction_arguments(encoder, decoder, trained)
     if trained is not None:
         base_step, mean, scale, envelope, validation, state_names, units = _from_trained(
             trained, base_step=base_step, mean=mean, scale=scale, update=update,
             envelope=envelope, validation=validation, state_names=state_names, units=units)
         pairs = level_pairs(trained.levels)
+        if trained.basis is not None:
+            encoder, decoder = trained.basis.encoder_module(), trained.basis.decoder_module()
+            if verify_states is None:
+                verify_states = _decoded_samples(trained)
     else:
         pairs = level_pairs(levels)
     if base_step is None:
@@ -193,7 +199,7 @@ def export_bundle(
     exporter = check_exporter(exporter)
     validation = _json_ready(validation, "validation")
     target = Path(out)
-    _check_target(target, overwrite)
+    check_target(target, overwrite=overwrite)
 
     state_dim = declared_state_dim(mean=mean, scale=scale, state_names=state_names, units=units,
                                    envelope=envelope)
@@ -221,20 +227,24 @@ def export_bundle(
         reduced, level_example = _export_reduction(encoder, decoder, example, exporter=exporter,
                                                    opset=opset)
         level_dim = level_example.shape[1]
-        spec = replace(spec, envelope_min=None, envelope_max=None)  # a full-space box
+        # The manifest's box describes the latent states the levels step.
+        box = _latent_box(spec, trained, physical_samples, reduced)
+        spec = replace(spec, envelope_min=box and box[0], envelope_max=box and box[1])
     prepared = {stride: prepare_level(stride, level, level_dim, level_example)
                 for stride, level in pairs}
     for level in prepared.values():
         resolve_exporter(level, exporter)  # refuse a mismatch before any slow export
     exported = _export_levels(prepared, exporter=exporter, example=level_example, opset=opset,
                               progress=progress)
-    samples = _envelope(spec, trained, physical_samples, envelope_radius)
+    samples = _envelope(spec, trained, physical_samples, envelope_radius, reduced)
     manifest = _manifest(spec, exported, curve, samples)
     extra_files = {} if samples is None else {SAMPLES_FILE: encode_samples(samples[0])}
     if reduced is not None:
         manifest = replace(manifest, reduction=Reduction(
             latent_dim=level_dim, encoder=ModelFile(ENCODER_FILE, _PLACEHOLDER_SHA),
-            decoder=ModelFile(DECODER_FILE, _PLACEHOLDER_SHA)))
+            decoder=ModelFile(DECODER_FILE, _PLACEHOLDER_SHA),
+            reconstruction_threshold=None if trained is None
+            else trained.reconstruction_threshold))
         extra_files |= {ENCODER_FILE: reduced.encoder_bytes, DECODER_FILE: reduced.decoder_bytes}
 
     target.parent.mkdir(parents=True, exist_ok=True)
@@ -251,9 +261,8 @@ def export_bundle(
         if samples is not None:
             report["envelope"] = {"samples": len(samples[0]), "radius": samples[1],
                                   "file": SAMPLES_FILE, "units": "normalised"}
-        (staged / REPORT_NAME).write_text(json.dumps(report, indent=2, allow_nan=False) + "\n",
-                                          encoding="utf-8")
-        _check_target(target, overwrite)
+        write_report(staged, report)
+        check_target(target, overwrite=overwrite)
         move_into_place(staged, target)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
@@ -261,24 +270,57 @@ def export_bundle(
     return target
 
 
-def _check_reduction_arguments(encoder: Any, decoder: Any, trained: TrainedLevels | None,
-                               envelope_samples: Any) -> bool:
-    """Whether the bundle is reduced; refuses half a pair and what is not supported yet."""
+def _check_reduction_arguments(encoder: Any, decoder: Any,
+                               trained: TrainedLevels | None) -> bool:
+    """Whether the bundle is reduced; refuses half a pair and a pair that contradicts
+    `TrainedLevels` (whose basis is the encoder and decoder, or whose levels step full states)."""
+    trained_basis = trained is not None and trained.basis is not None
     if encoder is None and decoder is None:
-        return False
+        return trained_basis
     if encoder is None or decoder is None:
         given, missing = ("encoder", "decoder") if decoder is None else ("decoder", "encoder")
         raise BundleError(
             f"`{given}` was given without `{missing}`; a reduced bundle needs both (or "
             "neither)."
         )
+    if trained_basis:
+        raise BundleError("`encoder`/`decoder` cannot be given with TrainedLevels trained with "
+                          "`reduce`: their POD basis is the encoder and decoder.")
     if trained is not None:
-        raise BundleError("`encoder`/`decoder` cannot be given with TrainedLevels yet; pass "
-                          "the latent levels as a mapping of stride to module.")
-    if envelope_samples is not None:
-        raise BundleError("`envelope_samples` cannot be given with `encoder`/`decoder` yet "
-                          "(a reduced bundle's envelope is latent).")
+        raise BundleError("`encoder`/`decoder` cannot be given with TrainedLevels trained "
+                          "without `reduce`: their levels step full states. Train with "
+                          "`reduce`, or pass the latent levels as a mapping of stride to "
+                          "module.")
     return True
+
+
+def _decoded_samples(trained: TrainedLevels) -> np.ndarray | None:
+    """A reduced model's latent envelope samples as physical full states: realistic
+    verification states (a box in d dimensions is mostly far from the data's subspace)."""
+    if trained.envelope_samples is None or trained.basis is None:
+        return None
+    z = trained.basis.decode(np.asarray(trained.envelope_samples, dtype=np.float64))
+    return z * np.asarray(trained.scale) + np.asarray(trained.mean)
+
+
+def _encoded(reduced: ReducedNetworks, physical: np.ndarray, spec: ExportSpec) -> np.ndarray:
+    """Physical full states (M, d) through the encoder: latent states (M, r), float64."""
+    normalised = (physical - np.asarray(spec.mean)) / np.asarray(spec.scale)
+    with torch.no_grad():
+        latent = reduced.encoder.call(torch.from_numpy(normalised.astype(np.float32)))
+    return latent.detach().double().numpy()
+
+
+def _latent_box(spec: ExportSpec, trained: TrainedLevels | None, physical: np.ndarray | None,
+                reduced: ReducedNetworks) -> tuple[tuple[float, ...], tuple[float, ...]] | None:
+    """A reduced bundle's envelope box (latent): the trained one, else that of the encoded
+    envelope samples, else none (a full-space `envelope` only bounds verification states)."""
+    if trained is not None and trained.basis is not None and trained.envelope_min is not None:
+        return tuple(trained.envelope_min), tuple(trained.envelope_max)
+    if physical is None:
+        return None
+    latent = _encoded(reduced, physical, spec)
+    return tuple(map(float, latent.min(axis=0))), tuple(map(float, latent.max(axis=0)))
 
 
 def _export_reduction(encoder: Any, decoder: Any, example: torch.Tensor, *, exporter: str,
@@ -354,10 +396,13 @@ def _validated_horizon(curve: Mapping[str, Any] | None,
 
 
 def _envelope(spec: ExportSpec, trained: TrainedLevels | None, physical: np.ndarray | None,
-              radius: float | None) -> tuple[np.ndarray, float] | None:
-    """The normalised envelope samples and radius to write, or None."""
+              radius: float | None, reduced: ReducedNetworks | None
+              ) -> tuple[np.ndarray, float] | None:
+    """The normalised (latent, for a reduced bundle) envelope samples and radius to write,
+    or None."""
     if physical is not None:
-        normalised = (physical - np.asarray(spec.mean)) / np.asarray(spec.scale)
+        normalised = ((physical - np.asarray(spec.mean)) / np.asarray(spec.scale)
+                      if reduced is None else _encoded(reduced, physical, spec))
         samples, learned = data_envelope([normalised])
         return samples, learned if radius is None else check_radius(radius)
     if trained is not None and trained.envelope_samples is not None:
@@ -402,6 +447,8 @@ def _report(staged: Path, spec: ExportSpec, verification: dict[str, Any],
     if trained is not None:
         report["training"] = {"settings": dict(trained.settings),
                               "history": trained.history_json()}
+        if trained.reduction is not None:
+            report["reduction"] = dict(trained.reduction)
         if trained.forecast_example is not None:
             report["plots"] = plots.write_plots(staged, trained.forecast_example, validation,
                                                 spec.state_names, state_units=spec.state_units,
@@ -427,7 +474,9 @@ def _from_trained(trained: TrainedLevels, *, base_step, mean, scale, update, env
         raise BundleError(
             f"`update` is {update!r} but the levels were trained with {trained.update!r}."
         )
-    if envelope is None and trained.envelope_min is not None:
+    # A reduced model's box is latent: it becomes the manifest's box later, not the
+    # full-space box verification states are drawn in.
+    if envelope is None and trained.envelope_min is not None and trained.basis is None:
         envelope = (trained.envelope_min, trained.envelope_max)
     return (trained.base_step, trained.mean, trained.scale, envelope,
             trained.validation if validation is None else validation,
@@ -444,19 +493,6 @@ def _inferred_state_dim(pairs: list[tuple[int, Any]]) -> int:
         "the state dimension cannot be inferred from the modules; pass `mean`/`scale` or "
         "`state_names`."
     )
-
-
-def _check_target(target: Path, overwrite: bool) -> None:
-    if target.exists() or target.is_symlink():
-        if not overwrite:
-            raise BundleError(
-                f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to "
-                "replace it."
-            )
-        if target.is_symlink() or not target.is_dir():
-            raise BundleError(
-                f"{str(target)!r} exists and is not a directory; refusing to replace it."
-            )
 
 
 def _default_name(target: Path) -> str:

@@ -8,12 +8,16 @@ Errors are the contract's normalised RMS: error per component divided by the com
 standard deviation over the training split, root-mean-square over components and start states.
 Held-out states here are already normalised by that deviation (z = (x − mean) / scale), so the
 metric is the plain RMS of z errors.
+
+For a reduced model (`LatentBasis`), the levels step latent states: start states are encoded,
+and forecasts are decoded before any error is taken, so every figure is about full states.
 """
 
 from __future__ import annotations
 
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
 import torch
@@ -33,6 +37,16 @@ MAX_START_STATES = 256
 VALUES_PER_RUN = 1 << 24
 
 
+class LatentBasis(Protocol):
+    """The encoder and decoder of a reduced model, on normalised states (NumPy)."""
+
+    def encode(self, z: np.ndarray) -> np.ndarray:
+        """Normalised full states (..., d) → latent states (..., r)."""
+
+    def decode(self, latent: np.ndarray) -> np.ndarray:
+        """Latent states (..., r) → normalised full states (..., d)."""
+
+
 @dataclass(frozen=True)
 class HeldOut:
     """Normalised held-out trajectories and the fixed start states forecasts begin from.
@@ -45,6 +59,8 @@ class HeldOut:
         Where each trajectory starts in `flat`, and its number of samples.
     trajectory, start : ndarray of int64, shape (B,)
         Trajectory and sample index of each start state.
+    reduction : LatentBasis or None
+        For levels that step latent states: how forecasts enter and leave the latent space.
     """
 
     flat: np.ndarray
@@ -52,6 +68,7 @@ class HeldOut:
     lengths: np.ndarray
     trajectory: np.ndarray
     start: np.ndarray
+    reduction: LatentBasis | None = None
 
     @property
     def initial(self) -> np.ndarray:
@@ -72,8 +89,12 @@ class HeldOut:
 
 
 def prepare_held_out(trajectories: Sequence[torch.Tensor], *,
-                     max_starts: int = MAX_START_STATES) -> HeldOut:
+                     max_starts: int = MAX_START_STATES,
+                     reduction: LatentBasis | None = None) -> HeldOut:
     """Held-out trajectories (a list of normalised tensors (T_i, d), ragged) with start states.
+
+    With `reduction`, the trajectories are still full normalised states (the truth); the
+    levels step latent states (see `forecasts`).
 
     Each trajectory gets starts evenly spaced over its samples but the last, in proportion to
     its length, at most `max_starts` in all and at least its first sample.
@@ -90,7 +111,8 @@ def prepare_held_out(trajectories: Sequence[torch.Tensor], *,
         trajectory.append(np.full(len(picks), index, dtype=np.int64))
         start.append(picks)
     return HeldOut(flat=np.concatenate(arrays), offsets=offsets, lengths=lengths,
-                   trajectory=np.concatenate(trajectory), start=np.concatenate(start))
+                   trajectory=np.concatenate(trajectory), start=np.concatenate(start),
+                   reduction=reduction)
 
 
 def advance(levels: Levels, states: torch.Tensor, plan: Sequence[tuple[int, int]]
@@ -103,9 +125,14 @@ def advance(levels: Levels, states: torch.Tensor, plan: Sequence[tuple[int, int]
     return states
 
 
-def forecasts(levels: Levels, initial: np.ndarray, targets: Sequence[int]
+def forecasts(levels: Levels, initial: np.ndarray, targets: Sequence[int], *,
+              reduction: LatentBasis | None = None
               ) -> Iterator[tuple[list[int], np.ndarray]]:
     """Runtime-style forecasts of normalised `initial` (B, d) at `targets` (base steps).
+
+    With `reduction`, `initial` is encoded once, the levels step latent states, and the
+    forecasts are decoded (a diverged latent forecast decodes to inf, never to NaN, which
+    would read as "no truth").
 
     Yields
     ------
@@ -124,9 +151,23 @@ def forecasts(levels: Levels, initial: np.ndarray, targets: Sequence[int]
     initial = np.ascontiguousarray(initial, dtype=np.float32)
     targets = list(targets)
     per_run = max(1, VALUES_PER_RUN // initial.size)
+    start = initial if reduction is None else np.ascontiguousarray(
+        reduction.encode(initial), dtype=np.float32)
     for first in range(0, len(targets), per_run):
         chunk = targets[first:first + per_run]
-        yield chunk, run_schedule(build_schedule(chunk, planner), initial, step)
+        states = run_schedule(build_schedule(chunk, planner), start, step)
+        yield chunk, states if reduction is None else decoded(reduction, states)
+
+
+def decoded(reduction: LatentBasis, latent: np.ndarray) -> np.ndarray:
+    """Latent states (..., r) decoded to full normalised float32 states (..., d); inf where a
+    latent state is not finite."""
+    finite = np.isfinite(latent).all(axis=-1)
+    with np.errstate(over="ignore", invalid="ignore"):
+        full = np.asarray(reduction.decode(np.where(finite[..., None], latent, 0.0)),
+                          dtype=np.float32)
+    full[~finite] = np.inf
+    return full
 
 
 def normalised_rms(prediction: np.ndarray, truth: np.ndarray, valid: np.ndarray | None = None
@@ -155,7 +196,8 @@ def state_errors(levels: Levels, held_out: HeldOut, targets: Sequence[int]) -> n
         start's trajectory ends before the target.
     """
     rows = []
-    for chunk, states in forecasts(levels, held_out.initial, targets):
+    for chunk, states in forecasts(levels, held_out.initial, targets,
+                                   reduction=held_out.reduction):
         for steps, predicted in zip(chunk, states, strict=True):
             truth, valid = held_out.truth(steps)
             errors = normalised_errors(predicted, truth, np.ones(truth.shape[-1]))

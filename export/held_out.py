@@ -2,7 +2,8 @@
 level selection, the deployed hierarchy's error curve and validated horizon, dense roughness,
 one-step errors, hierarchy against finest-only, and the forecast plot's data.
 
-All figures are normalised RMS (see `evaluation`); `_physical` ones are in data units.
+All figures are normalised RMS (see `evaluation`); `_physical` ones are in data units. For a
+reduced model they are measured on the decoded full states.
 """
 
 from __future__ import annotations
@@ -19,7 +20,9 @@ from . import selection, validity
 from .errors import TrainingError
 from .evaluation import (
     HeldOut,
+    LatentBasis,
     Levels,
+    decoded,
     error_curve,
     evaluations,
     forecasts,
@@ -71,7 +74,7 @@ def ladder(longest: int, strides: Sequence[int]) -> list[int]:
 
 def validate(levels: Levels, held_out: Sequence[torch.Tensor], *, base_step: float,
              mean: np.ndarray, scale: np.ndarray, tolerance: float, horizon: float | None,
-             keep_all_levels: bool) -> Validation:
+             keep_all_levels: bool, reduction: LatentBasis | None = None) -> Validation:
     """Select levels, measure the deployed hierarchy, and gather the report's figures.
 
     Parameters
@@ -89,10 +92,13 @@ def validate(levels: Levels, held_out: Sequence[torch.Tensor], *, base_step: flo
         Longest horizon (time units) the selection scores; None: the held-out span.
     keep_all_levels : bool
         Skip the selection.
+    reduction : LatentBasis, optional
+        The levels step latent states: forecasts start from encoded held-out states and are
+        decoded before every error is taken.
     """
     strides = tuple(sorted(levels))
     finest = strides[0]
-    data = prepare_held_out(held_out)
+    data = prepare_held_out(held_out, reduction=reduction)
     if data.longest < finest:
         raise TrainingError(
             f"the held-out trajectories span {data.longest} base steps, less than the finest "
@@ -154,7 +160,7 @@ def validate(levels: Levels, held_out: Sequence[torch.Tensor], *, base_step: flo
     }
     figures["summary"] = _summary(figures, chosen, base_step)
     example = forecast_example(deployed, held_out[0], base_step=base_step, mean=mean,
-                               scale=scale)
+                               scale=scale, reduction=reduction)
     return Validation(strides=kept, figures=figures, curve=curve, example=example)
 
 
@@ -178,10 +184,15 @@ def _one_step(levels: Levels, data: HeldOut, scale: np.ndarray) -> list[dict[str
             rows.append({"stride": stride, "rmse": None, "rmse_physical": None})
             continue
         first = np.concatenate(firsts)
-        initial = torch.from_numpy(data.flat[first])
+        initial = data.flat[first]
+        if data.reduction is not None:
+            initial = data.reduction.encode(initial).astype(np.float32)
         with torch.no_grad():
-            predicted = (initial + levels[stride](initial)).double().numpy()
-        error = predicted - data.flat[first + stride]
+            start = torch.from_numpy(np.ascontiguousarray(initial))
+            predicted = (start + levels[stride](start)).numpy()
+        if data.reduction is not None:
+            predicted = decoded(data.reduction, predicted)
+        error = predicted.astype(np.float64) - data.flat[first + stride]
         per_component = np.sqrt(np.mean(error**2, axis=0))
         rows.append({"stride": stride, "rmse": json_number(float(np.sqrt(np.mean(error**2)))),
                      "rmse_physical": [json_number(v) for v in per_component * scale]})
@@ -237,8 +248,10 @@ def _summary(figures: dict[str, Any], chosen: selection.Selection | None,
 
 
 def forecast_example(levels: Levels, trajectory: torch.Tensor, *, base_step: float,
-                     mean: np.ndarray, scale: np.ndarray) -> ForecastExample | None:
-    """Hierarchical and finest-only forecasts of one normalised trajectory (T, d) from t = 0."""
+                     mean: np.ndarray, scale: np.ndarray,
+                     reduction: LatentBasis | None = None) -> ForecastExample | None:
+    """Hierarchical and finest-only forecasts of one normalised trajectory (T, d) from t = 0
+    (through the latent space with `reduction`)."""
     finest = min(levels)
     longest = (trajectory.shape[0] - 1) // finest * finest
     if longest < finest:
@@ -246,9 +259,11 @@ def forecast_example(levels: Levels, trajectory: torch.Tensor, *, base_step: flo
     grid = np.unique(np.linspace(0, longest // finest, PLOT_POINTS).round().astype(np.int64))
     targets = (grid * finest).tolist()
     initial = trajectory[:1].numpy()
-    hierarchical = np.concatenate([s for _, s in forecasts(levels, initial, targets)])[:, 0]
+    hierarchical = np.concatenate(
+        [s for _, s in forecasts(levels, initial, targets, reduction=reduction)])[:, 0]
     alone = {finest: levels[finest]}
-    finest_only = np.concatenate([s for _, s in forecasts(alone, initial, targets)])[:, 0]
+    finest_only = np.concatenate(
+        [s for _, s in forecasts(alone, initial, targets, reduction=reduction)])[:, 0]
 
     def physical(values: np.ndarray) -> np.ndarray:
         return values.astype(np.float64) * scale + mean

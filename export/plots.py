@@ -18,6 +18,9 @@ from .trained import ForecastExample
 logger = logging.getLogger(__name__)
 FORECAST_PNG = "forecast.png"
 ERROR_PNG = "error-vs-horizon.png"
+# The forecast figure shows at most this many components (evenly spaced, first and last
+# included): a field of hundreds of points would otherwise get hundreds of panels.
+FORECAST_COMPONENTS = 6
 
 
 def write_plots(directory: Path, example: ForecastExample, validation: Mapping[str, Any] | None,
@@ -49,10 +52,13 @@ def _figure_class() -> Any:
 
 def _forecast_figure(figure_class: Any, directory: Path, example: ForecastExample,
                      labels: Sequence[str], time_unit: str) -> str:
-    dim = example.truth.shape[1]
+    total = example.truth.shape[1]
+    shown = np.unique(np.linspace(0, total - 1, min(total, FORECAST_COMPONENTS))
+                      .round().astype(np.int64))
+    dim = len(shown)
     figure = figure_class(figsize=(8, 2.2 * dim + 0.6))
     axes = figure.subplots(dim, 1, sharex=True, squeeze=False)
-    for component, axis in enumerate(axes[:, 0]):
+    for component, axis in zip(shown.tolist(), axes[:, 0], strict=True):
         axis.plot(example.times, example.truth[:, component], color="black", lw=1.6,
                   label="held-out truth")
         axis.plot(example.times, example.hierarchical[:, component], color="tab:blue",

@@ -7,10 +7,13 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import torch
+
+if TYPE_CHECKING:
+    from .pod import PODBasis
 
 
 @dataclass(frozen=True)
@@ -33,7 +36,8 @@ class TrainedLevels:
     Attributes
     ----------
     levels : mapping of int to torch.nn.Module
-        Stride (base steps) to the network N, acting on normalised states (B, d) → (B, d).
+        Stride (base steps) to the network N, acting on normalised states (B, d) → (B, d),
+        or on latent states (B, r) → (B, r) when `basis` is set.
     mean, scale : tuple of float, length d
         Normalisation from the training split: the networks see z = (x − mean) / scale.
     base_step : float
@@ -45,7 +49,7 @@ class TrainedLevels:
     validation : dict or None
         Held-out figures (JSON-ready); None without held-out data.
     envelope_min, envelope_max : tuple of float or None
-        Per-component range of the training split.
+        Per-component range of the training split (of its latent states when `basis` is set).
     state_names, state_units : tuple of str or None
         From the data file, when it had them.
     settings : dict
@@ -53,13 +57,20 @@ class TrainedLevels:
     validation_curve : dict or None
         The manifest `validation` block: metric, tolerance, reference_std, and the deployed
         hierarchy's held-out error curve (`times`, `errors`; null errors: diverged).
-    envelope_samples : ndarray, shape (count, d), float32, or None
-        Normalised training states z = (x − mean) / scale that the data envelope keeps.
+    envelope_samples : ndarray, shape (count, d) or (count, r), float32, or None
+        Normalised training states z = (x − mean) / scale that the data envelope keeps
+        (latent states when `basis` is set).
     envelope_radius : float or None
         A state farther than this (Euclidean, normalised units) from every sample is far from
         the data.
     forecast_example : ForecastExample or None
         Data for the forecast plot (not written to JSON).
+    basis : PODBasis or None
+        A reduced model's basis (`train_levels(reduce=...)`): the encoder and decoder between
+        normalised full states and the latent states the levels step.
+    reduction : dict or None
+        JSON-ready: the basis summary (energy kept, spectrum) and the reconstruction-error
+        threshold, for report.json and the manifest.
     """
 
     levels: Mapping[int, torch.nn.Module]
@@ -78,6 +89,8 @@ class TrainedLevels:
     envelope_samples: np.ndarray | None = field(default=None, repr=False, compare=False)
     envelope_radius: float | None = None
     forecast_example: ForecastExample | None = field(default=None, repr=False, compare=False)
+    basis: PODBasis | None = field(default=None, repr=False, compare=False)
+    reduction: Mapping[str, Any] | None = None
 
     @property
     def strides(self) -> tuple[int, ...]:
@@ -87,6 +100,18 @@ class TrainedLevels:
     @property
     def state_dim(self) -> int:
         return len(self.mean)
+
+    @property
+    def latent_dim(self) -> int | None:
+        """r for a reduced model, else None."""
+        return None if self.basis is None else self.basis.latent_dim
+
+    @property
+    def reconstruction_threshold(self) -> float | None:
+        """Normalised RMS reconstruction error above which a full state is unlike the data."""
+        if not self.reduction:
+            return None
+        return self.reduction["reconstruction"]["threshold"]
 
     @property
     def validated_horizon(self) -> float | None:

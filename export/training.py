@@ -4,6 +4,10 @@ Each level minimises the one-step mean squared error plus the mean squared error
 of `rollout` steps at its own stride, in normalised units. Normalisation comes from the
 training split; held-out trajectories give the per-epoch validation loss (early stopping, best
 epoch restored) and the validation figures of the bundle. Trajectories may differ in length.
+
+With `reduce`, a POD basis fitted on the training split (`pod`) maps states to standardised
+latent coordinates; the levels are trained on latent trajectories, and every validation figure
+is measured on the decoded full states.
 """
 
 from __future__ import annotations
@@ -23,19 +27,27 @@ import torch
 from torch import nn
 from tqdm.auto import tqdm
 
-from stridecast.runtime.errors import BundleError
+from stridecast.runtime.validation import check_strides
 
-from .arguments import check_base_step, check_stride, check_strings
+from .arguments import check_base_step, check_strings
 from .data import check_length, check_trajectories
-from .envelope import data_envelope
+from .envelope import RADIUS_MARGIN, RADIUS_QUANTILE, data_envelope
 from .errors import TrainingError
 from .held_out import Validation, validate
 from .networks import ACTIVATIONS, increment_mlp, parameter_count
+from .pod import (
+    RECONSTRUCTION_TOLERANCE_SHARE,
+    PODBasis,
+    check_reduce,
+    fit_pod,
+    reconstruction_threshold,
+)
 from .trained import TrainedLevels
 from .windows import (
     Ragged,
     gather_windows,
     normalisation,
+    pooled_normalisation,
     spaced_subset,
     split_trajectories,
     window_starts,
@@ -89,6 +101,7 @@ def train_levels(
     state_names: Sequence[str] | None = None,
     state_units: Sequence[str] | None = None,
     patience: int | None = 10,
+    reduce: int | float | None = None,
 ) -> TrainedLevels:
     """Train one network per stride on trajectories sampled every `base_step`.
 
@@ -136,6 +149,13 @@ def train_levels(
         Stop a level when its held-out validation loss has not improved for this many epochs.
         Whenever there is a validation loss, the weights of the best epoch are restored at the
         end (`history[stride]["best_epoch"]`, `"stop_reason"`). None never stops early.
+    reduce : int, float or None
+        Train a reduced model (docs/export.md, "Reduced models"): an int r keeps r POD modes
+        (1 ≤ r < d), a float in (0, 1) keeps the fewest modes holding that share of the
+        training states' energy. The normalisation then uses one scale per unit
+        (`state_units`; one for all components without units), the levels step standardised
+        latent coordinates, and the result carries the basis (`TrainedLevels.basis`), which
+        `export_bundle` writes as encoder and decoder. None: levels on the full state.
 
     Returns
     -------
@@ -152,24 +172,40 @@ def train_levels(
                                tolerance=tolerance, horizon=horizon,
                                keep_all_levels=keep_all_levels)
     base_step = check_base_step(base_step)
-    strides = _check_strides(strides)
+    strides = check_strides(strides)
     _check_horizon(settings.horizon, base_step, strides[0])
     dim = data.dim
     names = None if state_names is None else check_strings(state_names, "state_names", dim,
                                                            distinct=True)
     units = None if state_units is None else check_strings(state_units, "state_units", dim,
                                                            distinct=False)
+    reduce = None if reduce is None else check_reduce(reduce, dim)
     check_length(data.lengths, dim, strides, settings.rollout, where="the trajectories")
     split = split_trajectories(data, settings.validation_fraction, settings.seed)
     check_length(split.train.lengths, dim, strides, settings.rollout,
                  where="the training trajectories (after the split)")
-    mean, scale = normalisation(split.train)
+    if reduce is None:
+        mean, scale = normalisation(split.train)
+        basis = None
+    else:
+        mean, scale = pooled_normalisation(split.train, units)
+        # The normalised training states have mean zero: the POD is centred.
+        basis = fit_pod((np.asarray(split.train.values) - mean) / scale, reduce)
 
     def normalised(values: np.ndarray) -> torch.Tensor:
         return torch.from_numpy(((values - mean) / scale).astype(np.float32))
 
-    train = split.train.map(normalised)
-    held_out = None if split.held_out is None else split.held_out.map(normalised)
+    def stepped(values: np.ndarray) -> torch.Tensor:
+        """The states the levels step: normalised, or latent for a reduced model."""
+        if basis is None:
+            return normalised(values)
+        return torch.from_numpy(basis.encode((values - mean) / scale).astype(np.float32))
+
+    train = split.train.map(stepped)
+    held_out = None if split.held_out is None else split.held_out.map(stepped)
+    # Validation compares decoded forecasts with the full held-out states.
+    held_out_full = held_out if basis is None or held_out is None \
+        else split.held_out.map(normalised)
 
     levels, history = {}, {}
     validation, curve, example = None, None, None
@@ -179,32 +215,77 @@ def train_levels(
                                                            progress=progress)
         if held_out is not None:
             # Evaluation takes a list of (T_i, d) tensors: ragged held-out data fit as they are.
-            checked = _validate(levels, held_out.to_list(), settings, base_step, mean, scale)
+            checked = _validate(levels, held_out_full.to_list(), settings, base_step, mean,
+                                scale, basis)
             validation = {**checked.figures, "split": split.description}
             curve, example = checked.curve, checked.example
             levels = {stride: levels[stride] for stride in checked.strides}
+    # The envelope describes the states the levels step (latent for a reduced model).
     samples, radius = data_envelope(
         _arrays(train), None if held_out is None else _arrays(held_out))
+    if basis is None:
+        box = split.train.values
+        reduction = None
+    else:
+        box = train.values.numpy()
+        reduction = _reduction_figures(basis, split.train.values, split.held_out, mean, scale,
+                                       settings.tolerance)
     return TrainedLevels(
         levels=levels, mean=tuple(map(float, mean)), scale=tuple(map(float, scale)),
         base_step=base_step, update="increment", history=history, validation=validation,
-        envelope_min=tuple(map(float, split.train.values.min(axis=0))),
-        envelope_max=tuple(map(float, split.train.values.max(axis=0))),
+        envelope_min=tuple(map(float, box.min(axis=0))),
+        envelope_max=tuple(map(float, box.max(axis=0))),
         state_names=names, state_units=units,
         settings={**asdict(settings), "hidden": list(settings.hidden),
-                  "strides": list(strides), "base_step": base_step, "threads": threads},
+                  "strides": list(strides), "base_step": base_step, "threads": threads,
+                  "reduce": reduce},
         forecast_example=example, validation_curve=curve, envelope_samples=samples,
-        envelope_radius=radius,
+        envelope_radius=radius, basis=basis, reduction=reduction,
     )
+
+
+def _reduction_figures(basis: PODBasis, train: np.ndarray, held_out: Ragged | None,
+                       mean: np.ndarray, scale: np.ndarray, tolerance: float) -> dict[str, Any]:
+    """The basis summary and the reconstruction-error threshold, JSON-ready.
+
+    The threshold comes from held-out states when there are any (training states are what the
+    basis was fitted to, so their errors are optimistic), else from the training states.
+    """
+    train_errors = basis.reconstruction_errors((np.asarray(train) - mean) / scale)
+    held_errors = None if held_out is None else basis.reconstruction_errors(
+        (np.asarray(held_out.values) - mean) / scale)
+    reference = train_errors if held_errors is None else held_errors
+    threshold = reconstruction_threshold(reference, tolerance)
+
+    def quantiles(errors: np.ndarray | None) -> dict[str, float] | None:
+        if errors is None:
+            return None
+        return {"median": float(np.median(errors)), "q99": float(np.quantile(errors, 0.99)),
+                "max": float(errors.max()), "states": int(errors.size)}
+
+    return {
+        **basis.summary(),
+        "normalisation": "per-component mean; one scale per unit (pooled standard deviation)",
+        "reconstruction": {
+            "metric": "normalised_rms",
+            "threshold": threshold,
+            "rule": f"max({RADIUS_MARGIN:g} × the {RADIUS_QUANTILE:g} quantile of the "
+                    "per-state reconstruction errors of "
+                    f"{'held-out' if held_errors is not None else 'training'} states, "
+                    f"{RECONSTRUCTION_TOLERANCE_SHARE:g} × tolerance)",
+            "train": quantiles(train_errors),
+            "held_out": quantiles(held_errors),
+        },
+    }
 
 
 def _validate(levels: dict[int, nn.Module], held_out: list[torch.Tensor],
               settings: TrainingSettings, base_step: float, mean: np.ndarray,
-              scale: np.ndarray) -> Validation:
-    """Level selection and the validity figures on normalised held-out trajectories."""
+              scale: np.ndarray, basis: PODBasis | None) -> Validation:
+    """Level selection and the validity figures on normalised (full) held-out trajectories."""
     checked = validate(levels, held_out, base_step=base_step, mean=mean, scale=scale,
                        tolerance=settings.tolerance, horizon=settings.horizon,
-                       keep_all_levels=settings.keep_all_levels)
+                       keep_all_levels=settings.keep_all_levels, reduction=basis)
     summary = checked.figures["summary"]
     logger.info("levels kept: %s (%s); validated horizon %s at tolerance %g",
                 summary["kept"], summary["why"], summary["validated_horizon"],
@@ -353,15 +434,6 @@ def _torch_threads(threads: int | None) -> Iterator[None]:
         yield
     finally:
         torch.set_num_threads(previous)
-
-
-def _check_strides(strides: Sequence[int]) -> tuple[int, ...]:
-    if isinstance(strides, str | bytes) or not isinstance(strides, Sequence) or not strides:
-        raise BundleError(f"`strides` is {strides!r}; expected a non-empty list of integers.")
-    checked = [check_stride(stride) for stride in strides]
-    if len(set(checked)) != len(checked):
-        raise BundleError(f"`strides` repeats a stride: {checked}; strides must be distinct.")
-    return tuple(sorted(checked))
 
 
 def _positive_int(value: Any, where: str) -> int:

@@ -91,7 +91,8 @@ def dense_run(levels: Levels, held_out: HeldOut, steps: np.ndarray) -> DenseRun:
     targets = [int(n) for pair in zip(steps - finest, steps, strict=True) for n in pair]
     per_state, jump, reference, excess = [], [], [], []
     previous = None
-    for chunk, states in forecasts(levels, held_out.initial, targets):
+    for chunk, states in forecasts(levels, held_out.initial, targets,
+                                   reduction=held_out.reduction):
         for steps_here, predicted in zip(chunk, states, strict=True):
             if previous is None:
                 previous = (steps_here, predicted)

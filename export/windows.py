@@ -121,6 +121,33 @@ def normalisation(train: Ragged) -> tuple[np.ndarray, np.ndarray]:
     return mean, np.where(constant, 1.0, spread)
 
 
+def pooled_normalisation(train: Ragged, groups: Sequence[str] | None = None
+                         ) -> tuple[np.ndarray, np.ndarray]:
+    """Per-component mean and one scale per group of components (scale > 0).
+
+    A group's scale is the root mean square of its components' standard deviations, so the
+    group's total variance is kept. For a field this weighs every point alike: per-point
+    scales would blow up the points that barely move (next to a fixed boundary) and bend both
+    a POD basis and the error metric towards them. `groups` labels each component (e.g. its
+    unit); None puts all components in one group. A group with no spread gets scale 1.
+    """
+    flat = np.asarray(train.values)
+    mean = flat.mean(axis=0)
+    variance = flat.var(axis=0)
+    labels = [""] * flat.shape[1] if groups is None else list(groups)
+    scale = np.ones(flat.shape[1])
+    for label in dict.fromkeys(labels):
+        members = np.array([index for index, name in enumerate(labels) if name == label])
+        pooled = float(np.sqrt(np.mean(variance[members])))
+        magnitude = max(1.0, float(np.max(np.abs(mean[members]))))
+        if pooled <= _CONSTANT_SPREAD * magnitude:
+            logger.warning("components %s are constant in the training data; their scale is 1",
+                           members.tolist())
+            continue
+        scale[members] = pooled
+    return mean, scale
+
+
 def window_starts(data: Ragged, stride: int, rollout: int) -> np.ndarray:
     """Flat indices (into `data.values`) of every window start that fits, shape (M,), int64.
 

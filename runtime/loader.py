@@ -22,8 +22,7 @@ from .onnx_reader import read_model
 from .reduction import LatentMaps, make_map, map_names
 from .stepper import Stepper
 from .threads import ThreadPolicy
-
-DTYPES = ("float32", "float64")
+from .validation import DTYPES
 
 
 def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool = True,

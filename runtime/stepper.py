@@ -40,6 +40,7 @@ from .reduction import LatentMaps, reconstruction_errors
 from .validation import (
     check_off_grid,
     check_state,
+    check_strides,
     check_time,
     check_times,
 )
@@ -369,7 +370,7 @@ class Stepper:
                                            is not None else distinct)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
-            network_calls=sum(len(wave) for wave in schedule.waves),
+            network_calls=schedule.calls,
             depth=schedule.depth,
             integrator_evaluations=rk_total,
             methods=tuple(sorted({r.method for r in resolutions})),
@@ -421,7 +422,7 @@ class Stepper:
                                            None if weights is None else results, times)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
-            network_calls=sum(len(wave) for wave in schedule.waves),
+            network_calls=schedule.calls,
             depth=schedule.depth,
             integrator_evaluations=0,
             methods=tuple(sorted(methods)),
@@ -519,18 +520,13 @@ class Stepper:
         strides : sequence of int
             Non-empty, distinct, each one of `self.strides`.
         """
-        try:
-            chosen = sorted(strides)
-        except TypeError as error:
-            raise OptionError(f"`strides` is {strides!r}; expected a list of strides.") from error
-        bad = [s for s in chosen if isinstance(s, bool) or not isinstance(s, int | np.integer)
-               or int(s) not in self._kernels]
-        if not chosen or bad or len(set(chosen)) != len(chosen):
+        chosen = check_strides(strides, error=OptionError)
+        unknown = [stride for stride in chosen if stride not in self._kernels]
+        if unknown:
             raise OptionError(
-                f"`strides` is {list(strides)!r}; expected a non-empty list of distinct strides "
-                f"of this bundle, {list(self.strides)}."
+                f"`strides` is {list(strides)!r}; {unknown} are not strides of this bundle, "
+                f"{list(self.strides)}."
             )
-        chosen = [int(s) for s in chosen]
         manifest = replace(self._manifest,
                            levels=tuple(self._manifest.level(s) for s in chosen))
         if tuple(chosen) != self.strides:

@@ -14,6 +14,8 @@ from fastapi import Request
 from pydantic import Field, PrivateAttr, SecretStr, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+from stridecast.runtime.validation import DTYPES
+
 # design.md §6.
 DEFAULT_MAX_BODY_BYTES = 4 * 1024 * 1024
 DEFAULT_MAX_BATCH = 4096
@@ -71,7 +73,7 @@ class Settings(BaseSettings):
     model_config = SettingsConfigDict(env_prefix="STRIDECAST_", frozen=True, extra="forbid")
 
     models: list[str] = Field(default_factory=list)
-    dtype: Literal["float32", "float64"] = "float32"
+    dtype: Literal[DTYPES] = "float32"  # the runtime's list, unpacked by Literal
     max_body_bytes: int = Field(DEFAULT_MAX_BODY_BYTES, ge=64)
     max_batch: int = Field(DEFAULT_MAX_BATCH, ge=1)
     max_forecast_points: int = Field(DEFAULT_MAX_FORECAST_POINTS, ge=1)

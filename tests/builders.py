@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 import onnx
 import onnxruntime
+import pytest
 from onnx import TensorProto, helper, numpy_helper
 from onnx.reference import ReferenceEvaluator
 from scipy.linalg import expm
@@ -518,3 +519,12 @@ def older_crane_bundle(out: Path) -> Path:
     path.write_text(json.dumps(document, indent=2), encoding="utf-8")
     shutil.rmtree(out / "envelope", ignore_errors=True)
     return out
+
+
+@pytest.fixture(autouse=True)
+def private_cache(tmp_path, monkeypatch):
+    """The caution's session marker in a temporary cache folder (autouse where a conftest
+    imports it): never the user's real ~/.cache; each test starts a fresh session of use."""
+    folder = tmp_path / "cache"
+    monkeypatch.setenv("XDG_CACHE_HOME", str(folder))
+    return folder

@@ -78,6 +78,26 @@ def _count(option: str, *, none: bool = False, minimum: int = 1):
     return parse
 
 
+def _reduce(text: str) -> int | float | None:
+    """`--reduce`: a mode count (an integer ≥ 1), an energy fraction in (0, 1), or none."""
+    word = text.strip().lower()
+    if word in ("none", "off"):
+        return None
+    try:
+        value: int | float = int(word)
+    except ValueError:
+        try:
+            value = float(word)
+        except ValueError:
+            value = math.nan
+    fits = value >= 1 if isinstance(value, int) else 0.0 < value < 1.0
+    if not fits:
+        raise argparse.ArgumentTypeError(
+            f"`--reduce` is {text!r}; expected a number of modes (an integer ≥ 1, e.g. 8) or "
+            "an energy fraction in (0, 1) (e.g. 0.999).")
+    return value
+
+
 def register(subparsers) -> None:
     train = add_command(subparsers, "train", "Train levels from trajectories and export a bundle.",
                 "stridecast train data.npz --base-step 0.05 --strides 1,4,16,64 -o my.bundle",
@@ -107,6 +127,12 @@ def register(subparsers) -> None:
     levels.add_argument("--keep-all-levels", action="store_true",
                         help="keep every trained level (default: keep the subset with the "
                         "lowest held-out error, always with the finest)")
+    levels.add_argument("--reduce", type=_reduce, default=None, metavar="R",
+                        help="for fields: step R latent coordinates of a POD basis fitted on "
+                        "the training split (an integer number of modes below the state "
+                        "dimension, or an energy fraction in (0, 1) such as 0.999: the "
+                        "fewest modes keeping it); the bundle gets an encoder and decoder "
+                        "(default: levels on the full state)")
     network = train.add_argument_group("networks and optimisation")
     network.add_argument("--hidden", default="128,128,128", metavar="W1,W2,...",
                          type=_integers("--hidden", "64,64"),
@@ -151,6 +177,7 @@ TRAINING_OPTIONS = {
     "learning_rate": "learning_rate", "max_windows_per_epoch": "max_windows_per_epoch",
     "seed": "seed", "threads": "threads", "validation_fraction": "validation_fraction",
     "tolerance": "tolerance", "horizon": "horizon", "keep_all_levels": "keep_all_levels",
+    "reduce": "reduce",
 }
 
 

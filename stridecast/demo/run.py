@@ -22,7 +22,8 @@ from typing import Any, TextIO
 import numpy as np
 
 from stridecast.caution import CAUTION
-from stridecast.runtime import BundleError, StridecastError, load
+from stridecast.runtime import StridecastError, load
+from stridecast.runtime.bundle import check_target
 
 from . import crane
 from . import output as demo_output
@@ -194,9 +195,8 @@ def export(trained: Any, out: Path, settings: DemoSettings, *, overwrite: bool) 
 # ----------------------------------------------------------------------------------- helpers
 def _check_out(out: Path, overwrite: bool) -> None:
     """Refuse an existing `out` before minutes of work, not after."""
-    if (out.exists() or out.is_symlink()) and not overwrite:
-        raise BundleError(f"`--out` {str(out)!r} already exists; pass --overwrite to replace "
-                          "it, or choose another folder.")
+    check_target(out, overwrite=overwrite, where="--out",
+                 hint="pass --overwrite to replace it, or choose another folder")
 
 
 def _check_dependencies() -> None:

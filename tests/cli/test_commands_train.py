@@ -15,7 +15,7 @@ import pytest
 from stridecast.cli import build_parser, main
 from stridecast.cli.train_command import ACTIVATIONS, TRAINING_OPTIONS
 from stridecast.runtime import load
-from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
+from tests.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 
 def train_parser():
@@ -106,3 +106,53 @@ def test_train_ragged_folder_prints_summary(tmp_path, capsys):
     assert lines[1].startswith("levels kept: ")
     assert any(line.startswith("validated horizon: ") for line in lines)
     assert any("hierarchy error" in line and "finest-only" in line for line in lines)
+
+
+@pytest.mark.parametrize(("text", "value"), [("8", 8), ("0.999", 0.999), ("none", None)])
+def test_reduce_takes_a_mode_count_or_an_energy_fraction(text, value):
+    arguments = train_parser().parse_args(["d.npy", "--strides", "1", "-o", "o",
+                                           "--reduce", text])
+    assert arguments.reduce == value and type(arguments.reduce) is type(value)
+
+
+@pytest.mark.parametrize("text", ["0", "1.0", "1.5", "-3", "many"])
+def test_malformed_reduce_ends_in_one_line(text, capsys):
+    with pytest.raises(SystemExit) as exit_info:
+        main(["train", "data.npy", "--strides", "1", "-o", "out", "--reduce", text])
+    assert exit_info.value.code == 2
+    error = capsys.readouterr().err
+    assert (f"`--reduce` is {text!r}; expected a number of modes (an integer ≥ 1, e.g. 8) or "
+            "an energy fraction in (0, 1) (e.g. 0.999).") in error
+
+
+def test_train_reduce_round_trip(tmp_path, capsys):
+    """A field from the 1-D heat equation (u_t = u_xx, u = 0 at both ends, central
+    differences on 32 points; flow map scipy.linalg.expm) whose states hold three sine modes,
+    eigenvectors of the discrete Laplacian (closed form φ_k[j] ∝ sin(jkπ/(n + 1)))."""
+    from scipy.linalg import expm
+
+    points, base_step = 32, 5e-4
+    spacing = 1.0 / (points + 1)
+    laplacian = (np.diag(-2.0 * np.ones(points)) + np.diag(np.ones(points - 1), 1)
+                 + np.diag(np.ones(points - 1), -1)) / spacing**2
+    grid = np.arange(1, points + 1) * spacing
+    modes = np.sin(np.pi * np.outer(grid, [1, 2, 3]))
+    rng = np.random.default_rng(4)
+    step = expm(laplacian * base_step)  # SciPy's matrix exponential: the exact flow map
+    states = [rng.normal(size=(16, 3)) * [1.0, 0.5, 0.25] @ modes.T]
+    for _ in range(59):
+        states.append(states[-1] @ step.T)
+    data = tmp_path / "field.npy"
+    np.save(data, np.stack(states, axis=1))  # (N, T, d)
+    out = tmp_path / "field.bundle"
+    code = main(["train", str(data), "--base-step", str(base_step), "--strides", "1,4",
+                 "--reduce", "0.999999", "--hidden", "8", "--epochs", "2", "--rollout", "2",
+                 "--validation-fraction", "0.25", "-o", str(out), "--no-progress"])
+    captured = capsys.readouterr()
+    assert code == 0, captured.err
+    stepper = load(out)
+    assert stepper.latent_dim == 3 and stepper.state_dim == points
+    assert stepper.manifest.reduction.reconstruction_threshold > 0
+    line = next(line for line in captured.out.splitlines() if line.startswith("reduced: "))
+    assert line.startswith(f"reduced: 3 latent coordinates for {points} components (POD), "
+                           "energy kept ")

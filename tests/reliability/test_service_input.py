@@ -21,9 +21,9 @@ import numpy as np
 import pytest
 
 from stridecast.runtime import load
+from tests.http_cases import ADVANCE, CASES, JSON_TYPE, LIMITS, MSGPACK_TYPE
 from tests.reliability.server import read_response, request_head, running_server
-from tests.service.conftest import write_oscillator
-from tests.service.test_bad_input import ADVANCE, CASES, JSON_TYPE, LIMITS, MSGPACK_TYPE
+from tests.systems import write_oscillator
 
 # Resident memory a server may gain over a battery of hostile requests. Common practice for a
 # CPython process: freed small objects stay in pymalloc arenas, so RSS does not fall back; the

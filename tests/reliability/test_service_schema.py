@@ -17,12 +17,12 @@ from schemathesis.checks import CHECKS as REGISTERED_CHECKS
 from schemathesis.checks import load_all_checks
 
 from stridecast.service import Settings, create_app
-from tests.service.conftest import write_oscillator
-from tests.service.test_openapi import OPERATIONS
+from tests.http_cases import documented_operations, register_msgpack_serializer
+from tests.systems import write_oscillator
 
-# Importing test_openapi (above) also registers its MessagePack serializer with schemathesis.
-
+register_msgpack_serializer()
 load_all_checks()
+OPERATIONS = documented_operations()
 TOKEN = "reliability-token"
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 # positive_data_acceptance expects every schema-valid body to be accepted, but validity also

@@ -7,7 +7,6 @@ response must match the documented status codes, content types and schemas.
 
 from __future__ import annotations
 
-import msgpack
 import pytest
 import schemathesis
 from hypothesis import HealthCheck, Phase, given, settings
@@ -20,30 +19,15 @@ from schemathesis.specs.openapi.checks import (
 )
 
 from stridecast.service import Settings, create_app
+from tests.http_cases import documented_operations, register_msgpack_serializer
 
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
           response_schema_conformance]
-# The operations, read from an app that loads nothing (its lifespan never runs here).
-OPERATIONS = [(path, method.upper())
-              for path, methods in create_app().openapi()["paths"].items()
-              for method in methods]
+OPERATIONS = documented_operations()
 EXAMPLES = 25
 
 
-def _packable(value):
-    """Generated data as MessagePack can carry it: integers beyond 64 bits become floats."""
-    if isinstance(value, dict):
-        return {key: _packable(item) for key, item in value.items()}
-    if isinstance(value, list):
-        return [_packable(item) for item in value]
-    if isinstance(value, int) and not isinstance(value, bool) and not -2**63 <= value < 2**64:
-        return float(value)
-    return value
-
-
-@schemathesis.serializer("application/msgpack")
-def _msgpack(ctx, value) -> bytes:
-    return msgpack.packb(_packable(value), use_bin_type=True)
+register_msgpack_serializer()
 
 
 @pytest.fixture(scope="module")

@@ -5,28 +5,20 @@ Expected numbers: the runtime called in this process on the same input (bitwise)
 
 from __future__ import annotations
 
-import signal
-import socket
 import subprocess
 import sys
-import time
 
 import httpx
 import msgpack
 import numpy as np
 import pytest
 
+from tests.servers import free_port, stop, wait_ready
+
 STARTUP_SECONDS = 30
-SHUTDOWN_SECONDS = 15
 SERVE = ("import sys; from stridecast.service import serve; "
          "serve(sys.argv[4:], host='127.0.0.1', port=int(sys.argv[1]), workers=int(sys.argv[2]), "
          "token_file=sys.argv[3], log_level='warning', max_body_bytes=4096)")
-
-
-def free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
 
 
 def start(models, token_file, *, workers: int = 1):
@@ -35,28 +27,10 @@ def start(models, token_file, *, workers: int = 1):
         [sys.executable, "-c", SERVE, str(port), str(workers), str(token_file), str(models)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     base = f"http://127.0.0.1:{port}"
-    deadline = time.monotonic() + STARTUP_SECONDS
-    while time.monotonic() < deadline:
-        if process.poll() is not None:
-            pytest.fail(f"the server exited early: {process.stderr.read().decode()}")
-        try:
-            if httpx.get(f"{base}/readyz", timeout=1.0).status_code == 200:
-                return process, base
-        except httpx.TransportError:
-            pass
-        time.sleep(0.1)
-    stop(process)
-    pytest.fail("the server did not become ready in time")
+    wait_ready(process, base, seconds=STARTUP_SECONDS)
+    return process, base
 
 
-def stop(process) -> int:
-    process.send_signal(signal.SIGINT)
-    try:
-        return process.wait(timeout=SHUTDOWN_SECONDS)
-    except subprocess.TimeoutExpired:
-        process.kill()
-        process.wait(timeout=5)
-        pytest.fail("the server did not shut down within its bound")
 
 
 @pytest.fixture
