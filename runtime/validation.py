@@ -43,9 +43,10 @@ def check_state(state, *, names: Sequence[str], dtype: np.dtype, max_batch: int
     else:
         raise StateError(f"`state` has shape {array.shape}; expected ({dim},) or (batch, {dim}).")
     if array.shape[1] != dim:
+        shown = list(names) if dim <= 8 else [*names[:3], "…", *names[-3:]]  # a field
         raise StateError(
             f"`state` has shape {np.shape(state)}; this bundle's state has {dim} components "
-            f"{list(names)}, so expected ({dim},) or (batch, {dim})."
+            f"{shown}, so expected ({dim},) or (batch, {dim})."
         )
     if array.shape[0] == 0:
         raise StateError("`state` is an empty batch; expected at least one state.")

@@ -103,7 +103,8 @@ def add_state_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--state", action="append", metavar="X1,X2,...",
                        help="initial state, comma-separated; repeat for a batch")
     group.add_argument("--state-file", metavar="FILE",
-                       help="initial state(s) from a .npy file, shape (d,) or (B, d)")
+                       help="initial state(s), shape (d,) or (B, d): .npy, .csv or .txt "
+                       "(one state per row) or .json (a list, or a list of lists)")
     parser.add_argument("--off-grid", choices=OFF_GRID_POLICIES,
                         default="interpolate", help="what to do between grid times "
                         "(default: %(default)s)")
