@@ -33,8 +33,6 @@ def start(models, token_file, *, workers: int = 1):
     return process, base
 
 
-
-
 @pytest.fixture
 def token_file(tmp_path):
     path = tmp_path / "token"
@@ -136,3 +134,31 @@ def test_uvicorn_with_two_workers(models_dir, token_file):
     finally:
         code = stop(process)
     assert code == 0, process.stderr.read().decode()
+
+
+def test_one_process_serves_the_models_it_checked_without_loading_them_again(
+        models_dir, monkeypatch):
+    # serve() loads every bundle once to check it before starting; with one process the app
+    # must serve that registry, not read and verify each bundle a second time.
+    from fastapi.testclient import TestClient
+
+    from stridecast.service import app as app_module
+    from stridecast.service import registry as registry_module
+    from stridecast.service import server
+
+    loads = []
+    real = registry_module.load_registry
+
+    def counting(*arguments, **options):
+        loads.append(1)
+        return real(*arguments, **options)
+
+    apps = []
+    monkeypatch.setattr(server, "load_registry", counting)
+    monkeypatch.setattr(app_module, "load_registry", counting)
+    monkeypatch.setattr(server.uvicorn, "run", lambda app, **options: apps.append(app))
+    server.serve([models_dir], port=free_port())
+    (app,) = apps
+    with TestClient(app) as client:
+        names = [model["name"] for model in client.get("/v1/models").json()["models"]]
+    assert names and loads == [1]
