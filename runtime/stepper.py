@@ -187,8 +187,14 @@ class Stepper:
         # bundle itself, and refuses a bundle that changed since.
         arguments = getattr(self, "_load_arguments", None)
         if arguments is None:
-            raise TypeError("only a Stepper made by `stridecast.runtime.load` can be pickled.")
-        return _load_again, (*arguments, _checksums(self._manifest))
+            raise TypeError("only a Stepper made by `stridecast.runtime.load` (or its "
+                            "`with_levels`) can be pickled.")
+        subset = getattr(self, "_subset_of", None)
+        if subset is None:
+            return _load_again, (*arguments, _checksums(self._manifest))
+        # A `with_levels` subset travels as its whole bundle and the strides chosen.
+        full_checksums, strides = subset
+        return _load_again, (*arguments, full_checksums, strides)
 
     def __repr__(self) -> str:
         return (f"Stepper(name={self._manifest.name!r}, state_dim={self.state_dim}, "
@@ -535,6 +541,12 @@ class Stepper:
                          limits=self._limits, source=self._source,
                          on_extrapolation=self._policy, reduction=self._reduction)
         subset._data_envelope = self._data_envelope  # immutable; share its precomputed norms
+        arguments = getattr(self, "_load_arguments", None)
+        if arguments is not None:
+            subset._load_arguments = arguments
+            parent = getattr(self, "_subset_of", None)
+            full_checksums = _checksums(self._manifest) if parent is None else parent[0]
+            subset._subset_of = (full_checksums, tuple(chosen))
         return subset
 
     def _horizon_findings(self, times: np.ndarray) -> tuple[Finding, ...]:
@@ -819,8 +831,10 @@ class Stepper:
         )
 
 
-def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...]) -> Stepper:
-    """Unpickle a `Stepper`: load the bundle at `path` again and check it is the same one."""
+def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...],
+                strides: tuple[int, ...] | None = None) -> Stepper:
+    """Unpickle a `Stepper`: load the bundle at `path` again, check it is the same one, and
+    take the subset of `strides` when the pickled stepper was a `with_levels` subset."""
     from .errors import BundleError
     from .loader import load
 
@@ -828,7 +842,7 @@ def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...]
     if _checksums(stepper.manifest) != checksums:
         raise BundleError(f"the bundle at {path!r} changed since the stepper was pickled "
                           "(its levels or checksums differ); refusing to use it.")
-    return stepper
+    return stepper if strides is None else stepper.with_levels(strides)
 
 
 def _checksums(manifest: Manifest) -> tuple[tuple[int | str, str], ...]:
