@@ -1,11 +1,13 @@
 """Service throughput and latency per wire format, against the same answer computed in process.
 
-``python -m stridecast.benchmarks.service_bench BUNDLE [--quick] [--json FILE]`` starts the
+``python -m stridecast.benchmarks.service_bench BUNDLE [--quick] [--json FILE] [--markdown FILE]``
+starts the
 service in a subprocess on 127.0.0.1 (free ports, HTTP and gRPC) and times the open inference
 protocol's `infer` for batches of 1 and 64 states, 1 and 8 concurrent clients, with four
 encodings side by side: JSON, MessagePack, the binary tensor data extension, and gRPC (raw
-tensor contents). It does so twice, under uvicorn's pure-Python stack (asyncio + h11) and under
-uvloop + httptools, to show whether they help. The floors: onnxruntime running the bundle's ONNX
+tensor contents). It does so under uvicorn's pure-Python stack (asyncio + h11) and under
+uvloop + httptools, both serving at once and taking turns on each cell, to show whether they
+help. The floors: onnxruntime running the bundle's ONNX
 files in this process along the runtime's plan, and `Stepper.advance` itself. Loops are bounded
 by a time budget and a request cap per cell.
 """
@@ -14,6 +16,7 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import dataclasses
 import json
 import os
 import socket
@@ -30,7 +33,7 @@ import numpy as np
 from stridecast.runtime import load
 
 from .competitors import OnnxRuntimeLoop, plan_steps
-from .environment import numpy_blas_threads, thread_variables
+from .environment import describe, numpy_blas_threads, thread_variables
 from .timing import Budget, format_rate, format_seconds, interleaved, summary
 
 BATCHES = (1, 64)
@@ -188,6 +191,16 @@ async def _drive(call, concurrency: int, budget: Budget) -> tuple[np.ndarray, fl
     return np.asarray(latencies), time.perf_counter() - start
 
 
+def _measure(name: str, base: str, grpc_target: str, encoding: str, states: np.ndarray,
+             t: float, concurrency: int, budget: Budget) -> tuple[np.ndarray, float]:
+    if encoding == "grpc":
+        return asyncio.run(_drive_grpc(grpc_target, grpc_request(name, states, t), concurrency,
+                                       budget))
+    body, headers = http_request(encoding, states, t)
+    return asyncio.run(_drive_http(f"{base}/v2/models/{name}/infer", encoding, body, headers,
+                                   concurrency, budget))
+
+
 def _row(stack: str, batch: int, encoding: str, concurrency: int, latencies: np.ndarray,
          elapsed: float) -> dict[str, Any]:
     return {"stack": stack, "batch": batch, "encoding": encoding, "concurrency": concurrency,
@@ -196,6 +209,7 @@ def _row(stack: str, batch: int, encoding: str, concurrency: int, latencies: np.
 
 def run(bundle: Path, *, quick: bool = False) -> dict[str, Any]:
     """Measure the floors and every (stack, batch, encoding, concurrency) cell."""
+    load_before = list(os.getloadavg())
     bundle = Path(bundle)
     stepper = load(bundle)
     name = bundle.resolve().name.removesuffix(".bundle")
@@ -212,45 +226,77 @@ def run(bundle: Path, *, quick: bool = False) -> dict[str, Any]:
             "runtime in process": lambda s=states: stepper.advance(s, t)}, budget)
         for label, samples in floors.items():
             rows.append(_row("-", batch, label, 1, samples, float(np.sum(samples))))
-    for stack, (loop, http) in STACKS.items():
-        process, base, grpc_target = _start_server(bundle, loop, http)
-        try:
-            url = f"{base}/v2/models/{name}/infer"
-            for batch in BATCHES:
-                states = _states(stepper, batch)
-                for encoding in ENCODINGS:
-                    for concurrency in CONCURRENCY:
-                        if encoding == "grpc":
-                            measured = asyncio.run(_drive_grpc(
-                                grpc_target, grpc_request(name, states, t), concurrency,
-                                budget))
-                        else:
-                            body, headers = http_request(encoding, states, t)
-                            measured = asyncio.run(_drive_http(url, encoding, body, headers,
-                                                               concurrency, budget))
-                        rows.append(_row(stack, batch, encoding, concurrency, *measured))
-        finally:
+    # Both stacks serve at once and take turns on every cell (A then B, then B then A, half
+    # the budget each), so a change in the machine's load falls on both alike.
+    servers = {}
+    try:
+        for stack, (loop, http) in STACKS.items():
+            servers[stack] = _start_server(bundle, loop, http)
+        half = dataclasses.replace(budget, seconds=budget.seconds / 2,
+                                   min_rounds=budget.min_rounds // 2,
+                                   max_rounds=budget.max_rounds // 2)
+        for batch in BATCHES:
+            states = _states(stepper, batch)
+            for encoding in ENCODINGS:
+                for concurrency in CONCURRENCY:
+                    measured: dict[str, list[tuple[np.ndarray, float]]] = {s: [] for s in STACKS}
+                    for order in (list(STACKS), list(reversed(STACKS))):
+                        for stack in order:
+                            _, base, grpc_target = servers[stack]
+                            measured[stack].append(_measure(
+                                name, base, grpc_target, encoding, states, t, concurrency,
+                                half))
+                    for stack, parts in measured.items():
+                        rows.append(_row(stack, batch, encoding, concurrency,
+                                         np.concatenate([p[0] for p in parts]),
+                                         sum(p[1] for p in parts)))
+    finally:
+        for process, _, _ in servers.values():
             process.terminate()
             process.wait(timeout=30)
     return {"rows": rows, "blas": numpy_blas_threads(), "thread_variables": thread_variables(),
             "openblas_coretype": os.environ.get("OPENBLAS_CORETYPE"),
-            "bundle": name, "t": t}
+            "bundle": name, "t": t, "quick": quick, "machine": describe(),
+            "load_before": load_before, "load_after": list(os.getloadavg())}
 
 
-def to_markdown(result: dict[str, Any]) -> str:
+def _load(values: list[float]) -> str:
+    return " / ".join(f"{value:.2f}" for value in values)
+
+
+def to_markdown(result: dict[str, Any], command: str | None = None) -> str:
     rows = result["rows"]
     floor = {row["batch"]: row["p50"] for row in rows
              if row["encoding"] == "onnxruntime in process"}
-    lines = [f"BLAS: {result['blas']}; OPENBLAS_CORETYPE={result['openblas_coretype']}; "
-             f"bundle {result['bundle']}, t = {result['t']:g}", "",
-             "| server stack | batch | encoding | clients | requests/s | p50 | p99 | "
-             "p50 / onnxruntime |", "|---|---:|---|---:|---:|---:|---:|---:|"]
+    machine = result.get("machine", {})
+    lines = []
+    if command:
+        lines += ["```", command, "```", ""]
+    lines += [f"BLAS: {result['blas']}; thread variables: {result['thread_variables']}; "
+              f"bundle {result['bundle']}, t = {result['t']:g}", "",
+              f"Machine: {machine.get('cpu')}, {machine.get('cpus_usable')} usable CPUs; load "
+              f"average (1 / 5 / 15 min) {_load(result['load_before'])} before, "
+              f"{_load(result['load_after'])} after; client, server and floors share the "
+              "machine.", "",
+              "| server stack | batch | encoding | clients | requests/s | p50 | p99 | "
+              "p50 / onnxruntime |", "|---|---:|---|---:|---:|---:|---:|---:|"]
     for row in rows:
         ratio = row["p50"] / floor[row["batch"]]
         lines.append(f"| {row['stack']} | {row['batch']} | {row['encoding']} | "
                      f"{row['concurrency']} | {format_rate(row['requests_per_second'])} | "
                      f"{format_seconds(row['p50'])} | {format_seconds(row['p99'])} | "
                      f"{ratio:.1f}x |")
+    lines += ["", "Does uvloop + httptools help? Requests/s under uvloop+httptools over "
+              "asyncio+h11, same cell:", "",
+              "| batch | encoding | clients | ratio |", "|---:|---|---:|---:|"]
+    by_cell = {(row["stack"], row["batch"], row["encoding"], row["concurrency"]): row
+               for row in rows}
+    for (stack, batch, encoding, clients), row in by_cell.items():
+        if stack != "uvloop+httptools":
+            continue
+        plain = by_cell[("asyncio+h11", batch, encoding, clients)]
+        ratio = row["requests_per_second"] / plain["requests_per_second"]
+        lines.append(f"| {batch} | {encoding} | {clients} | {ratio:.2f} |")
     return "\n".join(lines)
 
 
@@ -263,12 +309,37 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("bundle", type=Path, help="bundle directory to serve")
     parser.add_argument("--quick", action="store_true", help="short budgets (a smoke run)")
     parser.add_argument("--json", type=Path, help="also write the rows as JSON")
+    parser.add_argument("--markdown", type=Path,
+                        help="also write the tables, with this command, to a Markdown file")
     arguments = parser.parse_args(argv)
     result = run(arguments.bundle, quick=arguments.quick)
-    print(to_markdown(result))
+    unset = " ".join(f"-u {name}" for name in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE")
+                     if name not in os.environ)
+    arguments_given = " ".join(argv if argv is not None else sys.argv[1:])
+    command = ((f"env {unset} " if unset else "")
+               + f"python -m stridecast.benchmarks.service_bench {arguments_given}")
+    text = to_markdown(result, command)
+    print(text)
     if arguments.json:
-        arguments.json.write_text(json.dumps(result, indent=2, default=str) + "\n")
+        _write(arguments.json, json.dumps(result, indent=2, default=str) + "\n")
+    if arguments.markdown:
+        _write(arguments.markdown, "# Service benchmark\n\n" + INTRO + "\n\n" + text + "\n")
     return 0
+
+
+INTRO = (
+    "The open inference protocol's `infer` for batches of 1 and 64 states, 1 and 8 concurrent "
+    "clients, in four encodings (JSON, MessagePack, binary tensor data extension, gRPC raw "
+    "contents), under uvicorn's asyncio + h11 and under uvloop + httptools; the floors are "
+    "onnxruntime running the bundle's ONNX files along the runtime's plan in process and "
+    "`Stepper.advance` in process. Written by `benchmarks/service_bench.py`.")
+
+
+def _write(path: Path, text: str) -> None:
+    # Temporary name, then rename: never a half-written file under the final name.
+    partial = path.with_name(f".{path.name}.partial")
+    partial.write_text(text)
+    partial.replace(path)
 
 
 if __name__ == "__main__":

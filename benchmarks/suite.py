@@ -77,7 +77,16 @@ def _solvers(bundle: Path, crane_bundle: Path | None, quick: bool) -> dict[str, 
     target = bundle_bench.on_grid(stepper, bundle_bench.NAIVE_TARGET_STEPS)
     logger.info("solve_ivp comparison with %s", crane_bundle if trained else bundle)
     return solver_bench.run(stepper, horizons, trained_on_crane=trained, target_steps=target,
-                            quick=quick, source=str(crane_bundle if trained else bundle))
+                            quick=quick, source=_source_name(crane_bundle if trained else bundle))
+
+
+def _source_name(path: Path) -> str:
+    """How the report names a bundle: the shipped one by its API call (a checkout's absolute
+    path would mean nothing to a reader), any other by the path given."""
+    shipped = shipped_crane_bundle()
+    if shipped is not None and Path(path).resolve() == shipped.resolve():
+        return "stridecast.demo_bundle()"
+    return str(path)
 
 
 def busy_neighbour_pass(bundle: Path, *, quick: bool, modules=None) -> dict[str, Any]:

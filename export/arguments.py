@@ -7,7 +7,6 @@ Each check names the argument, the value received and what was expected; the res
 from __future__ import annotations
 
 import math
-import operator
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -16,6 +15,7 @@ import numpy as np
 
 from stridecast.runtime.errors import BundleError
 from stridecast.runtime.manifest import UPDATE_FORMS
+from stridecast.runtime.validation import check_stride
 
 EXPORTERS = ("auto", "dynamo", "legacy")
 # Two base steps are the same when they differ by at most this fraction: far above float32
@@ -65,21 +65,6 @@ def level_pairs(levels: Mapping[Any, Any] | Iterable[tuple[Any, Any]]) -> list[t
         seen.add(stride)
         pairs.append((stride, item[1]))
     return sorted(pairs, key=lambda pair: pair[0])
-
-
-def check_stride(value: Any) -> int:
-    """A stride as a positive int, or `BundleError` naming the value."""
-    if isinstance(value, bool | float | str | bytes):
-        raise BundleError(f"stride {value!r} is not an integer; strides are whole base steps.")
-    try:
-        stride = operator.index(value)
-    except TypeError as error:
-        raise BundleError(
-            f"stride {value!r} is not an integer; strides are whole base steps."
-        ) from error
-    if stride <= 0:
-        raise BundleError(f"stride {stride} must be a positive number of base steps.")
-    return stride
 
 
 def check_base_step(value: Any) -> float:

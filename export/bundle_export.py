@@ -39,7 +39,7 @@ from stridecast.runtime import (
     load,
     write_bundle,
 )
-from stridecast.runtime.bundle import REPORT_NAME, move_into_place
+from stridecast.runtime.bundle import check_target, move_into_place, write_report
 from stridecast.runtime.errors import BundleError
 
 from . import plots, validity
@@ -199,7 +199,7 @@ def export_bundle(
     exporter = check_exporter(exporter)
     validation = _json_ready(validation, "validation")
     target = Path(out)
-    _check_target(target, overwrite)
+    check_target(target, overwrite=overwrite)
 
     state_dim = declared_state_dim(mean=mean, scale=scale, state_names=state_names, units=units,
                                    envelope=envelope)
@@ -261,9 +261,8 @@ def export_bundle(
         if samples is not None:
             report["envelope"] = {"samples": len(samples[0]), "radius": samples[1],
                                   "file": SAMPLES_FILE, "units": "normalised"}
-        (staged / REPORT_NAME).write_text(json.dumps(report, indent=2, allow_nan=False) + "\n",
-                                          encoding="utf-8")
-        _check_target(target, overwrite)
+        write_report(staged, report)
+        check_target(target, overwrite=overwrite)
         move_into_place(staged, target)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
@@ -494,19 +493,6 @@ def _inferred_state_dim(pairs: list[tuple[int, Any]]) -> int:
         "the state dimension cannot be inferred from the modules; pass `mean`/`scale` or "
         "`state_names`."
     )
-
-
-def _check_target(target: Path, overwrite: bool) -> None:
-    if target.exists() or target.is_symlink():
-        if not overwrite:
-            raise BundleError(
-                f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to "
-                "replace it."
-            )
-        if target.is_symlink() or not target.is_dir():
-            raise BundleError(
-                f"{str(target)!r} exists and is not a directory; refusing to replace it."
-            )
 
 
 def _default_name(target: Path) -> str:

@@ -14,9 +14,11 @@ from typing import Any
 
 import torch
 
+from stridecast.runtime.bundle import check_target
 from stridecast.runtime.errors import BundleError, StateError
+from stridecast.runtime.validation import check_stride
 
-from .arguments import check_base_step, check_stride, level_pairs, same_base_step
+from .arguments import check_base_step, level_pairs, same_base_step
 from .bundle_export import export_bundle
 from .data import load_trajectories
 from .onnx_export import quiet_torch
@@ -107,10 +109,7 @@ def export_from_files(levels: Mapping[int, str | os.PathLike[str]]
     """
     pairs = level_pairs(levels)
     target = Path(out)
-    if target.exists() and not overwrite:
-        raise BundleError(
-            f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to replace it."
-        )
+    check_target(target, overwrite=overwrite)  # before reading the level files
     extra = read_normalization(normalization_json) if normalization_json is not None else {}
     loaded = [(stride, load_level_file(path, stride)) for stride, path in pairs]
     return export_bundle(
@@ -144,11 +143,7 @@ def train_from_file(data_path: str | os.PathLike[str], out: str | os.PathLike[st
         Further keywords of `train_levels` (hidden, activation, rollout, epochs, ...).
     """
     target = Path(out)
-    if target.exists() and not overwrite:
-        # Refuse before training, not after it.
-        raise BundleError(
-            f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to replace it."
-        )
+    check_target(target, overwrite=overwrite)  # before training, not after it
     data = load_trajectories(data_path)
     step = _reconcile(base_step, data.base_step, "base_step", data_path,
                       hint="pass --base-step (time between samples)")

@@ -27,9 +27,9 @@ import torch
 from torch import nn
 from tqdm.auto import tqdm
 
-from stridecast.runtime.errors import BundleError
+from stridecast.runtime.validation import check_strides
 
-from .arguments import check_base_step, check_stride, check_strings
+from .arguments import check_base_step, check_strings
 from .data import check_length, check_trajectories
 from .envelope import RADIUS_MARGIN, RADIUS_QUANTILE, data_envelope
 from .errors import TrainingError
@@ -172,7 +172,7 @@ def train_levels(
                                tolerance=tolerance, horizon=horizon,
                                keep_all_levels=keep_all_levels)
     base_step = check_base_step(base_step)
-    strides = _check_strides(strides)
+    strides = check_strides(strides)
     _check_horizon(settings.horizon, base_step, strides[0])
     dim = data.dim
     names = None if state_names is None else check_strings(state_names, "state_names", dim,
@@ -434,15 +434,6 @@ def _torch_threads(threads: int | None) -> Iterator[None]:
         yield
     finally:
         torch.set_num_threads(previous)
-
-
-def _check_strides(strides: Sequence[int]) -> tuple[int, ...]:
-    if isinstance(strides, str | bytes) or not isinstance(strides, Sequence) or not strides:
-        raise BundleError(f"`strides` is {strides!r}; expected a non-empty list of integers.")
-    checked = [check_stride(stride) for stride in strides]
-    if len(set(checked)) != len(checked):
-        raise BundleError(f"`strides` repeats a stride: {checked}; strides must be distinct.")
-    return tuple(sorted(checked))
 
 
 def _positive_int(value: Any, where: str) -> int:

@@ -216,12 +216,7 @@ def write_bundle(out: str | os.PathLike[str], manifest: Manifest, level_files: M
         `load` will check it.
     """
     target = Path(out)
-    if target.exists() and not overwrite:
-        raise BundleError(
-            f"{str(target)!r} already exists; pass overwrite=True (or --overwrite) to replace it."
-        )
-    if target.exists() and not target.is_dir():
-        raise BundleError(f"{str(target)!r} exists and is not a directory; refusing to replace it.")
+    check_target(target, overwrite=overwrite)
     if sorted(level_files) != sorted(entry.stride for entry in manifest.levels):
         raise BundleError(
             f"level files were given for strides {sorted(level_files)} but the manifest lists "
@@ -317,6 +312,68 @@ def _staged_extras(manifest: Manifest, extra_files: Mapping[str, bytes]) -> dict
         decode_samples(extras[samples.file], count=samples.count, dim=manifest.level_dim,
                        where=f"extra_files[{samples.file!r}]")
     return extras
+
+
+def check_target(target: str | os.PathLike[str], *, overwrite: bool, where: str = "",
+                 hint: str = "pass overwrite=True (or --overwrite) to replace it") -> None:
+    """Refuse to write a bundle where something already lies, unless `overwrite`.
+
+    The one overwrite rule of every writer (`write_bundle`, `export_bundle`, `stridecast
+    train`/`export`/`demo`); callers that work for minutes call it before starting, too.
+    A folder is replaced only when `overwrite`; a file or a symbolic link never is.
+
+    Parameters
+    ----------
+    target : path
+        Where the bundle is to go.
+    overwrite : bool
+        Whether an existing bundle folder may be replaced.
+    where : str
+        The option that named `target` (e.g. "--out"), if any, for the message.
+    hint : str
+        How the caller lets its user replace it (the message's last clause).
+    """
+    target = Path(target)
+    if not (target.exists() or target.is_symlink()):
+        return
+    if not overwrite:
+        named = f"`{where}` " if where else ""
+        raise BundleError(f"{named}{str(target)!r} already exists; {hint}.")
+    if target.is_symlink() or not target.is_dir():
+        raise BundleError(f"{str(target)!r} exists and is not a directory; refusing to replace it.")
+
+
+def write_report(folder: str | os.PathLike[str], report: Mapping[str, object]) -> Path:
+    """Write `report` as the bundle's report.json (strict JSON), replacing it atomically.
+
+    The one writer of report.json: the exporter's staged bundle and the demo's additions
+    both go through it. The file is written under a temporary name in `folder`, then renamed.
+
+    Parameters
+    ----------
+    folder : path
+        The bundle directory.
+    report : mapping
+        JSON-ready content; NaN and infinities are refused (JSON has no such numbers).
+    """
+    import tempfile
+
+    path = Path(folder) / REPORT_NAME
+    try:
+        text = json.dumps(report, indent=2, allow_nan=False) + "\n"
+    except (TypeError, ValueError) as error:
+        raise BundleError(f"`report` cannot be written as JSON: {error}.") from error
+    descriptor, temporary = tempfile.mkstemp(prefix=".report.", suffix=".json", dir=folder)
+    try:
+        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
+            handle.write(text)
+        os.chmod(temporary, 0o644)  # mkstemp makes the file private; bundles are shared data
+        os.replace(temporary, path)
+    except BaseException:
+        if os.path.exists(temporary):
+            os.unlink(temporary)
+        raise
+    return path
 
 
 def move_into_place(staging: Path, target: Path) -> None:

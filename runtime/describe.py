@@ -16,9 +16,11 @@ from .bundle import (
     read_reduction,
     sha256_hex,
 )
-from .errors import BundleError
+from .errors import BundleError, ModelFormatError
 from .limits import DEFAULT_LIMITS, Limits
+from .manifest import Manifest
 from .onnx_reader import read_model
+from .reduction import map_form
 
 
 def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LIMITS
@@ -29,7 +31,9 @@ def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LI
     "ok" or "mismatch" under `checksum` (a mismatched level is not parsed), the other files
     the manifest names (envelope samples, encoder, decoder) are listed under `files`, and
     `checksums_ok` says whether everything matched. Unsafe paths and malformed manifests
-    still raise `BundleError`.
+    still raise `BundleError`. A reduced bundle also gets `reduction`: latent dimension,
+    reconstruction threshold, and per map its file, checksum status and form ("linear",
+    "affine chain" or "general graph").
     """
     root = open_bundle_root(path)
     manifest = read_manifest(root, limits=limits)
@@ -82,4 +86,34 @@ def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LI
     checksums_ok = (all(level["checksum"] == "ok" for level in levels)
                     and all(item["checksum"] == "ok" for item in files))
     return {"path": str(root), "manifest": manifest.to_dict(), "levels": levels,
-            "files": files, "checksums_ok": checksums_ok, "plots": plots, "report": report}
+            "files": files, "checksums_ok": checksums_ok, "plots": plots, "report": report,
+            "reduction": _reduction(root, manifest, limits)}
+
+
+def _reduction(root, manifest: Manifest, limits: Limits) -> dict[str, Any] | None:
+    """The encoder and decoder of a reduced bundle, described without stopping at a bad
+    checksum (its status is "mismatch" and the form is not read)."""
+    reduction = manifest.reduction
+    if reduction is None:
+        return None
+    contents = read_reduction(root, manifest, verify=False, limits=limits)
+    maps = {}
+    for side, entry, data in (("encoder", reduction.encoder, contents[0]),
+                              ("decoder", reduction.decoder, contents[1])):
+        ok = sha256_hex(data) == entry.sha256
+        described: dict[str, Any] = {"file": entry.file, "sha256": entry.sha256,
+                                     "bytes": len(data), "checksum": "ok" if ok else "mismatch",
+                                     "form": None, "operators": {}, "parameters": None}
+        if ok:
+            model = read_model(data, limits=limits, source=entry.file)
+            try:
+                described["form"] = map_form(model, max_nodes=limits.max_graph_nodes)
+            except ModelFormatError as error:
+                described["form"] = f"unreadable: {error}"
+            described["operators"] = dict(sorted(Counter(
+                node.op_type for node in model.graph.nodes).items()))
+            described["parameters"] = sum(int(t.array.size) for t in model.graph.initializers
+                                          if t.array.dtype.kind == "f")
+        maps[side] = described
+    return {"latent_dim": reduction.latent_dim,
+            "reconstruction_threshold": reduction.reconstruction_threshold, **maps}

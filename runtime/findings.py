@@ -19,8 +19,8 @@ import numpy as np
 from .envelope import Assessment
 from .errors import ExtrapolationError, ExtrapolationWarning
 
-KINDS = ("outside_box", "far_from_data", "beyond_horizon", "no_validation")
-WARNING_KINDS = ("outside_box", "far_from_data", "beyond_horizon")
+KINDS = ("outside_box", "far_from_data", "off_subspace", "beyond_horizon", "no_validation")
+WARNING_KINDS = ("outside_box", "far_from_data", "off_subspace", "beyond_horizon")
 """Kinds that trigger `on_extrapolation`; "no_validation" is reported but never warns."""
 POLICIES = ("warn", "error", "ignore")
 _RUNTIME_DIR = os.path.dirname(os.path.abspath(__file__)) + os.sep
@@ -35,8 +35,10 @@ class Finding:
     ----------
     kind : str
         "outside_box" (a component outside the envelope's min/max), "far_from_data" (the
-        nearest training sample is farther than the radius), "beyond_horizon" (t past the
-        validated horizon) or "no_validation" (the bundle records no validated horizon).
+        nearest training sample is farther than the radius), "off_subspace" (a reduced
+        bundle's encoder and decoder do not reproduce the given state: its reconstruction
+        error exceeds the bundle's threshold), "beyond_horizon" (t past the validated
+        horizon) or "no_validation" (the bundle records no validated horizon).
     message : str
         The sentence to show a user (CLI and HTTP print it as is).
     states : tuple of int
@@ -47,7 +49,8 @@ class Finding:
         When: the earliest visited time at which the state was outside (None for the initial
         state alone), or the latest requested time beyond the horizon.
     amount : float or None
-        How far: box widths beyond the box, distance / radius, or t / horizon.
+        How far: box widths beyond the box, distance / radius, reconstruction error /
+        threshold, or t / horizon.
     """
 
     kind: str
@@ -172,6 +175,44 @@ def envelope_findings(assessment: Assessment, *, names: Sequence[str],
             t=t, amount=ratio,
         ))
     return tuple(findings)
+
+
+def reconstruction_findings(errors: np.ndarray, residual: np.ndarray, *, threshold: float,
+                            names: Sequence[str]) -> tuple[Finding, ...]:
+    """The finding for given full states that a reduced bundle's basis does not represent.
+
+    Parameters
+    ----------
+    errors : ndarray, shape (B,)
+        Normalised RMS of x − decoder(encoder(x)) per state (`reduction.reconstruction_errors`).
+    residual : ndarray, shape (d,)
+        (x − x̂) / scale of the worst state, to name the components that make its error.
+    threshold : float
+        The bundle's `reduction.reconstruction.threshold`.
+    names : sequence of str, length d
+        State component names.
+    """
+    rows = np.flatnonzero(errors > threshold)
+    if not rows.size:
+        return ()
+    batch = errors.shape[0]
+    worst = float(errors[rows].max())
+    share = np.asarray(residual, dtype=np.float64) ** 2
+    order = np.argsort(-share, kind="stable")
+    # The components that make up most (80 %) of the squared error, worst first.
+    cumulative = np.cumsum(share[order]) / max(float(share.sum()), 1e-300)
+    keep = [int(i) for i in order[: int(np.searchsorted(cumulative, 0.8)) + 1]]
+    verb = _verb(rows, batch, "is", "are")
+    return (Finding(
+        kind="off_subspace",
+        message=(f"{_rows(rows, batch).capitalize()} {verb} not well represented by the "
+                 f"bundle's reduced basis: reconstruction error {worst:.3g} vs {threshold:.3g} "
+                 "from the training data (normalised RMS of the state minus decoder(encoder("
+                 f"state))), mostly in {_names([names[i] for i in keep])}."),
+        states=tuple(int(r) for r in rows),
+        components=tuple(names[i] for i in keep),
+        t=None, amount=worst / threshold,
+    ),)
 
 
 def horizon_findings(times: np.ndarray, *, horizon: float | None, errors: np.ndarray,

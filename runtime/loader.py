@@ -19,11 +19,10 @@ from .findings import POLICIES
 from .graph import build_program
 from .limits import DEFAULT_LIMITS, Limits
 from .onnx_reader import read_model
-from .reduction import LatentMaps, make_map
+from .reduction import LatentMaps, make_map, map_names
 from .stepper import Stepper
 from .threads import ThreadPolicy
-
-DTYPES = ("float32", "float64")
+from .validation import DTYPES
 
 
 def load(path: str | os.PathLike[str], *, dtype: str = "float32", verify: bool = True,
@@ -126,7 +125,7 @@ def _latent_maps(manifest, contents: tuple[bytes, bytes], compute: np.dtype, fas
         where = f"the {side} ({entry.file})"
         try:
             model = read_model(data, limits=limits, source=entry.file)
-            input_name, output_name = _only_names(model)
+            input_name, output_name = map_names(model)
             program = build_program(model, input_name=input_name, output_name=output_name,
                                     dtype=compute, max_nodes=limits.max_graph_nodes)
             function = make_map(program, side=side, mean=manifest.mean, scale=manifest.scale,
@@ -147,21 +146,6 @@ def _latent_maps(manifest, contents: tuple[bytes, bytes], compute: np.dtype, fas
             ) from error
         maps[side] = function
     return LatentMaps(latent_dim=latent_dim, encoder=maps["encoder"], decoder=maps["decoder"])
-
-
-def _only_names(model) -> tuple[str, str]:
-    """The one runtime input and the one output of an encoder or decoder graph (the manifest
-    names neither: each has exactly one of both)."""
-    graph = model.graph
-    constants = {tensor.name for tensor in graph.initializers}
-    inputs = [info.name for info in graph.inputs if info.name not in constants]
-    outputs = [info.name for info in graph.outputs]
-    if len(inputs) != 1 or len(outputs) != 1:
-        raise ModelFormatError(
-            f"the graph has runtime inputs {inputs} and outputs {outputs}; an encoder or "
-            "decoder must have exactly one of each."
-        )
-    return inputs[0], outputs[0]
 
 
 def _probe_map(function, states: np.ndarray, width_out: int) -> None:

@@ -15,6 +15,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .errors import BundleError
+from .validation import check_stride
 
 FORMAT_NAME = "stridecast.bundle"
 FORMAT_VERSION = 1
@@ -475,7 +476,7 @@ def _levels(value: Any) -> tuple[LevelEntry, ...]:
         where = f"levels[{index}]"
         item = _object(item, where, required={"stride", "file", "sha256"},
                        optional={"input", "output"})
-        stride = _positive_int(item["stride"], f"{where}.stride")
+        stride = check_stride(item["stride"], where=f"{where}.stride")
         file = _string(item["file"], f"{where}.file")
         digest = _string(item["sha256"], f"{where}.sha256")
         if not _SHA256.match(digest):

@@ -57,38 +57,13 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from .errors import BundleError, TimeError
+from .errors import TimeError
+from .validation import check_strides
 
 # Targets beyond this are refused so residue arithmetic stays inside int64.
 MAX_TARGET = 2**62
 # Marks "no combination" in the int32 count table; far above any real count (<= 2**24).
 _NO_PLAN = 2**30
-
-
-def _validate_strides(strides: Iterable[int]) -> tuple[int, ...]:
-    """Return the strides as distinct positive ints, largest first, or raise `BundleError`."""
-    try:
-        received = tuple(strides)
-    except TypeError as error:
-        raise BundleError(
-            f"`strides` must be an iterable of positive integers; got {strides!r}."
-        ) from error
-    values = []
-    for stride in received:
-        if isinstance(stride, bool):
-            raise BundleError(f"`strides` must be positive integers; got {received!r}.")
-        try:
-            value = operator.index(stride)
-        except TypeError as error:
-            raise BundleError(f"`strides` must be positive integers; got {received!r}.") from error
-        if value <= 0:
-            raise BundleError(f"`strides` must be positive integers; got {received!r}.")
-        values.append(value)
-    if not values:
-        raise BundleError("`strides` must hold at least one stride; got ().")
-    if len(set(values)) != len(values):
-        raise BundleError(f"`strides` must be distinct; got {tuple(values)!r}.")
-    return tuple(sorted(values, reverse=True))
 
 
 def _validate_target(n: int) -> int:
@@ -242,7 +217,7 @@ class StridePlanner:
         max_steps: int = 1_000_000,
         max_table_entries: int = 2**24,
     ) -> None:
-        self._strides = _validate_strides(strides)
+        self._strides = check_strides(strides)[::-1]  # largest first
         self._max_steps = int(max_steps)
         self._max_table_entries = int(max_table_entries)
         self._largest = self._strides[0]

@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .compile import Affine, ChainKernel, Stage, recognise_chain
-from .errors import NonFiniteError, StateError
-from .graph import Program
+from .errors import ModelFormatError, NonFiniteError, StateError
+from .graph import Program, build_program
 from .threads import ThreadPolicy
 
 SIDES = ("encoder", "decoder")
@@ -46,6 +46,34 @@ class GenericMap:
         if self.side == "encoder":
             return np.asarray(self.program.run((states - self.mean) / self.scale))
         return np.asarray(self.program.run(states)) * self.scale + self.mean
+
+
+def map_names(model) -> tuple[str, str]:
+    """The one runtime input and the one output of an encoder or decoder graph (the manifest
+    names neither: each has exactly one of both)."""
+    graph = model.graph
+    constants = {tensor.name for tensor in graph.initializers}
+    inputs = [info.name for info in graph.inputs if info.name not in constants]
+    outputs = [info.name for info in graph.outputs]
+    if len(inputs) != 1 or len(outputs) != 1:
+        raise ModelFormatError(
+            f"the graph has runtime inputs {inputs} and outputs {outputs}; an encoder or "
+            "decoder must have exactly one of each."
+        )
+    return inputs[0], outputs[0]
+
+
+def map_form(model, *, max_nodes: int) -> str:
+    """What an encoder or decoder graph computes, for descriptions: "linear" (affine layers
+    only, e.g. a POD basis), "affine chain" (affine layers and activations: the compiled
+    path) or "general graph" (the interpreter)."""
+    names = map_names(model)
+    program = build_program(model, input_name=names[0], output_name=names[1],
+                            dtype=np.dtype(np.float64), max_nodes=max_nodes)
+    stages = recognise_chain(program)
+    if stages is None:
+        return "general graph"
+    return "linear" if all(isinstance(s, Affine) for s in stages) else "affine chain"
 
 
 def make_map(program: Program, *, side: str, mean: Sequence[float], scale: Sequence[float],
@@ -108,6 +136,29 @@ def _folded(stages: list[Stage], side: str, mean: np.ndarray, scale: np.ndarray,
     ]
     return ChainKernel(stages, residual=False, input_shift=input_shift,
                        input_scale=input_scale, policy=policy)
+
+
+def reconstruction_errors(states: np.ndarray, rebuilt: np.ndarray, scale: np.ndarray
+                          ) -> tuple[np.ndarray, np.ndarray]:
+    """How far decoder(encoder(x)) lies from x, per state (manifest metric "normalised_rms").
+
+    Parameters
+    ----------
+    states, rebuilt : ndarray, shape (B, d)
+        Full states x and their reconstructions x̂, physical units.
+    scale : ndarray, shape (d,)
+        The manifest's normalisation scale.
+
+    Returns
+    -------
+    errors : ndarray, shape (B,)
+        sqrt(mean_i ((x_i − x̂_i) / scale_i)²), in float64.
+    worst : ndarray, shape (d,)
+        (x − x̂) / scale of the state with the largest error (which components make it).
+    """
+    residual = (states.astype(np.float64) - rebuilt) / scale
+    errors = np.sqrt(np.mean(residual * residual, axis=1))
+    return errors, residual[int(np.argmax(errors))]
 
 
 @dataclass(frozen=True)

@@ -27,6 +27,7 @@ from .findings import (
     Finding,
     envelope_findings,
     horizon_findings,
+    reconstruction_findings,
     warn_or_raise,
 )
 from .integrate import integrate
@@ -35,10 +36,11 @@ from .limits import DEFAULT_LIMITS, Limits
 from .manifest import Manifest
 from .plan import Plan
 from .planner import StridePlanner
-from .reduction import LatentMaps
+from .reduction import LatentMaps, reconstruction_errors
 from .validation import (
     check_off_grid,
     check_state,
+    check_strides,
     check_time,
     check_times,
 )
@@ -101,8 +103,11 @@ class Stepper:
         self._samples = envelope_samples
         # A reduced bundle: `_states` encodes every full state it checks and `_full` decodes
         # the answers; everything between (plans, waves, interpolation, the envelope) runs on
-        # latent states.
+        # latent states. Given full states are also checked against the reconstruction
+        # threshold (`_off_subspace`), when the bundle records one.
         self._reduction = reduction
+        self._threshold = None if reduction is None else (
+            manifest.reduction.reconstruction_threshold)
         space = manifest.level_dim
         level_mean, level_scale = ((manifest.mean, manifest.scale) if reduction is None
                                    else ((0.0,) * space, (1.0,) * space))
@@ -182,8 +187,14 @@ class Stepper:
         # bundle itself, and refuses a bundle that changed since.
         arguments = getattr(self, "_load_arguments", None)
         if arguments is None:
-            raise TypeError("only a Stepper made by `stridecast.runtime.load` can be pickled.")
-        return _load_again, (*arguments, _checksums(self._manifest))
+            raise TypeError("only a Stepper made by `stridecast.runtime.load` (or its "
+                            "`with_levels`) can be pickled.")
+        subset = getattr(self, "_subset_of", None)
+        if subset is None:
+            return _load_again, (*arguments, _checksums(self._manifest))
+        # A `with_levels` subset travels as its whole bundle and the strides chosen.
+        full_checksums, strides = subset
+        return _load_again, (*arguments, full_checksums, strides)
 
     def __repr__(self) -> str:
         return (f"Stepper(name={self._manifest.name!r}, state_dim={self.state_dim}, "
@@ -222,7 +233,7 @@ class Stepper:
 
     def step(self, state: np.ndarray, stride: int) -> np.ndarray:
         """Apply the network of one level once (one stride) to `state`."""
-        states, single = self._states(state)
+        states, single, _ = self._states(state)
         if stride not in self._kernels:
             raise OptionError(f"`stride` is {stride!r}; this bundle has strides {self.strides}.")
         result = self._full(self._apply(stride, states, depth=0))
@@ -261,7 +272,7 @@ class Stepper:
         """`advance`, also returning the `Plan` that says how the answer was produced and
         the findings of this call (every visited state checked against the envelope, `t`
         against the validated horizon); warns, raises or not as `on_extrapolation` says."""
-        states, single = self._states(state)
+        states, single, full = self._states(state)
         resolution, plan, schedule, visited = self._planned(t, off_grid, vector_field,
                                                             hybrid_below)
         # States are kept for the envelope check only when the bundle has an envelope.
@@ -272,17 +283,23 @@ class Stepper:
             anchor_states = self._run_schedule(schedule, states, visits)
         result, rk_evaluations = self._finish(resolution, resolution.anchors, anchor_states,
                                               vector_field)
+        # An integrated answer is a full state already (`_finish` decodes before integrating).
+        integrated = resolution.method in ("integrate", "hybrid") and resolution.remainder > 0
         if rk_evaluations:
             plan = replace(plan, integrator_evaluations=rk_evaluations)
+        answer = result if integrated else self._full(result)
+        times = np.array([resolution.t])
+        found = ()
         if visits is not None:
-            answer = None if resolution.method in ("grid", "nearest") else result[None]
-            found = self._path_findings(states, visits, visited, answer,
-                                        np.array([resolution.t]))
-            if found:
-                plan = replace(plan, findings=found + plan.findings)
+            off_path = resolution.method not in ("grid", "nearest")
+            level_answer = result[None] if off_path and (
+                self._reduction is None or not integrated) else None
+            found = self._path_findings(states, visits, visited, level_answer, times)
+        found += self._off_subspace(full, states)
+        if found:
+            plan = replace(plan, findings=found + plan.findings)
         warn_or_raise(plan.findings, self._policy)
-        result = self._full(result)
-        return (result[0] if single else result), plan
+        return (answer[0] if single else answer), plan
 
     def forecast(self, state: np.ndarray, times: Sequence[float], *,
                  off_grid: str = "interpolate", vector_field: VectorField | None = None,
@@ -302,16 +319,18 @@ class Stepper:
         and the findings of the call (every visited state checked against the envelope, the
         times against the validated horizon); warns, raises or not as `on_extrapolation`
         says."""
-        states, single = self._states(state)
+        states, single, full = self._states(state)
         requested = check_times(times, max_points=self._limits.max_forecast_points)
         distinct, inverse = np.unique(requested, return_inverse=True)
+        # Both return full states, each distinct time decoded once.
         if vector_field is None and hybrid_below is None:
             output, info = self._forecast_on_grid(states, distinct, off_grid)
         else:
             output, info = self._forecast_integrated(states, distinct, off_grid, vector_field,
                                                      hybrid_below)
-        output = self._full(output)[inverse.reshape(-1)]  # each distinct time decoded once
-        findings = info.findings + self._horizon_findings(distinct)
+        found = self._off_subspace(full, states)
+        output = output[inverse.reshape(-1)]
+        findings = found + info.findings + self._horizon_findings(distinct)
         info = replace(info, findings=findings,
                        expected_error=expected_errors(self._manifest.validation, requested))
         warn_or_raise(findings, self._policy)
@@ -330,23 +349,34 @@ class Stepper:
         visits = [] if self._data_envelope.active else None
         anchor_states = self._run_schedule(schedule, states, visits)
         position = {anchor: index for index, anchor in enumerate(anchors)}
-        results = np.empty((len(distinct), *states.shape), dtype=self._dtype)
+        level_results = np.empty((len(distinct), *states.shape), dtype=self._dtype)
         jobs = []  # (result index, anchor row, remainder) of the times the integrator finishes
+        on_levels = []  # result indices the levels (and interpolation) answer alone
         for index, resolution in enumerate(resolutions):
             if resolution.method in ("integrate", "hybrid") and resolution.remainder > 0:
                 jobs.append((index, position[resolution.anchors[0]], resolution.remainder))
                 continue
+            on_levels.append(index)
             rows = anchor_states[[position[a] for a in resolution.anchors]]
-            results[index], _ = self._finish(resolution, resolution.anchors, rows, vector_field)
+            level_results[index], _ = self._finish(resolution, resolution.anchors, rows,
+                                                   vector_field)
+        if self._reduction is None:
+            results = level_results
+        else:  # decode what the levels answered; the integrator answers in full space
+            results = np.empty((len(distinct), states.shape[0], self.state_dim), self._dtype)
+            if on_levels:
+                results[on_levels] = self._full(level_results[on_levels])
         rk_total = self._integrate_jobs(jobs, anchor_states, vector_field, results)
         findings = ()
         if visits is not None:
+            answered = results if self._reduction is None else level_results[on_levels]
             findings = self._path_findings(states, visits,
                                            node_base_steps(schedule) * self.base_step,
-                                           results, distinct)
+                                           answered, distinct[on_levels] if self._reduction
+                                           is not None else distinct)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
-            network_calls=sum(len(wave) for wave in schedule.waves),
+            network_calls=schedule.calls,
             depth=schedule.depth,
             integrator_evaluations=rk_total,
             methods=tuple(sorted({r.method for r in resolutions})),
@@ -398,22 +428,22 @@ class Stepper:
                                            None if weights is None else results, times)
         info = ForecastInfo(
             evaluations=schedule.evaluations,
-            network_calls=sum(len(wave) for wave in schedule.waves),
+            network_calls=schedule.calls,
             depth=schedule.depth,
             integrator_evaluations=0,
             methods=tuple(sorted(methods)),
             findings=findings,
         )
-        return results, info
+        return self._full(results), info
 
-    def _states(self, state) -> tuple[np.ndarray, bool]:
-        """Check full states and return them as (B, ·) in the space the levels step: the
-        states themselves, or their latent coordinates for a reduced bundle."""
-        states, single = check_state(state, names=self.state_names, dtype=self._dtype,
-                                     max_batch=self._limits.max_batch)
-        if self._reduction is not None:
-            states = self._reduction.encode(states)
-        return states, single
+    def _states(self, state) -> tuple[np.ndarray, bool, np.ndarray]:
+        """Check full states; return them as (B, ·) in the space the levels step (the states
+        themselves, or their latent coordinates for a reduced bundle: encoded once per
+        call), whether one state was given, and the full states (B, d)."""
+        full, single = check_state(state, names=self.state_names, dtype=self._dtype,
+                                   max_batch=self._limits.max_batch)
+        states = full if self._reduction is None else self._reduction.encode(full)
+        return states, single, full
 
     def _full(self, states: np.ndarray) -> np.ndarray:
         """The inverse side of `_states`: decode latent answers (..., r) to full (..., d)."""
@@ -430,7 +460,7 @@ class Stepper:
 
     def outside_envelope(self, state: np.ndarray) -> np.ndarray:
         """Per state, whether any component lies outside the training envelope."""
-        states, single = self._states(state)
+        states, single, _ = self._states(state)
         if self._envelope is None:
             flags = np.zeros(states.shape[0], dtype=bool)
         else:
@@ -475,8 +505,9 @@ class Stepper:
         -------
         tuple of Finding
         """
-        batch, _ = self._states(states)
+        batch, _, full = self._states(states)
         findings = self._envelope_findings(batch[None], np.zeros(1), path=False)
+        findings += self._off_subspace(full, batch)
         if t is not None:
             times = (np.array([check_time(t, unit=self._manifest.time_unit)]) if np.ndim(t) == 0
                      else check_times(t, max_points=self._limits.max_forecast_points))
@@ -495,18 +526,13 @@ class Stepper:
         strides : sequence of int
             Non-empty, distinct, each one of `self.strides`.
         """
-        try:
-            chosen = sorted(strides)
-        except TypeError as error:
-            raise OptionError(f"`strides` is {strides!r}; expected a list of strides.") from error
-        bad = [s for s in chosen if isinstance(s, bool) or not isinstance(s, int | np.integer)
-               or int(s) not in self._kernels]
-        if not chosen or bad or len(set(chosen)) != len(chosen):
+        chosen = check_strides(strides, error=OptionError)
+        unknown = [stride for stride in chosen if stride not in self._kernels]
+        if unknown:
             raise OptionError(
-                f"`strides` is {list(strides)!r}; expected a non-empty list of distinct strides "
-                f"of this bundle, {list(self.strides)}."
+                f"`strides` is {list(strides)!r}; {unknown} are not strides of this bundle, "
+                f"{list(self.strides)}."
             )
-        chosen = [int(s) for s in chosen]
         manifest = replace(self._manifest,
                            levels=tuple(self._manifest.level(s) for s in chosen))
         if tuple(chosen) != self.strides:
@@ -515,6 +541,12 @@ class Stepper:
                          limits=self._limits, source=self._source,
                          on_extrapolation=self._policy, reduction=self._reduction)
         subset._data_envelope = self._data_envelope  # immutable; share its precomputed norms
+        arguments = getattr(self, "_load_arguments", None)
+        if arguments is not None:
+            subset._load_arguments = arguments
+            parent = getattr(self, "_subset_of", None)
+            full_checksums = _checksums(self._manifest) if parent is None else parent[0]
+            subset._subset_of = (full_checksums, tuple(chosen))
         return subset
 
     def _horizon_findings(self, times: np.ndarray) -> tuple[Finding, ...]:
@@ -556,6 +588,20 @@ class Stepper:
             return ()  # nothing to report: spare the copy of every visited state
         return self._envelope_findings(np.concatenate(parts), times, path=True)
 
+    def _off_subspace(self, full: np.ndarray, states: np.ndarray) -> tuple[Finding, ...]:
+        """A reduced bundle's full-space check of the given states `full` (B, d), latent
+        codes `states` (B, r): the reconstruction error against the bundle's threshold (none
+        recorded, or no reduction: nothing to check). Intermediate states are latent and
+        meet the envelope on the path instead."""
+        if self._threshold is None:
+            return ()
+        # One decoder call over the given states: the whole cost of the check.
+        rebuilt = self._reduction.decode(states, self.state_dim)
+        errors, worst = reconstruction_errors(full, rebuilt.astype(np.float64),
+                                              np.asarray(self._manifest.scale))
+        return reconstruction_findings(errors, worst, threshold=self._threshold,
+                                       names=self._manifest.state_names)
+
     # ------------------------------------------------------------------------------ internals
     def _resolve(self, t: float, off_grid: str, vector_field: VectorField | None,
                  hybrid_below: int | None) -> _Resolution:
@@ -563,12 +609,6 @@ class Stepper:
         check_off_grid(off_grid)
         if vector_field is not None and not callable(vector_field):
             raise OptionError("`vector_field` must be a callable f(states) -> derivatives.")
-        if self._reduction is not None and (vector_field is not None
-                                            or hybrid_below is not None):
-            raise OptionError(
-                "`vector_field` and `hybrid_below` are not supported by a reduced bundle (its "
-                "levels step latent states); use off_grid='interpolate' or 'nearest'."
-            )
         positions, nearests, on_grids = grid_positions(np.array([t]), self.base_step)
         position, nearest, on_grid = float(positions[0]), int(nearests[0]), bool(on_grids[0])
         if hybrid_below is not None:
@@ -727,7 +767,9 @@ class Stepper:
         rows = np.asarray([job[1] for job in jobs])
         remainders = np.asarray([job[2] for job in jobs])
         used, local = np.unique(rows, return_inverse=True)
-        current = anchor_states[used].astype(np.float64)  # (anchors, B, d)
+        # (anchors, B, d): a reduced bundle's latent anchors are decoded, and the vector
+        # field then integrates full states.
+        current = self._full(anchor_states[used]).astype(np.float64)
         shape = current.shape
         elapsed, evaluations = 0.0, 0
         order = np.argsort(remainders, kind="stable")
@@ -755,7 +797,8 @@ class Stepper:
             return value.astype(self._dtype), 0
         state = anchor_states[0]
         if resolution.method in ("integrate", "hybrid") and resolution.remainder > 0:
-            final, evaluations = integrate(vector_field, state.astype(np.float64),
+            # A reduced bundle's vector field acts on full states: decode, then integrate.
+            final, evaluations = integrate(vector_field, self._full(state).astype(np.float64),
                                            resolution.remainder)
             final = np.asarray(final)
             if not np.isfinite(final).all():
@@ -788,8 +831,10 @@ class Stepper:
         )
 
 
-def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...]) -> Stepper:
-    """Unpickle a `Stepper`: load the bundle at `path` again and check it is the same one."""
+def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...],
+                strides: tuple[int, ...] | None = None) -> Stepper:
+    """Unpickle a `Stepper`: load the bundle at `path` again, check it is the same one, and
+    take the subset of `strides` when the pickled stepper was a `with_levels` subset."""
     from .errors import BundleError
     from .loader import load
 
@@ -797,7 +842,7 @@ def _load_again(path: str, options: dict, checksums: tuple[tuple[int, str], ...]
     if _checksums(stepper.manifest) != checksums:
         raise BundleError(f"the bundle at {path!r} changed since the stepper was pickled "
                           "(its levels or checksums differ); refusing to use it.")
-    return stepper
+    return stepper if strides is None else stepper.with_levels(strides)
 
 
 def _checksums(manifest: Manifest) -> tuple[tuple[int | str, str], ...]:

@@ -6,13 +6,17 @@ Every message names the parameter, the value received and what was expected.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+import operator
+from collections.abc import Iterable, Sequence
+from typing import Any
 
 import numpy as np
 
-from .errors import OptionError, StateError, TimeError
+from .errors import BundleError, OptionError, StateError, TimeError
 
+# The one list of each option's choices: the CLI, the service and the ensemble take them from here.
 OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
+DTYPES = ("float32", "float64")
 
 
 def check_state(state, *, names: Sequence[str], dtype: np.dtype, max_batch: int
@@ -39,9 +43,10 @@ def check_state(state, *, names: Sequence[str], dtype: np.dtype, max_batch: int
     else:
         raise StateError(f"`state` has shape {array.shape}; expected ({dim},) or (batch, {dim}).")
     if array.shape[1] != dim:
+        shown = list(names) if dim <= 8 else [*names[:3], "…", *names[-3:]]  # a field
         raise StateError(
             f"`state` has shape {np.shape(state)}; this bundle's state has {dim} components "
-            f"{list(names)}, so expected ({dim},) or (batch, {dim})."
+            f"{shown}, so expected ({dim},) or (batch, {dim})."
         )
     if array.shape[0] == 0:
         raise StateError("`state` is an empty batch; expected at least one state.")
@@ -89,3 +94,56 @@ def check_off_grid(off_grid) -> str:
     if off_grid not in OFF_GRID_POLICIES:
         raise OptionError(f"`off_grid` is {off_grid!r}; expected one of {list(OFF_GRID_POLICIES)}.")
     return off_grid
+
+
+def check_stride(value: Any, *, where: str | None = None,
+                 error: type[Exception] = BundleError) -> int:
+    """A stride as a positive int (whole base steps), or `error` naming the value.
+
+    The one stride rule: the planner, the manifest reader, `Stepper.with_levels`, the exporter
+    and training all call it (or `check_strides`).
+
+    Parameters
+    ----------
+    value : int
+        The stride; bools, floats and strings are refused even when integral.
+    where : str, optional
+        The field holding it (e.g. "levels[0].stride"), for the message.
+    error : exception class
+        `BundleError` for bundles and exports, `OptionError` for an option of a call.
+    """
+    subject = f"`{where}` ({value!r})" if where else f"stride {value!r}"
+    if isinstance(value, bool | float | str | bytes):
+        raise error(f"{subject} is not an integer; strides are whole base steps.")
+    try:
+        stride = operator.index(value)
+    except TypeError as cause:
+        raise error(f"{subject} is not an integer; strides are whole base steps.") from cause
+    if stride <= 0:
+        raise error(f"{subject} must be a positive number of base steps.")
+    return stride
+
+
+def check_strides(values: Iterable[Any], *, where: str = "strides",
+                  error: type[Exception] = BundleError) -> tuple[int, ...]:
+    """Strides as distinct positive ints, ascending, or `error` naming the values.
+
+    Parameters
+    ----------
+    values : iterable of int
+        Non-empty; each checked by `check_stride`.
+    where : str
+        The parameter's name, for messages.
+    error : exception class
+        As for `check_stride`.
+    """
+    try:
+        received = None if isinstance(values, str | bytes) else list(values)
+    except TypeError as cause:
+        raise error(f"`{where}` is {values!r}; expected a non-empty list of strides.") from cause
+    if not received:
+        raise error(f"`{where}` is {values!r}; expected a non-empty list of strides.")
+    checked = [check_stride(value, error=error) for value in received]
+    if len(set(checked)) != len(checked):
+        raise error(f"`{where}` repeats a stride: {checked}; strides must be distinct.")
+    return tuple(sorted(checked))

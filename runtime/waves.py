@@ -100,10 +100,7 @@ def _count_matrix(
 ) -> tuple[tuple[int, ...], np.ndarray, np.ndarray]:
     """Distinct targets' step counts (rows, strides largest first) and each target's row."""
     strides = tuple(sorted(planner.strides, reverse=True))
-    values = np.asarray(targets)
-    if values.ndim != 1 or (values.size and values.dtype.kind not in "iu"):
-        values = np.asarray([operator.index(target) for target in targets], dtype=np.int64)
-    distinct, target_rows = np.unique(values, return_inverse=True)
+    distinct, target_rows = np.unique(np.asarray(targets), return_inverse=True)
     # count_matrix validates every target (TimeError for negative, unreachable, too long).
     return strides, planner.count_matrix(distinct), target_rows.reshape(-1)
 

@@ -30,7 +30,8 @@ See docs/http-api.md."""
 
 
 def create_app(models: Mapping[str, ModelSource] | Iterable[ModelSource] = (),
-               settings: Settings | None = None) -> FastAPI:
+               settings: Settings | None = None, *, preloaded: Registry | None = None
+               ) -> FastAPI:
     """Build the HTTP app serving `models`.
 
     Parameters
@@ -41,6 +42,9 @@ def create_app(models: Mapping[str, ModelSource] | Iterable[ModelSource] = (),
         (named by the mapping key, else by its manifest name).
     settings : Settings, optional
         Limits and token; by default read from `STRIDECAST_*` environment variables.
+    preloaded : Registry, optional
+        The models already loaded from these sources (`serve` loads them once to check them
+        before starting); the lifespan then serves it instead of loading every bundle again.
 
     Returns
     -------
@@ -54,8 +58,10 @@ def create_app(models: Mapping[str, ModelSource] | Iterable[ModelSource] = (),
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
-        registry = await anyio.to_thread.run_sync(
-            partial(load_registry, sources, dtype=settings.dtype, threads=settings.threads))
+        registry = preloaded
+        if registry is None:
+            registry = await anyio.to_thread.run_sync(
+                partial(load_registry, sources, dtype=settings.dtype, threads=settings.threads))
         app.state.registry = registry
         metrics.models_loaded.labels("served").set(len(registry.served))
         metrics.models_loaded.labels("failed").set(len(registry.entries) - len(registry.served))

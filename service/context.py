@@ -22,6 +22,7 @@ from .compression import decode_content, request_codings
 from .errors import ApiError
 from .execution import Gate
 from .metrics import Metrics
+from .model_limits import max_time
 from .registry import Registry
 from .settings import Settings
 from .validation import StateRules
@@ -88,8 +89,11 @@ def batch_rows(state: np.ndarray) -> int:
 
 
 def state_rules(stepper: Any, settings: Settings) -> StateRules:
+    """What requests for `stepper` may hold under `settings` (validation and OpenAPI both)."""
+    max_value = settings.max_abs_value if settings.max_abs_value is not None else math.inf
     return StateRules(dim=stepper.state_dim, dtype=np.dtype(stepper.dtype),
-                      max_batch=settings.max_batch)
+                      max_batch=settings.max_batch, max_value=max_value,
+                      max_time=max_time(stepper, settings.max_coarse_steps))
 
 
 def json_error(value: float) -> float | None:

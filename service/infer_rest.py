@@ -39,6 +39,11 @@ def _parameters(value: Any, where: str) -> dict[str, Any]:
         return {}
     if not isinstance(value, dict):
         raise invalid(f"`{where}` must be an object of parameters.")
+    # The protocol's $parameter value is a string, number or boolean; nothing nested.
+    for key, item in value.items():
+        if not isinstance(item, str | int | float | bool):
+            raise invalid(f"`{where}.{key}` is of type {type(item).__name__}; a parameter is a "
+                          "string, number or boolean.")
     return value
 
 

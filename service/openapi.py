@@ -6,13 +6,19 @@ schemas to the generated document, so clients and property-based testers see eve
 
 from __future__ import annotations
 
+import copy
+import re
+from collections.abc import Sequence
 from typing import Any
+from urllib.parse import quote
 
 from fastapi import FastAPI
 from pydantic import BaseModel
 from pydantic.json_schema import models_json_schema
 
 from .codec import JSON_MEDIA, MSGPACK_MEDIA
+from .context import state_rules
+from .model_schemas import infer_request, v1_requests
 from .schemas import REQUEST_MODELS, ErrorBody, InferResponse
 
 BINARY_MEDIA = "application/octet-stream"
@@ -91,22 +97,35 @@ def readiness_responses(model: type[BaseModel]) -> dict[int | str, dict[str, Any
 
 
 def install_openapi(app: FastAPI) -> None:
-    """Make `app.openapi()` include the request-body schemas referenced by `request_body`."""
+    """Make `app.openapi()` include the request-body schemas referenced by `request_body`, the
+    served models' own paths (`model_paths`), and optional auth when there is no token.
+
+    The document is rebuilt when the registry changes (before and after the models load).
+    """
     generate = app.openapi
+    cache: dict[str, Any] = {}
 
-    def openapi_with_request_bodies() -> dict[str, Any]:
-        schema = generate()
-        _, definitions = models_json_schema(
-            [(model, "validation") for model in REQUEST_MODELS], ref_template=_REF)
-        components = schema.setdefault("components", {}).setdefault("schemas", {})
-        for name, definition in definitions.get("$defs", {}).items():
-            components.setdefault(name, definition)
-        if app.state.settings.bearer_token() is None:
-            _make_auth_optional(schema)
-        _fix_state_rows(components, app)
-        return schema
+    def openapi_document() -> dict[str, Any]:
+        registry = app.state.registry
+        key = (id(registry), registry.loaded)
+        if cache.get("key") != key:
+            cache["document"] = _document(app, copy.deepcopy(generate()))
+            cache["key"] = key
+        return cache["document"]
 
-    app.openapi = openapi_with_request_bodies  # type: ignore[method-assign]
+    app.openapi = openapi_document  # type: ignore[method-assign]
+
+
+def _document(app: FastAPI, schema: dict[str, Any]) -> dict[str, Any]:
+    _, definitions = models_json_schema(
+        [(model, "validation") for model in REQUEST_MODELS], ref_template=_REF)
+    components = schema.setdefault("components", {}).setdefault("schemas", {})
+    for name, definition in definitions.get("$defs", {}).items():
+        components.setdefault(name, definition)
+    model_paths(schema, app.state.registry.served, app.state.settings)
+    if app.state.settings.bearer_token() is None:
+        _make_auth_optional(schema)
+    return schema
 
 
 def _make_auth_optional(schema: dict[str, Any]) -> None:
@@ -121,21 +140,52 @@ def _make_auth_optional(schema: dict[str, Any]) -> None:
                 operation["security"] = [{}, *security]
 
 
-def _fix_state_rows(components: dict[str, Any], app: FastAPI) -> None:
-    """When every served model has state dimension d, rows have exactly d numbers and a batch
-    at most `max_batch` rows (what the service checks); otherwise leave the generic schema."""
-    dims = {entry.stepper.state_dim for entry in app.state.registry.served}
-    if len(dims) != 1:
-        return
-    (dim,) = dims
-    row = {"type": "array", "items": {"type": "number"}, "minItems": dim, "maxItems": dim}
-    batch = {"type": "array", "items": row, "minItems": 1,
-             "maxItems": app.state.settings.max_batch}
-    for name in ("AdvanceRequest", "ForecastRequest"):
-        state = components.get(name, {}).get("properties", {}).get("state")
-        if state is not None:
-            description = state.get("description")
-            state.clear()
-            state["anyOf"] = [row, batch]
-            if description:
-                state["description"] = description
+# The POST routes whose body depends on the model, and the request schema each takes.
+MODEL_ROUTES = {
+    "/v1/models/{name}/advance": "AdvanceRequest",
+    "/v1/models/{name}/forecast": "ForecastRequest",
+    "/v2/models/{name}/infer": "InferRequest",
+    "/v2/models/{name}/versions/{version}/infer": "InferRequest",
+}
+
+
+def model_paths(schema: dict[str, Any], entries: Sequence[Any], settings: Any) -> None:
+    """Give each served model concrete POST paths whose bodies have its exact schema.
+
+    OpenAPI matches concrete paths before templated ones (OpenAPI 3.1, Paths Object), so
+    `/v1/models/oscillator/advance` is described by its own entry; the templated entries then
+    describe the other names (404), as their `name` parameter says. (Not with `not: {enum}`:
+    property-based testers do not apply that precedence and would mutate a name into a served
+    one, then expect the generic body to be refused.)
+    """
+    paths, components = schema["paths"], schema["components"]["schemas"]
+    names = [entry.name for entry in entries]
+    for index, entry in enumerate(entries):
+        stepper = entry.stepper
+        rules = state_rules(stepper, settings)
+        bodies = {**v1_requests(stepper, rules, max_points=settings.max_forecast_points,
+                                max_values=settings.max_forecast_values),
+                  "InferRequest": infer_request(entry.name, stepper, rules)}
+        label = f"{re.sub(r'[^A-Za-z0-9_-]', '_', entry.name)}-{index}"
+        for kind, body in bodies.items():
+            components[f"{kind}.{label}"] = body
+        segment = quote(entry.name, safe="")
+        for path, kind in MODEL_ROUTES.items():
+            operation = copy.deepcopy(paths[path]["post"])
+            operation["operationId"] = f"{operation.get('operationId', 'post')}_{label}"
+            operation["summary"] = f"{operation.get('summary', '')} (model {entry.name!r})"
+            operation["parameters"] = [parameter for parameter in operation.get("parameters", [])
+                                       if parameter.get("name") not in ("name", "version")]
+            reference = {"$ref": _REF.format(model=f"{kind}.{label}")}
+            for media in operation["requestBody"]["content"].values():
+                media["schema"] = reference
+            concrete = path.replace("{name}", segment).replace("{version}", "1")
+            paths.setdefault(concrete, {})["post"] = operation
+    if names:
+        for path in MODEL_ROUTES:
+            for parameter in paths[path]["post"].get("parameters", []):
+                if parameter.get("name") == "name":
+                    parameter["description"] = (
+                        f"A model name. The served models ({', '.join(names)}) have paths of "
+                        "their own with their exact body schemas, which OpenAPI matches before "
+                        "this templated path; any other name: 404.")

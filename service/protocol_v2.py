@@ -194,7 +194,7 @@ def build_query(tensors: Sequence[Tensor], options: RequestOptions,
         raise invalid(f"input 't' has shape {list(times.shape)}; expected [1] or "
                       f"[{state.shape[0]}] (one time per state).")
     for t in times.tolist():
-        time_value(t, "inputs['t']")
+        time_value(t, "inputs['t']", max_time=rules.max_time)
     off_grid = off_grid_value(options.parameters.get("off_grid", "interpolate"),
                               "parameters.off_grid")
     return InferQuery(request_id=options.request_id, state=state,

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from functools import partial
 from typing import Annotated, Any
 
@@ -33,7 +34,7 @@ from .schemas import (
     ModelList,
 )
 from .settings import Settings, get_settings
-from .validation import parse_advance, parse_forecast
+from .validation import StateRules, parse_advance, parse_forecast
 
 router = APIRouter(prefix="/v1", tags=["v1"])
 SettingsDep = Annotated[Settings, Depends(get_settings)]
@@ -86,15 +87,23 @@ async def describe_model(name: str, request: Request) -> Response:
              responses=responses(AdvanceResponse, *POST_ERRORS),
              summary="Advance a state or a batch from time 0 to time t")
 async def advance(name: str, request: Request, settings: SettingsDep) -> Response:
+    return await _computed(name, request, settings, parse_advance, _advance)
+
+
+async def _computed(name: str, request: Request, settings: Settings,
+                    parse: Callable[[Any, StateRules], Any], compute: Callable[..., Response]
+                    ) -> Response:
+    """The steps of every v1 computation: admit, read and `parse` the body, then run
+    `compute(stepper, name, query, media, metrics, coding)` in a worker thread under the
+    request's time budget."""
     started = anyio.current_time()
     stepper = served_stepper(request, name)
     gate = gate_of(request)
     async with gate.admit() as ticket:  # admitted before a byte of the body is read
-        query = parse_advance(await read_document(request, settings),
-                              state_rules(stepper, settings))
+        query = parse(await read_document(request, settings), state_rules(stepper, settings))
         media, metrics = response_media(request), metrics_of(request)
         coding = response_coding(request.headers.get("accept-encoding"))
-        return await gate.run(partial(_advance, stepper, name, query, media, metrics, coding),
+        return await gate.run(partial(compute, stepper, name, query, media, metrics, coding),
                               started=started, budget=settings.request_timeout, ticket=ticket)
 
 
@@ -133,18 +142,9 @@ def finished(document: Any, media: str, coding: str | None) -> Response:
              responses=responses(ForecastResponse, *POST_ERRORS),
              summary="Forecast a state or a batch at many times")
 async def forecast(name: str, request: Request, settings: SettingsDep) -> Response:
-    started = anyio.current_time()
-    stepper = served_stepper(request, name)
-    gate = gate_of(request)
-    async with gate.admit() as ticket:  # admitted before a byte of the body is read
-        query = parse_forecast(await read_document(request, settings),
-                               state_rules(stepper, settings),
-                               max_points=settings.max_forecast_points,
-                               max_values=settings.max_forecast_values)
-        media, metrics = response_media(request), metrics_of(request)
-        coding = response_coding(request.headers.get("accept-encoding"))
-        return await gate.run(partial(_forecast, stepper, name, query, media, metrics, coding),
-                              started=started, budget=settings.request_timeout, ticket=ticket)
+    parse = partial(parse_forecast, max_points=settings.max_forecast_points,
+                    max_values=settings.max_forecast_values)
+    return await _computed(name, request, settings, parse, _forecast)
 
 
 def _forecast(stepper: Any, name: str, query: Any, media: str, metrics: Any,

@@ -10,13 +10,15 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-# Non-empty, as the service refuses empty states; `install_openapi` also fixes the row length
-# when every served model has the same state dimension.
+from stridecast.runtime.validation import OFF_GRID_POLICIES
+
+# Non-empty, as the service refuses empty states. These generic schemas hold for any model;
+# each served model's own paths carry its exact schemas (`model_schemas`).
 Vector = Annotated[list[float], Field(min_length=1)]
 Matrix = Annotated[list[Vector], Field(min_length=1)]
 StateValue = Vector | Matrix
 Time = Annotated[float, Field(ge=0)]
-OffGrid = Literal["interpolate", "nearest", "error"]
+OffGrid = Literal[OFF_GRID_POLICIES]  # the runtime's list, unpacked by Literal
 
 
 class _Strict(BaseModel):

@@ -59,8 +59,8 @@ class ServeError(StridecastError):
 def check_models(settings: Settings) -> Registry:
     """Load every model once before the server starts; refuse when none loads or names clash.
 
-    Returns the registry (each model loaded, or failed with its reason); the app loads its
-    own copy in its lifespan, so this is a check, done where it can still stop start-up.
+    Returns the registry (each model loaded, or failed with its reason): a single-process
+    server serves it as is; worker processes load their own copies.
     """
     sources = named_sources(settings.models)
     by_name: dict[str, list[str]] = {}
@@ -142,14 +142,15 @@ def serve(paths: Sequence[str | os.PathLike[str]], *, host: str = "127.0.0.1", p
     check_port(host, port)
     if final.grpc_port is not None:
         check_port(final.grpc_host or host, final.grpc_port)
-    check_models(final)
+    registry = check_models(final)
     if on_ready is not None:
         on_ready()
     # Let running requests finish (their budget) before a shutdown stops waiting for them.
     grace = int(final.request_timeout) + 5
     common = dict(host=host, port=port, log_level=log_level, timeout_graceful_shutdown=grace)
     if workers == 1:
-        uvicorn.run(create_app(final.models, final), **common)
+        # One process: the models checked above are the ones served (loaded once).
+        uvicorn.run(create_app(final.models, final, preloaded=registry), **common)
         return
     os.environ.update(environment_for(final))
     uvicorn.run(FACTORY, factory=True, workers=workers, **common)

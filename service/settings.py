@@ -14,6 +14,8 @@ from fastapi import Request
 from pydantic import Field, PrivateAttr, SecretStr, model_validator
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+from stridecast.runtime.validation import DTYPES
+
 # design.md §6.
 DEFAULT_MAX_BODY_BYTES = 4 * 1024 * 1024
 DEFAULT_MAX_BATCH = 4096
@@ -46,6 +48,15 @@ class Settings(BaseSettings):
     max_body_bytes, max_batch, max_forecast_points, max_forecast_values : int
         Request limits; larger requests get 413 (body) or 422. `max_forecast_values` bounds
         the numbers in one forecast answer (times x batch x d).
+    max_abs_value : float, optional
+        Largest magnitude of a state component (422 beyond). None: whatever the model's dtype
+        holds. A bound keeps a model's arithmetic from overflowing (an overflowing answer is a
+        422 the OpenAPI document cannot foresee); the document states the bound.
+    max_coarse_steps : int, optional
+        Evaluations of a model's coarsest level one answer may take; sets each model's longest
+        accepted time (this x largest stride x base step; 422 beyond). None: a quarter of the
+        runtime's per-query budget (250,000). Lower it so that the longest time fits in
+        `request_timeout`.
     request_timeout : float
         Wall-time budget of one request in seconds, queueing included; 504 when exceeded.
     max_concurrency : int
@@ -71,11 +82,13 @@ class Settings(BaseSettings):
     model_config = SettingsConfigDict(env_prefix="STRIDECAST_", frozen=True, extra="forbid")
 
     models: list[str] = Field(default_factory=list)
-    dtype: Literal["float32", "float64"] = "float32"
+    dtype: Literal[DTYPES] = "float32"  # the runtime's list, unpacked by Literal
     max_body_bytes: int = Field(DEFAULT_MAX_BODY_BYTES, ge=64)
     max_batch: int = Field(DEFAULT_MAX_BATCH, ge=1)
     max_forecast_points: int = Field(DEFAULT_MAX_FORECAST_POINTS, ge=1)
     max_forecast_values: int = Field(DEFAULT_MAX_FORECAST_VALUES, ge=1)
+    max_abs_value: float | None = Field(None, gt=0, allow_inf_nan=False)
+    max_coarse_steps: int | None = Field(None, ge=1)
     request_timeout: float = Field(DEFAULT_REQUEST_TIMEOUT, gt=0, allow_inf_nan=False)
     max_concurrency: int = Field(default_factory=_cpu_count, ge=1)
     max_waiting: int = Field(64, ge=0)

@@ -39,11 +39,18 @@ class ForecastQuery:
 
 @dataclass(frozen=True)
 class StateRules:
-    """What a state array must look like for one model under the current settings."""
+    """What a request for one model may hold under the current settings.
+
+    `max_value` bounds the magnitude of every state component (inf: only what the model's
+    dtype can hold); `max_time` is the longest time accepted (see `model_limits.max_time`).
+    The OpenAPI document states the same bounds (`model_schemas`).
+    """
 
     dim: int
     dtype: np.dtype
     max_batch: int
+    max_value: float = math.inf
+    max_time: float = math.inf
 
 
 def invalid(message: str) -> ApiError:
@@ -162,6 +169,10 @@ def check_state(array: np.ndarray, rules: StateRules, where: str = "state") -> n
     if array.ndim == 2 and array.shape[0] > rules.max_batch:
         raise invalid(f"`{where}` holds a batch of {array.shape[0]} states; the limit is "
                       f"{rules.max_batch}.")
+    if math.isfinite(rules.max_value) and array.size and np.abs(array).max() > rules.max_value:
+        index = tuple(int(i) for i in np.argwhere(np.abs(array) > rules.max_value)[0])
+        raise invalid(f"`{where}` holds {float(array[index])!r} at index {list(index)}; the "
+                      f"limit is {rules.max_value!r} in magnitude (`max_abs_value`).")
     with np.errstate(over="ignore"):
         cast = np.ascontiguousarray(array, dtype=rules.dtype)
     if not np.isfinite(cast).all():
@@ -169,8 +180,8 @@ def check_state(array: np.ndarray, rules: StateRules, where: str = "state") -> n
     return cast
 
 
-def time_value(value: Any, where: str = "t") -> float:
-    """A finite time ≥ 0."""
+def time_value(value: Any, where: str = "t", *, max_time: float = math.inf) -> float:
+    """A finite time in [0, `max_time`]."""
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise invalid(f"`{where}` is {_kind(value)}; expected a finite number ≥ 0.")
     try:
@@ -179,11 +190,15 @@ def time_value(value: Any, where: str = "t") -> float:
         raise invalid(f"`{where}` is an integer too large for a float.") from error
     if not math.isfinite(number) or number < 0:
         raise invalid(f"`{where}` is {number!r}; expected a finite number ≥ 0.")
+    if number > max_time:
+        raise invalid(f"`{where}` is {number!r}; this model answers times up to "
+                      f"{max_time!r}.")
     return number
 
 
-def times_array(value: Any, *, max_points: int, where: str = "times") -> np.ndarray:
-    """A non-empty 1-D array of times ≥ 0 with at most `max_points` entries."""
+def times_array(value: Any, *, max_points: int, max_time: float = math.inf,
+                where: str = "times") -> np.ndarray:
+    """A non-empty 1-D array of times in [0, `max_time`] with at most `max_points` entries."""
     array = to_array(value, where)
     if array.ndim != 1 or array.size == 0:
         raise invalid(f"`{where}` has shape {list(array.shape)}; expected a non-empty list of "
@@ -194,6 +209,10 @@ def times_array(value: Any, *, max_points: int, where: str = "times") -> np.ndar
     negative = array[array < 0]
     if negative.size:
         raise invalid(f"`{where}` contains {float(negative[0])!r}; expected times ≥ 0.")
+    late = array[array > max_time]
+    if late.size:
+        raise invalid(f"`{where}` contains {float(late[0])!r}; this model answers times up to "
+                      f"{max_time!r}.")
     return array.astype(np.float64)
 
 
@@ -208,7 +227,7 @@ def parse_advance(document: Any, rules: StateRules) -> AdvanceQuery:
     body = fields(document, "the request body", required={"state", "t"}, optional={"off_grid"})
     return AdvanceQuery(
         state=state_array(body["state"], rules),
-        t=time_value(body["t"]),
+        t=time_value(body["t"], max_time=rules.max_time),
         off_grid=off_grid_value(body.get("off_grid", "interpolate")),
     )
 
@@ -222,7 +241,7 @@ def parse_forecast(document: Any, rules: StateRules, *, max_points: int, max_val
     """
     body = fields(document, "the request body", required={"state", "times"},
                   optional={"off_grid"})
-    times = times_array(body["times"], max_points=max_points)
+    times = times_array(body["times"], max_points=max_points, max_time=rules.max_time)
     state = state_array(body["state"], rules)
     if times.size * state.size > max_values:
         raise invalid(f"the forecast would hold {times.size} times x {state.size} numbers = "

@@ -13,7 +13,7 @@ __version__ = "0.1.0"
 __all__ = ["__version__", "demo_bundle"]
 
 # The one place that knows where the shipped crane bundle lies (package data).
-_DEMO_BUNDLE = Path(__file__).resolve().parent / "data" / "crane-demo.bundle"
+_DEMO_BUNDLE = Path(__file__).resolve().parent / "data" / "crane-shipped.bundle"
 
 
 def demo_bundle(*, must_exist: bool = True) -> Path:

@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 import onnx
 import onnxruntime
+import pytest
 from onnx import TensorProto, helper, numpy_helper
 from onnx.reference import ReferenceEvaluator
 from scipy.linalg import expm
@@ -152,13 +153,14 @@ def reduced_bundle(out: Path, latent_system: np.ndarray, basis: np.ndarray, *,
                    use_gemm: bool = False, encoder_matrix: np.ndarray | None = None,
                    envelope: tuple[Sequence[float], Sequence[float]] | None = None,
                    samples: np.ndarray | None = None, radius: float = 0.5,
-                   overwrite: bool = False) -> Path:
+                   reconstruction: float | None = None, overwrite: bool = False) -> Path:
     """A reduced bundle with exact latent flow maps: encoder z ↦ Vᵀz, level k the exact flow
     map expm(A_r k Δt) of y' = A_r y (scipy.linalg.expm; as an increment, that minus I),
     decoder y ↦ V y, with the manifest normalisation z = (x − mean)/scale on the full state.
 
     `basis` V is (d, r); `encoder_matrix` (r, d) replaces Vᵀ (e.g. to build a mismatched
-    bundle). `envelope` and `samples` are latent (length r; samples (count, r)).
+    bundle). `envelope` and `samples` are latent (length r; samples (count, r));
+    `reconstruction` is the normalised-RMS threshold of the off-subspace check.
     """
     dim, latent_dim = basis.shape
     files = {}
@@ -192,9 +194,31 @@ def reduced_bundle(out: Path, latent_system: np.ndarray, basis: np.ndarray, *,
             file=SAMPLES_FILE, sha256=PLACEHOLDER_SHA, count=len(samples), radius=radius),
         reduction=Reduction(latent_dim=latent_dim,
                             encoder=ModelFile(ENCODER_FILE, PLACEHOLDER_SHA),
-                            decoder=ModelFile(DECODER_FILE, PLACEHOLDER_SHA)),
+                            decoder=ModelFile(DECODER_FILE, PLACEHOLDER_SHA),
+                            reconstruction_threshold=reconstruction),
     )
     return write_bundle(out, manifest, files, overwrite=overwrite, extra_files=extra)
+
+
+def sine_basis(dim: int, count: int) -> np.ndarray:
+    """(dim, count): the first `count` eigenvectors sin(jkπ/(dim+1)) of the second-difference
+    matrix, orthonormal with the factor √(2/(dim+1)) (standard result), as a POD-like basis."""
+    points = np.arange(1, dim + 1)
+    return np.sqrt(2.0 / (dim + 1)) * np.sin(np.outer(points, np.arange(1, count + 1))
+                                             * np.pi / (dim + 1))
+
+
+def field_bundle(out: Path, *, dim: int, rates: Sequence[float], base_step: float,
+                 strides: Sequence[int], mean: float = 0.0, scale: float = 1.0,
+                 dtype=np.float64, reconstruction: float | None = None) -> Path:
+    """A reduced bundle of a field of `dim` components whose latent modes decay (or grow) at
+    `rates`: y' = diag(rates) y on the sine basis (`sine_basis`), levels the exact flow maps
+    (`reduced_bundle`, scipy.linalg.expm), uniform `mean` and `scale`."""
+    basis = sine_basis(dim, len(rates))
+    return reduced_bundle(out, np.diag(np.asarray(rates, dtype=np.float64)), basis,
+                          base_step=base_step, strides=strides, mean=np.full(dim, mean),
+                          scale=np.full(dim, scale), dtype=dtype,
+                          reconstruction=reconstruction)
 
 
 def oscillator_matrix(omega: float = 2.0, damping: float = 0.0) -> np.ndarray:
@@ -495,3 +519,12 @@ def older_crane_bundle(out: Path) -> Path:
     path.write_text(json.dumps(document, indent=2), encoding="utf-8")
     shutil.rmtree(out / "envelope", ignore_errors=True)
     return out
+
+
+@pytest.fixture(autouse=True)
+def private_cache(tmp_path, monkeypatch):
+    """The caution's session marker in a temporary cache folder (autouse where a conftest
+    imports it): never the user's real ~/.cache; each test starts a fresh session of use."""
+    folder = tmp_path / "cache"
+    monkeypatch.setenv("XDG_CACHE_HOME", str(folder))
+    return folder

@@ -42,7 +42,8 @@ def test_a_missing_bundle_is_named(monkeypatch, tmp_path):
 
 def test_the_shipped_path_is_spelled_in_one_place():
     # Every other module asks demo_bundle(); none builds the path to the package data itself.
-    spelled = re.compile(r"""["']data["']\s*/\s*["']crane-demo\.bundle|data/crane-demo\.bundle""")
+    spelled = re.compile(r"""["']data["']\s*/\s*["']crane-shipped\.bundle"""
+                         r"""|data/crane-shipped\.bundle""")
     places = [path.relative_to(ROOT).as_posix()
               for folder in ("stridecast", "runtime", "export", "service", "benchmarks", "tests")
               for path in (ROOT / folder).rglob("*.py")

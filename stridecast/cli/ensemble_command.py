@@ -8,6 +8,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from stridecast.runtime.validation import DTYPES, OFF_GRID_POLICIES
+
 from .common import bundle_path, needs_extra, read_times
 from .parsing import add_command
 
@@ -35,10 +37,10 @@ def register(subparsers) -> None:
                        help="start a local cluster of N worker processes (default: 1)")
     ensemble.add_argument("--chunk-states", type=int, default=None, metavar="M",
                           help="members per task (default: about 16 MiB of results)")
-    ensemble.add_argument("--off-grid", choices=("interpolate", "nearest", "error"),
+    ensemble.add_argument("--off-grid", choices=OFF_GRID_POLICIES,
                           default="interpolate", help="what to do between grid times "
                           "(default: %(default)s)")
-    ensemble.add_argument("--dtype", choices=("float32", "float64"), default="float32",
+    ensemble.add_argument("--dtype", choices=DTYPES, default="float32",
                           help="arithmetic of the networks (default: %(default)s)")
     ensemble.add_argument("--no-progress", action="store_true", help="no progress bar")
 

@@ -9,6 +9,7 @@ import sys
 from collections.abc import Callable
 
 from stridecast.caution import CAUTION
+from stridecast.runtime.validation import DTYPES, OFF_GRID_POLICIES
 
 EXIT_CODES = (
     "exit codes, the same for every command:\n"
@@ -102,11 +103,12 @@ def add_state_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--state", action="append", metavar="X1,X2,...",
                        help="initial state, comma-separated; repeat for a batch")
     group.add_argument("--state-file", metavar="FILE",
-                       help="initial state(s) from a .npy file, shape (d,) or (B, d)")
-    parser.add_argument("--off-grid", choices=("interpolate", "nearest", "error"),
+                       help="initial state(s), shape (d,) or (B, d): .npy, .csv or .txt "
+                       "(one state per row) or .json (a list, or a list of lists)")
+    parser.add_argument("--off-grid", choices=OFF_GRID_POLICIES,
                         default="interpolate", help="what to do between grid times "
                         "(default: %(default)s)")
-    parser.add_argument("--dtype", choices=("float32", "float64"), default="float32",
+    parser.add_argument("--dtype", choices=DTYPES, default="float32",
                         help="arithmetic of the networks: float32 is faster, float64 "
                         "closer to the exported weights (default: %(default)s)")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")

@@ -4,18 +4,25 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import sys
-import tempfile
 from pathlib import Path
 
 import numpy as np
 
 from stridecast import caution
-from stridecast.runtime import Finding, StateError, load
+from stridecast.runtime import Finding, load
 from stridecast.runtime.findings import WARNING_KINDS
 
-from .common import bundle_path, read_times
+from .common import (
+    WIDE_STATE,
+    bundle_path,
+    check_out,
+    read_states,
+    read_times,
+    summary,
+    write_atomically,
+    write_states,
+)
 from .parsing import DeprecatedAlias, add_command, add_state_options
 
 
@@ -37,6 +44,8 @@ def register(subparsers) -> None:
                       help="time to reach, ≥ 0, in the bundle's time unit")
     when.add_argument("--t", type=float, dest="time", action=DeprecatedAlias,
                       new_name="--time")
+    advance.add_argument("--out", metavar="FILE", help="write the answer to .npy (as returned) "
+                         "or .csv (a row of names, one state per row) instead of printing it")
     add_state_options(advance)
 
     forecast = add_command(
@@ -70,6 +79,8 @@ def inspect_command(arguments: argparse.Namespace) -> int:
     print(f"bundle      {description['path']}")
     print(f"name        {manifest['name'] or '-'}  {manifest['description']}")
     names = [f"{n} [{u}]" if u else n for n, u in zip(state["names"], state["units"], strict=True)]
+    if len(names) > WIDE_STATE:  # a field: the first and last few names
+        names = [*names[:3], f"… {len(names) - 6} more …", *names[-3:]]
     print(f"state       {state['dim']} components: {', '.join(names)}")
     print(f"base step   {base:g} {unit}    update: {manifest['update']}")
     print("levels")
@@ -86,10 +97,14 @@ def inspect_command(arguments: argparse.Namespace) -> int:
     for item in description["files"]:
         print(f"  {item['what']}: checksum {item['checksum']}"
               + (f" ({item['error']})" if item["error"] else ""))
+    _print_reduction(description.get("reduction"))
     envelope = manifest.get("envelope")
     if envelope:
-        print("envelope")
-        for name, low, high in zip(state["names"], envelope["min"], envelope["max"], strict=True):
+        reduction = manifest.get("reduction")
+        print("envelope" + ("    (latent states)" if reduction else ""))
+        box_names = (state["names"] if not reduction
+                     else [f"latent[{i}]" for i in range(reduction["latent_dim"])])
+        for name, low, high in zip(box_names, envelope["min"], envelope["max"], strict=True):
             print(f"  {name:<12} [{low:.6g}, {high:.6g}]")
         samples = envelope.get("samples")
         if samples:
@@ -111,6 +126,22 @@ def inspect_command(arguments: argparse.Namespace) -> int:
         return status
     print(caution.CAUTION, file=sys.stderr)
     return 0
+
+
+def _print_reduction(reduction: dict | None) -> None:
+    """A reduced bundle's encoder and decoder: latent dimension, form, files, checksums."""
+    if not reduction:
+        return
+    threshold = reduction["reconstruction_threshold"]
+    print(f"reduction   latent dimension {reduction['latent_dim']}; reconstruction check "
+          + ("not recorded" if threshold is None else
+             f"above {threshold:.4g} (normalised RMS of x − decoder(encoder(x)))"))
+    for side in ("encoder", "decoder"):
+        item = reduction[side]
+        form = item["form"] or "-"
+        size = "" if item["parameters"] is None else f", {item['parameters']} parameters"
+        print(f"  {side:<8} {form}{size}  {item['file']}  sha256 {item['sha256'][:12]}…  "
+              f"checksum {item['checksum']}")
 
 
 def _print_report(report: dict | None, plots: list[str], unit: str) -> None:
@@ -168,26 +199,6 @@ def _print_validation(validation: dict | None, unit: str, points: int = 6) -> No
         print(f"  t = {times[index]:<10g} {unit:<3} error {text}")
 
 
-def _read_states(arguments: argparse.Namespace) -> np.ndarray:
-    if arguments.state_file:
-        try:
-            array = np.load(arguments.state_file, allow_pickle=False)
-        except (OSError, ValueError) as error:
-            raise StateError(f"`--state-file` {arguments.state_file!r} could not be read as "
-                             f".npy: {error}.") from error
-        return array
-    rows = []
-    for text in arguments.state:
-        try:
-            rows.append([float(part) for part in text.split(",")])
-        except ValueError as error:
-            raise StateError(f"`--state` {text!r} is not a comma-separated list of numbers.") \
-                from error
-    if len({len(row) for row in rows}) != 1:
-        raise StateError("every `--state` must have the same number of components.")
-    return np.asarray(rows[0] if len(rows) == 1 else rows, dtype=np.float64)
-
-
 def _warnings(findings: tuple[Finding, ...]) -> list[str]:
     """The messages of the findings that make an answer an extrapolation."""
     return [finding.message for finding in findings if finding.kind in WARNING_KINDS]
@@ -222,9 +233,12 @@ def _print_caution_once(arguments: argparse.Namespace) -> None:
 def advance_command(arguments: argparse.Namespace) -> int:
     # Findings come back with the plan (every visited state and the time checked); the CLI
     # prints them itself rather than through Python warnings.
+    out = None if arguments.out is None else check_out(arguments.out)
     stepper = load(bundle_path(arguments), dtype=arguments.dtype, on_extrapolation="ignore")
-    states = _read_states(arguments)
+    states = read_states(arguments, stepper.state_dim)
     result, plan = stepper.advance_with_plan(states, arguments.time, off_grid=arguments.off_grid)
+    if out is not None:
+        write_states(out, result, stepper.state_names)
     if arguments.json:
         print(json.dumps({"t": arguments.time, "state": result.tolist(),
                           "state_names": list(stepper.state_names), "plan": plan.to_dict(),
@@ -237,9 +251,15 @@ def advance_command(arguments: argparse.Namespace) -> int:
               f"steps {steps}; {plan.evaluations} network "
               f"evaluation{'' if plan.evaluations == 1 else 's'})")
         rows = result.reshape(-1, stepper.state_dim)
-        print("  ".join(f"{name:>14}" for name in stepper.state_names))
-        for row in rows:
-            print("  ".join(f"{value:>14.7g}" for value in row))
+        if out is not None:
+            print(f"wrote {len(rows)} state{'' if len(rows) == 1 else 's'} of "
+                  f"{stepper.state_dim} components to {out}")
+        elif stepper.state_dim > WIDE_STATE:
+            _print_summaries(rows, stepper.state_dim)
+        else:
+            print("  ".join(f"{name:>14}" for name in stepper.state_names))
+            for row in rows:
+                print("  ".join(f"{value:>14.7g}" for value in row))
         print(f"expected error {_error_text(plan.expected_error)} (held-out normalised RMS at "
               "this time)")
     _print_findings(plan.findings)
@@ -248,8 +268,9 @@ def advance_command(arguments: argparse.Namespace) -> int:
 
 
 def forecast_command(arguments: argparse.Namespace) -> int:
+    out = None if arguments.out is None else check_out(arguments.out)
     stepper = load(bundle_path(arguments), dtype=arguments.dtype, on_extrapolation="ignore")
-    states = _read_states(arguments)
+    states = read_states(arguments, stepper.state_dim)
     times = read_times(arguments)
     result, info = stepper.forecast_with_info(states, times, off_grid=arguments.off_grid)
     # One table for one state or a batch: a row per (time, member), members numbered from 0.
@@ -259,8 +280,8 @@ def forecast_command(arguments: argparse.Namespace) -> int:
     row_members = np.tile(np.arange(members), len(times))
     row_errors = np.repeat(info.expected_error, members)
     batch = states.ndim != 1
-    if arguments.out:
-        _write_table(Path(arguments.out), row_times, rows, stepper.state_names,
+    if out is not None:
+        _write_table(out, row_times, rows, stepper.state_names,
                      row_members if batch else None)
         print(f"wrote {len(rows)} states to {arguments.out} ({info.evaluations} network "
               f"evaluation{'' if info.evaluations == 1 else 's'} in {info.network_calls} "
@@ -275,6 +296,16 @@ def forecast_command(arguments: argparse.Namespace) -> int:
                           "expected_error": [_error_or_none(v) for v in info.expected_error],
                           "findings": [finding.to_dict() for finding in info.findings],
                           "warnings": _warnings(info.findings)}))
+    elif stepper.state_dim > WIDE_STATE:
+        member_header = f"  {'member':>6}" if batch else ""
+        print(f"{'t':>10}{member_header}  state ({stepper.state_dim} components)")
+        for t, member, row in zip(row_times, row_members, rows, strict=True):
+            print(f"{t:>10.6g}" + (f"  {member:>6}" if batch else "") + f"  {summary(row)}")
+        print(f"(states of {stepper.state_dim} components are summarised; use --out FILE "
+              "(.csv or .npy) or --json for the values)")
+        if not np.isnan(info.expected_error).all():
+            print(f"expected error {_error_text(float(info.expected_error.max()))} at most "
+                  "(held-out normalised RMS)")
     else:
         known = not np.isnan(info.expected_error).all()
         error_header = f"  {'exp. error':>10}" if known else ""
@@ -292,28 +323,26 @@ def forecast_command(arguments: argparse.Namespace) -> int:
     return 0
 
 
+def _print_summaries(rows: np.ndarray, dim: int) -> None:
+    """A wide answer without --out/--json: one line per state instead of d columns."""
+    for index, row in enumerate(rows):
+        label = "state" if len(rows) == 1 else f"state {index}"
+        print(f"{label}: {dim} components, {summary(row)}")
+    print("(use --out FILE (.csv or .npy) or --json for the values)")
+
+
 def _write_table(path: Path, times: np.ndarray, states: np.ndarray, names,
                  members: np.ndarray | None = None) -> None:
-    """Write atomically: a temporary file beside the target, then rename.
+    """`forecast --out`, written atomically. Columns: t, then `member` for a batch, then the
+    state components."""
+    columns = [times] if members is None else [times, members]
+    table = np.column_stack([*columns, states])
 
-    Columns: t, then `member` for a batch, then the state components.
-    """
-    if path.suffix not in (".csv", ".npy"):
-        raise StateError(f"`--out` {str(path)!r} must end in .csv or .npy.")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    descriptor, temporary = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        columns = [times] if members is None else [times, members]
-        table = np.column_stack([*columns, states])
-        with os.fdopen(descriptor, "wb") as handle:
-            if path.suffix == ".npy":
-                np.save(handle, table)
-            else:
-                header = ",".join(["t", *(["member"] if members is not None else []), *names])
-                np.savetxt(handle, table, delimiter=",", header=header, comments="",
-                           fmt="%.9g")
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
+    def write(handle):
+        if path.suffix == ".npy":
+            np.save(handle, table)
+        else:
+            header = ",".join(["t", *(["member"] if members is not None else []), *names])
+            np.savetxt(handle, table, delimiter=",", header=header, comments="", fmt="%.9g")
+
+    write_atomically(path, write)

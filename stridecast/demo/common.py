@@ -12,7 +12,8 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import TextIO
 
-from stridecast.runtime import BundleError, StridecastError
+from stridecast.runtime import StridecastError
+from stridecast.runtime.bundle import check_target
 
 # Imported by the demo's stages; checked up front so a missing one fails in a second, not
 # after minutes of training.
@@ -21,9 +22,8 @@ NEEDED_MODULES = ("torch", "onnx", "scipy", "matplotlib", "tqdm")
 
 def check_out(out: Path, overwrite: bool) -> None:
     """Refuse an existing `out` before minutes of work, not after."""
-    if (out.exists() or out.is_symlink()) and not overwrite:
-        raise BundleError(f"`--out` {str(out)!r} already exists; pass --overwrite to replace "
-                          "it, or choose another folder.")
+    check_target(out, overwrite=overwrite, where="--out",
+                 hint="pass --overwrite to replace it, or choose another folder")
 
 
 def check_dependencies() -> None:

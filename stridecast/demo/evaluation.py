@@ -57,6 +57,8 @@ class Evaluation:
         States, horizons, errors and stated tolerances for the shipped-bundle test.
     strides : tuple of int
     validated_horizon : float or None
+    envelope : (min, max) of tuples of 4 floats, or None
+        The training data's box from the manifest, for the plots.
     """
 
     states: np.ndarray
@@ -70,6 +72,7 @@ class Evaluation:
     check: dict[str, Any]
     strides: tuple[int, ...]
     validated_horizon: float | None
+    envelope: tuple[tuple[float, ...], tuple[float, ...]] | None = None
 
 
 def held_out_states(count: int) -> np.ndarray:
@@ -210,4 +213,6 @@ def evaluate(stepper: Stepper, settings: DemoSettings) -> Evaluation:
         hybrid=tuple(hybrid), curves=_curves(stepper, states, truth, finest),
         check=_check_figures(stepper, states[:CHECK_STATES], truth[:, :CHECK_STATES]),
         strides=stepper.strides, validated_horizon=stepper.manifest.validated_horizon,
+        envelope=(None if stepper.manifest.envelope_min is None
+                  else (stepper.manifest.envelope_min, stepper.manifest.envelope_max)),
     )

@@ -7,14 +7,11 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import os
 import shlex
-import shutil
-import tempfile
 from pathlib import Path
 from typing import Any
 
-from stridecast.runtime.bundle import REPORT_NAME, model_name
+from stridecast.runtime.bundle import REPORT_NAME, model_name, write_report
 
 from . import crane
 from .evaluation import Evaluation
@@ -146,16 +143,4 @@ def add_to_report(bundle: Path, figures: dict[str, Any]) -> None:
     path = bundle / REPORT_NAME
     report = json.loads(path.read_text(encoding="utf-8")) if path.is_file() else {}
     report["demo"] = figures
-    descriptor, temporary = tempfile.mkstemp(prefix=".report.", suffix=".json", dir=bundle)
-    try:
-        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
-            handle.write(json.dumps(report, indent=2, allow_nan=False) + "\n")
-        if path.is_file():
-            shutil.copymode(path, temporary)  # mkstemp makes the file private (0600)
-        else:
-            os.chmod(temporary, 0o644)
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
+    write_report(bundle, report)

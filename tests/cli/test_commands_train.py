@@ -15,7 +15,7 @@ import pytest
 from stridecast.cli import build_parser, main
 from stridecast.cli.train_command import ACTIVATIONS, TRAINING_OPTIONS
 from stridecast.runtime import load
-from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
+from tests.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 
 def train_parser():

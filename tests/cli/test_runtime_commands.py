@@ -14,7 +14,7 @@ import pytest
 from scipy.linalg import expm
 
 from stridecast.cli import main
-from tests.builders import linear_bundle, oscillator_matrix
+from tests.builders import field_bundle, linear_bundle, oscillator_matrix, sine_basis
 
 
 @pytest.fixture
@@ -158,3 +158,98 @@ def test_advance_says_evaluation_in_the_singular_for_one(bundle, capsys):
     assert main(["advance", str(bundle), "--state", "1,0", "--time", "1.6"]) == 0
     out = capsys.readouterr().out
     assert "; 1 network evaluation)" in out
+
+
+# ------------------------------------------------------------------------- field bundles
+FIELD_DIM, FIELD_RATES = 300, (-0.05, -0.2, -0.5, -1.0)
+
+
+@pytest.fixture
+def field(tmp_path):
+    return field_bundle(tmp_path / "field.bundle", dim=FIELD_DIM, rates=FIELD_RATES,
+                        base_step=0.1, strides=(1, 8), mean=20.0, scale=2.0,
+                        reconstruction=0.01)
+
+
+def _field_reference(states: np.ndarray, t: float) -> np.ndarray:
+    """The exact latent flow expm(diag(rates) t) (scipy.linalg.expm) on the sine basis."""
+    basis = sine_basis(FIELD_DIM, len(FIELD_RATES))
+    latent = ((np.atleast_2d(states) - 20.0) / 2.0) @ basis
+    return (latent @ expm(np.diag(FIELD_RATES) * t).T) @ basis.T * 2.0 + 20.0
+
+
+def _field_states(count: int) -> np.ndarray:
+    basis = sine_basis(FIELD_DIM, len(FIELD_RATES))
+    return 20.0 + 2.0 * np.random.default_rng(4).normal(size=(count, 4)) @ basis.T
+
+
+def test_inspect_shows_the_reduction(field, capsys):
+    assert main(["inspect", str(field)]) == 0
+    text = capsys.readouterr().out
+    assert "reduction   latent dimension 4; reconstruction check above 0.01" in text
+    assert "encoder  linear, 1200 parameters  reduction/encoder.onnx" in text
+    assert "decoder  linear" in text and "checksum ok" in text
+    assert "u2 [K], … 294 more …, u297 [K]" in text
+    assert main(["inspect", str(field), "--json"]) == 0
+    reduction = json.loads(capsys.readouterr().out)["reduction"]
+    assert reduction["latent_dim"] == 4 and reduction["reconstruction_threshold"] == 0.01
+    assert reduction["encoder"]["form"] == reduction["decoder"]["form"] == "linear"
+
+
+@pytest.mark.parametrize("kind", [".npy", ".csv", ".json"])
+def test_advance_a_field_from_a_state_file_to_a_file(field, tmp_path, capsys, kind):
+    states = _field_states(2)
+    source = tmp_path / f"start{kind}"
+    if kind == ".npy":
+        np.save(source, states)
+    elif kind == ".csv":
+        np.savetxt(source, states, delimiter=",", fmt="%.17g")
+    else:
+        source.write_text(json.dumps(states.tolist()))
+    out = tmp_path / "answer.npy"
+    assert main(["advance", str(field), "--state-file", str(source), "--time", "1.7",
+                 "--dtype", "float64", "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert f"wrote 2 states of {FIELD_DIM} components to {out}" in text
+    answer = np.load(out)
+    assert answer.shape == (2, FIELD_DIM)
+    # Reference: scipy.linalg.expm of the latent system, decoded.
+    np.testing.assert_allclose(answer, _field_reference(states, 1.7), rtol=0, atol=1e-12)
+
+
+def test_a_wide_answer_is_summarised_without_out(field, tmp_path, capsys):
+    source = tmp_path / "start.npy"
+    np.save(source, _field_states(1)[0])
+    assert main(["advance", str(field), "--state-file", str(source), "--time", "0.8",
+                 "--dtype", "float64"]) == 0
+    text = capsys.readouterr().out
+    exact = _field_reference(np.load(source), 0.8)[0]
+    assert (f"state: {FIELD_DIM} components, min {exact.min():.7g}, max {exact.max():.7g}, "
+            f"RMS {np.sqrt(np.mean(exact**2)):.7g}") in text
+    assert "use --out FILE (.csv or .npy) or --json" in text
+    assert len(text.splitlines()) < 6
+    assert main(["forecast", str(field), "--state-file", str(source), "--times", "0,0.8",
+                 "--dtype", "float64"]) == 0
+    text = capsys.readouterr().out
+    assert f"min {exact.min():.7g}" in text and "are summarised" in text
+
+
+def test_field_state_file_of_the_wrong_width_is_named(field, tmp_path, capsys):
+    source = tmp_path / "start.npy"
+    np.save(source, np.zeros((2, FIELD_DIM - 1)))
+    assert main(["advance", str(field), "--state-file", str(source), "--time", "1"]) == 1
+    error = capsys.readouterr().err
+    assert f"shape (2, {FIELD_DIM - 1})" in error and f"(batch, {FIELD_DIM})" in error
+
+
+def test_off_subspace_state_is_reported(field, tmp_path, capsys):
+    state = _field_states(1)[0]
+    state[7] += 5.0  # one spike: far from the four smooth modes
+    source = tmp_path / "start.json"
+    source.write_text(json.dumps(state.tolist()))
+    assert main(["advance", str(field), "--state-file", str(source), "--time", "1",
+                 "--json"]) == 0
+    answer = json.loads(capsys.readouterr().out)
+    [finding] = [f for f in answer["findings"] if f["kind"] == "off_subspace"]
+    assert finding["components"][0] == "u7"
+    assert any("reduced basis" in message for message in answer["warnings"])

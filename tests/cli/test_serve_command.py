@@ -5,13 +5,19 @@ uvicorn.run is replaced by a recorder: these tests stop where the server would s
 
 from __future__ import annotations
 
+import shutil
 import socket
 import sys
 
 import pytest
 
+from stridecast import demo_bundle
 from stridecast.cli import main
+from stridecast.demo.settings import DEFAULT_OUT
+from stridecast.runtime import load
+from stridecast.runtime.bundle import model_name
 from tests.builders import linear_bundle, oscillator_matrix
+from tests.servers import free_port
 
 server = pytest.importorskip("stridecast.service.server", reason="needs the service extra")
 
@@ -27,16 +33,10 @@ def _bundle(path):
     return linear_bundle(path, oscillator_matrix(), base_step=0.1, strides=(1, 4))
 
 
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
-
-
 def test_start_up_names_the_models_and_shows_the_caution(tmp_path, started, capsys):
     bundle = _bundle(tmp_path / "osc.bundle")
     assert main(["serve", str(bundle), str(tmp_path / "missing.bundle"),
-                 "--port", str(_free_port())]) == 0
+                 "--port", str(free_port())]) == 0
     err = capsys.readouterr().err
     assert "serving model 'osc' from" in err
     assert "not serving 'missing'" in err
@@ -46,7 +46,7 @@ def test_start_up_names_the_models_and_shows_the_caution(tmp_path, started, caps
 
 def test_no_loadable_bundle_exits_with_the_reasons(tmp_path, started, capsys):
     (tmp_path / "empty").mkdir()
-    assert main(["serve", str(tmp_path / "empty"), "--port", str(_free_port())]) == 1
+    assert main(["serve", str(tmp_path / "empty"), "--port", str(free_port())]) == 1
     err = capsys.readouterr().err
     assert "no bundle could be loaded, so there is nothing to serve" in err
     assert "manifest.json" in err
@@ -68,11 +68,24 @@ def test_a_port_in_use_fails_before_the_app_starts(tmp_path, started, capsys):
 def test_two_bundles_with_one_name_are_refused_with_how_to_rename(tmp_path, started, capsys):
     first = _bundle(tmp_path / "a" / "crane-demo.bundle")
     second = _bundle(tmp_path / "b" / "crane-demo.bundle")
-    assert main(["serve", str(first), str(second), "--port", str(_free_port())]) == 1
+    assert main(["serve", str(first), str(second), "--port", str(free_port())]) == 1
     err = capsys.readouterr().err
     assert "two bundles would be served under one name: 'crane-demo'" in err
     assert "rename one folder" in err
     assert started == []
+
+
+def test_the_demo_output_and_the_shipped_bundle_serve_together(tmp_path, started, capsys):
+    # `stridecast demo` writes ./crane-demo.bundle; `serve crane-demo.bundle --demo` must not
+    # clash with the shipped bundle, whose folder and manifest both say "crane-shipped".
+    shipped = demo_bundle()
+    assert model_name(shipped) == load(shipped).manifest.name == "crane-shipped"
+    written = shutil.copytree(shipped, tmp_path / DEFAULT_OUT.name)
+    assert main(["serve", str(written), "--demo", "--port", str(free_port())]) == 0
+    err = capsys.readouterr().err
+    assert "serving model 'crane-demo' from" in err
+    assert "serving model 'crane-shipped' from" in err
+    assert len(started) == 1
 
 
 @pytest.mark.parametrize("flag", ["--compute-slots", "--limit-concurrency"])

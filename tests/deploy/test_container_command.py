@@ -10,10 +10,8 @@ round differently with the server's BLAS thread count, hence a float32-sized tol
 from __future__ import annotations
 
 import shutil
-import signal
 import subprocess
 import sys
-import time
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -21,7 +19,7 @@ import pytest
 
 from stridecast import demo_bundle
 from stridecast.runtime import load
-from tests.deploy.test_manifests import MOUNT, container_start_command
+from tests.servers import MOUNT, container_start_command, free_port, stop, wait_ready
 
 DEMO_BUNDLE = demo_bundle()
 
@@ -34,32 +32,11 @@ def start(command: list[str]):
     process = subprocess.Popen([sys.executable, "-m", *command], stdout=subprocess.DEVNULL,
                                stderr=subprocess.PIPE)
     base = f"http://127.0.0.1:{port}"
-    deadline = time.monotonic() + STARTUP_SECONDS
-    while time.monotonic() < deadline:
-        if process.poll() is not None:
-            pytest.fail(f"the server exited early: {process.stderr.read().decode()}")
-        try:
-            if httpx.get(f"{base}/readyz", timeout=1.0).status_code == 200:
-                return process, base
-        except httpx.TransportError:
-            pass
-        time.sleep(0.2)
-    process.kill()
-    pytest.fail("the server did not become ready in time")
-
-
-def stop(process) -> None:
-    process.send_signal(signal.SIGINT)
-    try:
-        process.wait(timeout=20)
-    except subprocess.TimeoutExpired:
-        process.kill()
-        process.wait(timeout=5)
+    wait_ready(process, base, seconds=STARTUP_SECONDS)
+    return process, base
 
 
 def command_for(models, *, workers: int | None = None) -> list[str]:
-    from tests.service.test_server import free_port
-
     command = [str(models) if part == MOUNT else part for part in container_start_command()]
     command[command.index("--port") + 1] = str(free_port())
     if workers is not None:
@@ -83,7 +60,7 @@ def test_the_container_start_command_serves_the_mounted_bundles(models):
         assert listed["name"] == "crane-demo"
         assert httpx.get(f"{base}/v2/health/ready", timeout=5).status_code == 200
     finally:
-        stop(process)
+        stop(process, seconds=20)
 
 
 def test_two_workers_behind_one_port_answer_every_request(models):
@@ -104,7 +81,7 @@ def test_two_workers_behind_one_port_answer_every_request(models):
                 ThreadPoolExecutor(max_workers=16) as pool:
             answers = list(pool.map(lambda index: ask(http, index), range(len(states))))
     finally:
-        stop(process)
+        stop(process, seconds=20)
     assert [status for _, status, _ in answers] == [200] * len(states)
     expected = stepper.advance(states.astype(np.float32), 4.0)
     got = np.array([body["state"] for _, _, body in sorted(answers, key=lambda a: a[0])])

@@ -2,28 +2,21 @@
 
 from __future__ import annotations
 
-import json
 import re
 from pathlib import Path
 
 import pytest
 
+from tests.servers import MOUNT, container_start_command
+
 yaml = pytest.importorskip("yaml", reason="PyYAML is in the dev extra")
 
 DEPLOY = Path(__file__).resolve().parents[2] / "deploy"
 PORT = 8080
-MOUNT = "/mnt/models"
 
 
 def documents(name: str) -> list[dict]:
     return [doc for doc in yaml.safe_load_all((DEPLOY / name).read_text()) if doc]
-
-
-def container_start_command() -> list[str]:
-    """The ENTRYPOINT of deploy/Containerfile (exec form, JSON)."""
-    text = (DEPLOY / "Containerfile").read_text()
-    (line,) = [line for line in text.splitlines() if line.startswith("ENTRYPOINT")]
-    return json.loads(line.removeprefix("ENTRYPOINT"))
 
 
 @pytest.fixture(scope="module")

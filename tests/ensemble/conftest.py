@@ -2,23 +2,12 @@
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from stridecast.runtime import load
 from tests.builders import linear_bundle, oscillator_matrix
 
 pytest.importorskip("distributed", reason="needs the ensemble extra (dask[distributed])")
-
-
-def block_oscillators(count: int) -> np.ndarray:
-    """`count` undamped oscillators of different frequencies as one block-diagonal system."""
-    dim = 2 * count
-    system = np.zeros((dim, dim))
-    for index in range(count):
-        system[2 * index:2 * index + 2, 2 * index:2 * index + 2] = oscillator_matrix(
-            omega=1.0 + 0.25 * index)
-    return system
 
 
 @pytest.fixture(scope="module")

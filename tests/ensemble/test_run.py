@@ -12,7 +12,7 @@ from scipy.linalg import expm
 from stridecast.ensemble import OutputError, forecast_ensemble
 from stridecast.runtime import StateError, Stepper, TimeError, load
 from tests.builders import linear_bundle, oscillator_matrix
-from tests.ensemble.conftest import block_oscillators
+from tests.systems import block_oscillators
 
 TIMES = np.array([0.0, 0.3, 1.6, 2.0, 3.7])
 

@@ -293,7 +293,8 @@ def test_overwrite_replaces_bundle(tmp_path):
 
 def trained_linear(curve_errors: list[float | None]) -> TrainedLevels:
     """Exact expm levels (scipy.linalg.expm) with a given validation curve and samples."""
-    from tests.export.test_evaluation import BASE_STEP, exact_level
+    from tests.systems import DAMPED_BASE_STEP as BASE_STEP
+    from tests.systems import exact_level
 
     samples = np.random.default_rng(3).normal(size=(300, 2)).astype(np.float32)
     times = [BASE_STEP * (i + 1) for i in range(len(curve_errors))]

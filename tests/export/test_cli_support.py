@@ -18,7 +18,7 @@ from stridecast.export.cli_support import (
     train_from_file,
 )
 from stridecast.runtime import BundleError, StateError, load
-from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
+from tests.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 MEAN, SCALE = [0.5, -1.0], [2.0, 4.0]
 

@@ -5,7 +5,6 @@ from __future__ import annotations
 import numpy as np
 import torch
 from scipy.linalg import expm
-from torch import nn
 
 from stridecast.export.evaluation import (
     advance,
@@ -14,24 +13,8 @@ from stridecast.export.evaluation import (
     normalised_rms,
     prepare_held_out,
 )
-from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
-
-BASE_STEP = 0.1
-
-
-def exact_level(stride: int, factor: float = 1.0) -> nn.Module:
-    """The increment network z ↦ (F − I) z with F = factor · expm(A k Δt) (mean 0, scale 1)."""
-    layer = nn.Linear(2, 2, bias=False)
-    with torch.no_grad():
-        flow = factor * expm(DAMPED_OSCILLATOR * stride * BASE_STEP)
-        layer.weight.copy_(torch.from_numpy(flow - np.eye(2)))
-    return layer
-
-
-def held_out_list(count: int = 3, steps: int = 40, seed: int = 2) -> list[torch.Tensor]:
-    trajectories = linear_trajectories(DAMPED_OSCILLATOR, base_step=BASE_STEP, count=count,
-                                       steps=steps, seed=seed)
-    return [torch.from_numpy(t.astype(np.float32)) for t in trajectories]
+from tests.systems import DAMPED_BASE_STEP as BASE_STEP
+from tests.systems import DAMPED_OSCILLATOR, exact_level, held_out_list
 
 
 def test_advance_composes_coarse_first():

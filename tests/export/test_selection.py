@@ -18,7 +18,7 @@ from stridecast.export.selection import (
     score_steps,
     select_levels,
 )
-from tests.export.test_evaluation import exact_level, held_out_list
+from tests.systems import exact_level, held_out_list
 
 
 def test_perturbed_coarse_level_is_dropped_exhaustively():

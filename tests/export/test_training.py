@@ -12,7 +12,7 @@ from stridecast.export import TrainingError, export_bundle, train_levels
 from stridecast.export.training import window_loss
 from stridecast.export.windows import Ragged, gather_windows, window_starts
 from stridecast.runtime import BundleError, StateError, load
-from tests.export.systems import DAMPED_OSCILLATOR, linear_trajectories
+from tests.systems import DAMPED_OSCILLATOR, linear_trajectories
 
 BASE_STEP = 0.1
 TINY = {"hidden": (8,), "epochs": 2, "rollout": 2, "progress": False}
@@ -129,7 +129,8 @@ def test_without_validation(data):
      r"have at most 10 samples per trajectory; the largest stride 4 with rollout 3 needs at "
      r"least 13\.$"),
     ({"strides": []}, BundleError, r"`strides` is \[\]; expected a non-empty list"),
-    ({"strides": [1, 1]}, BundleError, r"`strides` repeats a stride"),
+    ({"strides": [1, 1]}, BundleError, r"`strides` repeats a stride: \[1, 1\]; strides must be "
+     r"distinct\."),
     ({"strides": [0, 1]}, BundleError, r"stride 0 must be a positive number of base steps\."),
     ({"base_step": -1.0}, BundleError, r"`base_step` is -1\.0; expected a finite number > 0\."),
     ({"hidden": []}, TrainingError, r"`hidden` is \[\]; expected a non-empty list of widths\."),

@@ -20,7 +20,8 @@ from stridecast.export.validity import (
     upper_bound,
     validated_horizon,
 )
-from tests.export.test_evaluation import BASE_STEP, exact_level, held_out_list
+from tests.systems import DAMPED_BASE_STEP as BASE_STEP
+from tests.systems import exact_level, held_out_list
 
 
 @pytest.mark.parametrize(("errors", "expected"), [

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from tests.reliability.report import FORBIDDEN, Collector, machine_line, render
+from tests.reliability.report import FORBIDDEN, Collector, machine_line, render, report_target
 
 HERE = Path(__file__).resolve().parent
 COLLECTOR = pytest.StashKey[Collector]()
@@ -23,8 +23,6 @@ ITEMS = pytest.StashKey[set]()
 PASSED = pytest.StashKey[set]()
 PROBLEMS = pytest.StashKey[list]()
 KNOWN = pytest.StashKey[dict]()
-# Where the table goes; unset (a plain test run), it goes nowhere.
-OUTPUT_VARIABLE = "STRIDECAST_RELIABILITY_DOC"
 # pytest_runtest_logreport receives no config; the session's is kept here by pytest_configure.
 _CONFIG: dict[str, pytest.Config] = {}
 
@@ -107,12 +105,6 @@ def pytest_sessionfinish(session: pytest.Session, exitstatus: int) -> None:
     os.replace(staging, target)
     if reporter is not None:
         reporter.write_line(f"reliability table ({len(rows)} rows) written to {target}")
-
-
-def report_target(environ) -> Path | None:
-    """The file to write the table to: `OUTPUT_VARIABLE` if set, otherwise none."""
-    value = environ.get(OUTPUT_VARIABLE, "")
-    return Path(value) if value else None
 
 
 @pytest.fixture(scope="session")

@@ -27,6 +27,16 @@ from pathlib import Path
 
 import numpy as np
 
+# Where the conftest writes the table; unset (a plain test run), it goes nowhere.
+OUTPUT_VARIABLE = "STRIDECAST_RELIABILITY_DOC"
+
+
+def report_target(environ) -> Path | None:
+    """The file to write the table to: `OUTPUT_VARIABLE` if set, otherwise none."""
+    value = environ.get(OUTPUT_VARIABLE, "")
+    return Path(value) if value else None
+
+
 # The table reports what was refused or survived; words for the opposite would mean a test
 # passed while something broke, so they are refused outright (500 as a lone number, not 1,500).
 FORBIDDEN = re.compile(r"crash|\bhung\b|\bhang|(?<!\d)(?<!\d[.,])500(?!\d|[.,]\d)",
@@ -271,7 +281,7 @@ def main(argv: list[str] | None = None) -> int:
     arguments = parser.parse_args(argv)
     with tempfile.TemporaryDirectory() as scratch:
         table = Path(scratch) / "reliability.md"
-        environment = {**os.environ, "STRIDECAST_RELIABILITY_DOC": str(table)}
+        environment = {**os.environ, OUTPUT_VARIABLE: str(table)}
         done = subprocess.run([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider",
                                "tests/reliability"], cwd=root, env=environment, check=False)
         if done.returncode != 0 or not table.is_file():

@@ -21,7 +21,7 @@ from pathlib import Path
 import httpx
 import pytest
 
-from tests.service.test_server import free_port, stop
+from tests.servers import free_port, stop
 
 STARTUP_SECONDS = 60
 FACTORY = "stridecast.service.app:app_from_environment"

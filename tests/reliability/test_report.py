@@ -9,15 +9,16 @@ from pathlib import Path
 
 import pytest
 
-from tests.reliability.conftest import OUTPUT_VARIABLE, report_target
 from tests.reliability.report import (
     FORBIDDEN,
     FOUND,
+    OUTPUT_VARIABLE,
     README_END,
     README_START,
     Collector,
     readme_summary,
     render,
+    report_target,
     update_readme,
 )
 

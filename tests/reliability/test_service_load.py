@@ -19,7 +19,7 @@ import pytest
 
 from stridecast.runtime import load
 from tests.reliability.server import running_server
-from tests.service.conftest import write_oscillator
+from tests.systems import write_oscillator
 
 RUNNING, WAITING = 2, 2
 PHASE_SECONDS = 5.0

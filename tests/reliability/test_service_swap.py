@@ -19,7 +19,7 @@ from fastapi.testclient import TestClient
 
 from stridecast.runtime import BundleError, load, sha256_hex
 from stridecast.service import Settings, create_app
-from tests.service.conftest import write_oscillator
+from tests.systems import write_oscillator
 
 STATE = [[1.0, 0.0], [0.2, -0.4]]
 LEVEL = Path("levels/stride-00004.onnx")

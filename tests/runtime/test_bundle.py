@@ -90,7 +90,7 @@ def test_checksum_mismatch(bundle):
     (lambda d: d["normalization"].__setitem__("mean", [1.0]), "normalization.mean"),
     (lambda d: d.__setitem__("update", "multiply"), "`update`"),
     (lambda d: d["levels"][1].__setitem__("stride", 1), "distinct"),
-    (lambda d: d["levels"][1].__setitem__("stride", 0), "positive integer"),
+    (lambda d: d["levels"][1].__setitem__("stride", 0), "positive number of base steps"),
     (lambda d: d["levels"][1].__setitem__("sha256", "abc"), "hexadecimal"),
     (lambda d: d["state"].__setitem__("names", ["a", "a"]), "distinct"),
     (lambda d: d.__setitem__("levels", []), "non-empty"),
@@ -136,6 +136,37 @@ def test_write_refuses_existing_and_overwrites_atomically(bundle):
     linear_bundle(bundle, oscillator_matrix(), base_step=0.2, strides=(2,), overwrite=True)
     assert load(bundle).strides == (2,)
     assert [p.name for p in bundle.parent.iterdir() if p.name.startswith(".")] == []
+
+
+def test_check_target_names_the_option_and_never_replaces_a_file(tmp_path):
+    # The one overwrite rule (runtime.bundle.check_target) that every writer calls.
+    bundle_module.check_target(tmp_path / "new.bundle", overwrite=False)  # nothing there: fine
+    existing = tmp_path / "old.bundle"
+    existing.mkdir()
+    with pytest.raises(BundleError, match=r"^`--out` '.*old\.bundle' already exists; pass "
+                                          r"--overwrite\.$"):
+        bundle_module.check_target(existing, overwrite=False, where="--out",
+                                   hint="pass --overwrite")
+    bundle_module.check_target(existing, overwrite=True)
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(BundleError, match=r"exists and is not a directory; refusing"):
+        bundle_module.check_target(tmp_path / "file", overwrite=True)
+    (tmp_path / "link").symlink_to(existing)
+    with pytest.raises(BundleError, match=r"exists and is not a directory; refusing"):
+        bundle_module.check_target(tmp_path / "link", overwrite=True)
+
+
+def test_write_report_replaces_the_file_whole_and_readable(bundle):
+    path = bundle_module.write_report(bundle, {"a": [1.5, None]})
+    assert json.loads(path.read_text()) == {"a": [1.5, None]}
+    assert path.stat().st_mode & 0o777 == 0o644  # bundles are read by other users
+    bundle_module.write_report(bundle, {"b": 2})
+    assert json.loads(path.read_text()) == {"b": 2}
+    # JSON has no NaN (RFC 8259, section 6): refused, and the old file stays as it was.
+    with pytest.raises(BundleError, match=r"`report` cannot be written as JSON"):
+        bundle_module.write_report(bundle, {"c": float("nan")})
+    assert json.loads(path.read_text()) == {"b": 2}
+    assert [p.name for p in bundle.iterdir() if p.name.startswith(".report")] == []
 
 
 def test_interrupted_write_leaves_nothing(tmp_path, monkeypatch, bundle):

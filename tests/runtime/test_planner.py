@@ -218,12 +218,12 @@ def test_table_cap():
 @pytest.mark.parametrize(
     ("strides", "message"),
     [
-        ((), r"at least one stride"),
-        ((1, 0), r"positive integers; got \(1, 0\)"),
-        ((2, -3), r"positive integers; got \(2, -3\)"),
-        ((1.5,), r"positive integers; got \(1.5,\)"),
-        ((True,), r"positive integers"),
-        ((4, 4), r"distinct; got \(4, 4\)"),
+        ((), r"`strides` is \(\); expected a non-empty list of strides\."),
+        ((1, 0), r"stride 0 must be a positive number of base steps\."),
+        ((2, -3), r"stride -3 must be a positive number of base steps\."),
+        ((1.5,), r"stride 1.5 is not an integer; strides are whole base steps\."),
+        ((True,), r"stride True is not an integer"),
+        ((4, 4), r"`strides` repeats a stride: \[4, 4\]; strides must be distinct\."),
     ],
 )
 def test_bad_strides(strides, message):

@@ -10,6 +10,7 @@ its exact flow, scipy.linalg.expm(A_r t), decoded: x(t) = (V expm(A_r t) Vᵀ z0
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import pickle
 
@@ -21,10 +22,10 @@ from stridecast.runtime import (
     DECODER_FILE,
     ENCODER_FILE,
     BundleError,
+    ExtrapolationError,
     ExtrapolationWarning,
     Manifest,
     ModelFormatError,
-    OptionError,
     load,
     parse_manifest,
     write_bundle,
@@ -156,20 +157,20 @@ def test_interpolation_and_steps_run_in_the_latent_space(bundle, system):
                    for node in nodes]
         expected = np.tensordot(weights, reference(states, nodes, system), axes=1)
         assert relative(stepper.forecast(states, [t])[0], expected) <= 1e-9
-    with pytest.raises(OptionError, match="reduced bundle"):
-        stepper.advance(states, 0.05, vector_field=lambda x: x)
 
 
-def test_envelope_is_checked_on_latent_states(tmp_path, system):
+def test_envelope_samples_are_checked_on_latent_states(tmp_path, system):
     latent, basis = system
     states = initial_states(1)
     start = ((states - STEADY) / SCALE) @ basis
-    lower, upper = start[0] - 1e-3, start[0] + 1e-3  # only the start is inside
+    # One latent sample at the encoded start: the start is near the data, later latent
+    # states (the decay moves them away by more than the radius) are not.
     path = reduced_bundle(tmp_path / "b", latent, basis, base_step=BASE_STEP, strides=STRIDES,
-                          mean=STEADY, scale=SCALE, envelope=(lower, upper))
+                          mean=STEADY, scale=SCALE, samples=start, radius=1e-3,
+                          envelope=(start[0] - 1e3, start[0] + 1e3))  # a box that never binds
     stepper = load(path, dtype="float64")
     assert not stepper.outside_envelope(states[0])
-    with pytest.warns(ExtrapolationWarning, match=r"latent\["):
+    with pytest.warns(ExtrapolationWarning, match=r"far from the training data.*latent\["):
         stepper.advance(states[0], 20.0)
     assert stepper.check(states) == ()
 
@@ -260,6 +261,14 @@ def _manifest(**reduction) -> dict:
     ({"decoder": {"file": ENCODER_FILE, "sha256": "c" * 64}}, "two files"),
     ({"decoder": {"file": "levels/stride-00001.onnx", "sha256": "c" * 64}}, "file of a level"),
     ({"encoder": {"file": ENCODER_FILE, "sha256": "B" * 64}}, "hexadecimal"),
+    ({"reconstruction": {"metric": "rms", "threshold": 0.1}}, "reconstruction.metric"),
+    ({"reconstruction": {"metric": "normalised_rms", "threshold": 0}},
+     r"reconstruction.threshold` must be > 0"),
+    ({"reconstruction": {"metric": "normalised_rms", "threshold": "0.1"}},
+     "reconstruction.threshold"),
+    ({"reconstruction": {"metric": "normalised_rms"}}, "reduction.reconstruction"),
+    ({"reconstruction": {"metric": "normalised_rms", "threshold": 0.1, "p": 95}},
+     "unknown fields"),
 ])
 def test_bad_reduction_blocks_are_refused(change, message):
     with pytest.raises(BundleError, match=message):
@@ -293,3 +302,142 @@ def test_bundle_without_reduction_is_unchanged(tmp_path):
     stepper = load(path, dtype="float64")
     assert stepper.latent_dim is None and stepper.reduction_paths == {}
     assert "reduction" not in json.loads((path / "manifest.json").read_text())
+
+
+# ------------------------------------------------------------- full-space checks and speed
+def _off_subspace(basis: np.ndarray, size: float) -> np.ndarray:
+    """A normalised direction orthogonal to the basis, of normalised RMS `size`."""
+    rng = np.random.default_rng(5)
+    direction = rng.normal(size=N)
+    direction -= basis @ (basis.T @ direction)
+    return direction * size * np.sqrt(N) / np.linalg.norm(direction)
+
+
+def test_envelope_box_is_checked_on_latent_states(tmp_path, system):
+    latent, basis = system
+    states = initial_states(1)
+    start = ((states - STEADY) / SCALE) @ basis
+    lower, upper = start[0] - 1e-3, start[0] + 1e-3  # only the start is inside
+    path = reduced_bundle(tmp_path / "b", latent, basis, base_step=BASE_STEP, strides=STRIDES,
+                          mean=STEADY, scale=SCALE, envelope=(lower, upper))
+    stepper = load(path, dtype="float64")
+    assert not stepper.outside_envelope(states[0])
+    with pytest.warns(ExtrapolationWarning, match=r"latent\["):
+        stepper.advance(states[0], 20.0)
+    assert stepper.check(states) == ()
+    hot = states[0] + SCALE * (basis @ np.full(LATENT, 1.0))  # latent start moved by 1
+    [finding] = stepper.check(hot)
+    assert finding.kind == "outside_box" and finding.components[0].startswith("latent[")
+
+
+def test_reconstruction_error_is_checked_on_the_given_states(tmp_path, system):
+    latent, basis = system
+    path = reduced_bundle(tmp_path / "b", latent, basis, base_step=BASE_STEP, strides=STRIDES,
+                          mean=STEADY, scale=SCALE, reconstruction=0.05)
+    stepper = load(path, dtype="float64")
+    assert stepper.manifest.reduction.reconstruction_threshold == 0.05
+    inside = STEADY + SCALE * (basis @ np.linspace(-3.0, 3.0, LATENT))  # in the span: error 0
+    off = inside + SCALE * _off_subspace(basis, 0.2)
+    assert stepper.check(inside) == ()
+    [finding] = stepper.check(np.stack([inside, off]))
+    # Reference: for an orthonormal basis V, x̂ is the orthogonal projection, so the
+    # normalised RMS error of `off` is |z⊥| / √d = 0.2 by construction (Pythagoras).
+    assert finding.kind == "off_subspace" and finding.states == (1,)
+    assert finding.amount == pytest.approx(0.2 / 0.05, rel=1e-9)
+    assert "reconstruction error 0.2 vs 0.05 from the training data" in finding.message
+    with pytest.warns(ExtrapolationWarning, match="not well represented by the bundle's reduced"):
+        stepper.advance(off, 1.0)
+    strict = load(path, dtype="float64", on_extrapolation="error")
+    with pytest.raises(ExtrapolationError, match="reduced basis"):
+        strict.forecast(off, [1.0, 2.0])
+    strict.forecast(inside, [1.0, 2.0])  # no finding, no error
+    # Without the threshold (older bundles), no check.
+    plain = reduced_bundle(tmp_path / "p", latent, basis, base_step=BASE_STEP, strides=STRIDES,
+                           mean=STEADY, scale=SCALE)
+    assert load(plain, dtype="float64").check(off) == ()
+
+
+def _heat_field(states: np.ndarray) -> np.ndarray:
+    """The full semi-discrete heat equation, x' = A (x − x_eq), for (B, d) states."""
+    return (states - STEADY) @ heat_matrix().T
+
+
+def _solve_full(start: np.ndarray, duration: float) -> np.ndarray:
+    """SciPy's DOP853 over the full field (the reference for the integrator's remainder)."""
+    from scipy.integrate import solve_ivp
+
+    if duration == 0:
+        return start
+    rows = [solve_ivp(lambda _, x: _heat_field(x[None])[0], (0.0, duration), row,
+                      method="DOP853", rtol=1e-12, atol=1e-12).y[:, -1] for row in start]
+    return np.stack(rows)
+
+
+def test_vector_field_finishes_reduced_forecasts_in_the_full_space(bundle, system):
+    stepper = load(bundle, dtype="float64")
+    states = initial_states(2)
+    for t in (0.05, 3.33, 6.4):
+        result, plan = stepper.advance_with_plan(states, t, vector_field=_heat_field)
+        anchor = plan.base_steps * BASE_STEP
+        # Reference: the exact latent flow to the grid anchor (expm), decoded, then SciPy's
+        # solve_ivp on the full field for the rest.
+        expected = _solve_full(reference(states, [anchor], system)[0], t - anchor)
+        assert plan.method == ("grid" if t == 6.4 else "integrate")
+        # The runtime integrates with rtol 1e-8 of ~350 K temperatures: a few µK, against
+        # deviations of tens of K.
+        assert relative(result, expected) <= 2e-6
+    # Hybrid: only strides ≥ 16 are used; the integrator covers the rest in full space.
+    times = [0.0, 1.6, 2.5, 5.0, 7.3]
+    result, info = stepper.forecast_with_info(states, times, vector_field=_heat_field,
+                                              hybrid_below=16)
+    assert info.integrator_evaluations > 0
+    for index, t in enumerate(times):
+        anchor = np.floor(t / 1.6 + 1e-9) * 1.6
+        expected = _solve_full(reference(states, [anchor], system)[0], t - anchor)
+        assert relative(result[index], expected) <= 2e-6
+        single = stepper.advance(states[0], t, vector_field=_heat_field, hybrid_below=16)
+        assert relative(single, expected[0]) <= 2e-6
+
+
+class _Counting:
+    """Wraps an encoder or decoder: counts the calls and the rows they carry."""
+
+    def __init__(self, function):
+        self.function, self.calls, self.rows = function, 0, 0
+
+    def __call__(self, states):
+        self.calls += 1
+        self.rows += states.shape[0]
+        return self.function(states)
+
+
+def _counted(stepper):
+    maps = stepper._reduction
+    counted = dataclasses.replace(maps, encoder=_Counting(maps.encoder),
+                                  decoder=_Counting(maps.decoder))
+    stepper._reduction = counted  # the test's instrument; steppers are otherwise immutable
+    return counted.encoder, counted.decoder
+
+
+@pytest.mark.parametrize("reconstruction", [None, 0.05])
+def test_encode_once_decode_each_distinct_time_once(tmp_path, system, reconstruction):
+    latent, basis = system
+    path = reduced_bundle(tmp_path / "b", latent, basis, base_step=BASE_STEP, strides=STRIDES,
+                          mean=STEADY, scale=SCALE, reconstruction=reconstruction)
+    stepper = load(path, dtype="float64", on_extrapolation="ignore")
+    assert stepper.reduction_paths == {"encoder": "affine-chain", "decoder": "affine-chain"}
+    encoder, decoder = _counted(stepper)
+    states = initial_states(3)
+    checks = 0 if reconstruction is None else 1  # the off-subspace check decodes the inputs
+    times = [6.4, 0.05, 6.4, 3.33, 12.8, 0.05]  # 4 distinct, two off the grid
+    result = stepper.forecast(states, times)
+    assert (encoder.calls, encoder.rows) == (1, 3)
+    assert (decoder.calls, decoder.rows) == (1 + checks, 4 * 3 + 3 * checks)
+    # Against a direct composition: decoder(expm(A_r t) encoder(x)) (scipy.linalg.expm).
+    exact = reference(states, [6.4, 12.8], system)
+    assert relative(result[[0, 4]], exact) <= 1e-9
+    np.testing.assert_array_equal(result[0], result[2])
+    stepper.advance(states, 3.33)
+    assert (encoder.calls, decoder.calls) == (2, 2 + 2 * checks)
+    stepper.advance(states, 3.33, vector_field=_heat_field)
+    assert (encoder.calls, decoder.calls) == (3, 3 + 3 * checks)

@@ -45,3 +45,22 @@ def test_a_stepper_not_made_by_load_cannot_be_pickled(tmp_path):
     handmade = Stepper(loaded.manifest, {1: lambda states: states})
     with pytest.raises(TypeError, match=r"only a Stepper made by .*load.* can be pickled\."):
         pickle.dumps(handmade)
+
+
+def test_a_with_levels_subset_pickles_as_its_bundle_and_strides(tmp_path):
+    path = linear_bundle(tmp_path / "osc.bundle", oscillator_matrix(), base_step=0.1,
+                         strides=[1, 4, 16])
+    subset = load(path, dtype="float64").with_levels([1, 16]).with_levels([1])
+    copy = pickle.loads(pickle.dumps(subset))
+    assert copy.strides == (1,) and copy.dtype == np.float64
+    state = np.array([1.0, -0.5])
+    # Seven stride-1 steps of the exact flow map: expm(A t) x0 (SciPy).
+    np.testing.assert_allclose(copy.advance(state, 0.7), expm(oscillator_matrix() * 0.7) @ state,
+                               rtol=1e-12)
+    assert copy.plan(0.7).evaluations == 7 == subset.plan(0.7).evaluations
+    # Its whole bundle is what identifies it: a changed level 16 is refused too.
+    data = pickle.dumps(load(path).with_levels([1, 4]))
+    shutil.rmtree(path)
+    linear_bundle(path, oscillator_matrix(), base_step=0.1, strides=[1, 4, 8])
+    with pytest.raises(BundleError, match=r"changed since the stepper was pickled"):
+        pickle.loads(data)

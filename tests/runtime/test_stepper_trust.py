@@ -209,9 +209,13 @@ def test_with_levels_equals_a_bundle_built_with_those_levels(oscillator, tmp_pat
     assert [f.kind for f in subset.check([1.0, 0.0], t=1.0)] == ["no_validation"]
     same = full.with_levels([1, 2, 4])
     assert same.manifest.validation == CURVE and same.expected_error(0.5) == 0.01
-    for bad in ([], [3], [1, 1], ["1"], [True]):
-        with pytest.raises(OptionError, match=r"`strides` is .*; expected a non-empty list of "
-                                            r"distinct strides of this bundle, \[1, 2, 4\]\."):
+    # The runtime's one stride rule (validation.check_strides), raised as OptionError here.
+    for bad, message in (([], r"`strides` is \[\]; expected a non-empty list of strides\."),
+                         ([3], r"\[3\] are not strides of this bundle, \[1, 2, 4\]\."),
+                         ([1, 1], r"`strides` repeats a stride: \[1, 1\]"),
+                         (["1"], r"stride '1' is not an integer"),
+                         ([True], r"stride True is not an integer")):
+        with pytest.raises(OptionError, match=message):
             full.with_levels(bad)
 
 

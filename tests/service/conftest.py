@@ -12,62 +12,12 @@ from __future__ import annotations
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
-import numpy as np
-import onnx
 import pytest
-import scipy.linalg
 from fastapi.testclient import TestClient
-from onnx import TensorProto, helper, numpy_helper
 
-from stridecast.runtime import LevelEntry, Manifest, load, write_bundle
+from stridecast.runtime import load
 from stridecast.service import Settings, create_app
-
-OMEGA = 2.0
-BASE_STEP = 0.05
-STRIDES = (1, 4, 16)
-ENVELOPE = ((-2.0, -4.0), (2.0, 4.0))
-VALIDATED_HORIZON = 5.0
-GENERATOR = np.array([[0.0, 1.0], [-OMEGA**2, 0.0]])
-
-
-def flow_map(t: float) -> np.ndarray:
-    """The exact flow map of the oscillator over time `t` (the matrix exponential, SciPy)."""
-    return scipy.linalg.expm(GENERATOR * t)
-
-
-def exact_state(state: np.ndarray, t: float) -> np.ndarray:
-    """x(t) for rows x(0) of `state`, from the matrix exponential."""
-    return np.asarray(state, dtype=np.float64) @ flow_map(t).T
-
-
-def level_model(stride: int) -> bytes:
-    """ONNX model "state" (B, 2) -> "next" = state @ expm(A stride Δt)ᵀ, float32 weights."""
-    weight = flow_map(stride * BASE_STEP).T.astype(np.float32)
-    graph = helper.make_graph(
-        [helper.make_node("MatMul", ["state", "weight"], ["next"])],
-        f"oscillator_stride_{stride}",
-        [helper.make_tensor_value_info("state", TensorProto.FLOAT, ["batch", 2])],
-        [helper.make_tensor_value_info("next", TensorProto.FLOAT, ["batch", 2])],
-        initializer=[numpy_helper.from_array(weight, "weight")],
-    )
-    model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)],
-                              producer_name="stridecast-tests")
-    model.ir_version = 8
-    onnx.checker.check_model(model)
-    return model.SerializeToString()
-
-
-def write_oscillator(out: Path, *, name: str = "oscillator") -> Path:
-    manifest = Manifest(
-        state_names=("x", "v"), state_units=("m", "m/s"), base_step=BASE_STEP,
-        mean=(0.0, 0.0), scale=(1.0, 1.0),
-        levels=tuple(LevelEntry(stride, file="", sha256="0" * 64) for stride in STRIDES),
-        update="replace", time_unit="s", name=name,
-        description="Harmonic oscillator with ω = 2, exact flow map.",
-        envelope_min=ENVELOPE[0], envelope_max=ENVELOPE[1],
-        validated_horizon=VALIDATED_HORIZON,
-    )
-    return write_bundle(out, manifest, {stride: level_model(stride) for stride in STRIDES})
+from tests.systems import write_oscillator
 
 
 @pytest.fixture(scope="session")

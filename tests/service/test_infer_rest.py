@@ -191,3 +191,15 @@ def test_classification_extension_is_refused_by_name(client):
     response = client.post(INFER, json=request)
     assert response.status_code == 422
     assert "does not offer the classification extension" in response.json()["error"]
+
+
+@pytest.mark.parametrize("value", [{"nested": 1}, [1, 2], None])
+def test_parameter_values_are_strings_numbers_or_booleans(client, value):
+    # The protocol's $parameter value is a string, number or boolean (KServe open inference
+    # protocol, REST: "$parameter"); unknown keys are ignored, malformed values are not.
+    assert client.post(INFER, json={**JSON_REQUEST, "parameters": {"note": "x", "n": 2,
+                                                                    "flag": True}}
+                       ).status_code == 200
+    response = client.post(INFER, json={**JSON_REQUEST, "parameters": {"note": value}})
+    assert response.status_code == 422
+    assert "`parameters.note` is of type" in response.json()["error"]

@@ -28,8 +28,7 @@ from tritonclient.grpc import service_pb2, service_pb2_grpc
 from tritonclient.utils import InferenceServerException
 
 from stridecast.service import Settings, create_app
-
-from .test_server import free_port
+from tests.servers import free_port
 
 MODEL = "oscillator"
 TOKEN = "client-test-token"

@@ -7,9 +7,10 @@ response must match the documented status codes, content types and schemas.
 
 from __future__ import annotations
 
-import msgpack
+import numpy as np
 import pytest
 import schemathesis
+from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, Phase, given, settings
 from schemathesis import GenerationMode
 from schemathesis.checks import not_a_server_error
@@ -20,30 +21,15 @@ from schemathesis.specs.openapi.checks import (
 )
 
 from stridecast.service import Settings, create_app
+from tests.http_cases import documented_operations, register_msgpack_serializer
 
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
           response_schema_conformance]
-# The operations, read from an app that loads nothing (its lifespan never runs here).
-OPERATIONS = [(path, method.upper())
-              for path, methods in create_app().openapi()["paths"].items()
-              for method in methods]
+OPERATIONS = documented_operations()
 EXAMPLES = 25
 
 
-def _packable(value):
-    """Generated data as MessagePack can carry it: integers beyond 64 bits become floats."""
-    if isinstance(value, dict):
-        return {key: _packable(item) for key, item in value.items()}
-    if isinstance(value, list):
-        return [_packable(item) for item in value]
-    if isinstance(value, int) and not isinstance(value, bool) and not -2**63 <= value < 2**64:
-        return float(value)
-    return value
-
-
-@schemathesis.serializer("application/msgpack")
-def _msgpack(ctx, value) -> bytes:
-    return msgpack.packb(_packable(value), use_bin_type=True)
+register_msgpack_serializer()
 
 
 @pytest.fixture(scope="module")
@@ -102,15 +88,90 @@ def test_bearer_auth_is_optional_without_a_token_and_required_with_one(make_clie
             assert document["paths"][path]["post"]["security"] == expected
 
 
-def test_schema_says_what_the_service_checks(make_client):
+def test_generic_schema_says_what_every_model_needs(make_client):
     components = _document(make_client, max_batch=16)["components"]["schemas"]
-    # The served oscillator has 2 components: rows of exactly 2, batches of 1..16 rows.
     row, batch = components["AdvanceRequest"]["properties"]["state"]["anyOf"]
-    assert (row["minItems"], row["maxItems"]) == (2, 2)
-    assert (batch["minItems"], batch["maxItems"]) == (1, 16)
+    assert row["minItems"] == 1 and batch["minItems"] == 1
     assert components["AdvanceRequest"]["properties"]["t"]["minimum"] == 0
     times = components["ForecastRequest"]["properties"]["times"]
     assert times["minItems"] == 1 and times["items"]["minimum"] == 0
     tensor = components["InferRequestInput"]["properties"]
     assert (tensor["shape"]["minItems"], tensor["shape"]["maxItems"]) == (1, 2)
     assert tensor["shape"]["items"]["minimum"] == 0 and tensor["data"]["minItems"] == 1
+
+
+MODEL_PATHS = {"/v1/models/oscillator/advance": "AdvanceRequest.oscillator-0",
+               "/v1/models/oscillator/forecast": "ForecastRequest.oscillator-0",
+               "/v2/models/oscillator/infer": "InferRequest.oscillator-0",
+               "/v2/models/oscillator/versions/1/infer": "InferRequest.oscillator-0"}
+
+
+def test_each_served_model_has_paths_with_its_exact_schema(make_client, stepper):
+    client = make_client(max_batch=16, max_forecast_points=50, max_abs_value=1e30,
+                         max_coarse_steps=500)
+    document = client.get("/openapi.json").json()
+    components = document["components"]["schemas"]
+    for path, component in MODEL_PATHS.items():
+        body = document["paths"][path]["post"]["requestBody"]["content"]
+        assert {media["schema"]["$ref"] for media in body.values()} == {
+            f"#/components/schemas/{component}"}
+        assert all(parameter["name"] not in ("name", "version")
+                   for parameter in document["paths"][path]["post"].get("parameters", []))
+    advance = components["AdvanceRequest.oscillator-0"]["properties"]
+    row, batch = advance["state"]["anyOf"]
+    # The oscillator's state has 2 components: rows of exactly 2, batches of 1..16 rows.
+    assert (row["minItems"], row["maxItems"]) == (2, 2)
+    assert (batch["minItems"], batch["maxItems"]) == (1, 16)
+    assert (row["items"]["minimum"], row["items"]["maximum"]) == (-1e30, 1e30)
+    # 500 steps of the largest stride (16 base steps of 0.05 s): 400 s.
+    assert advance["t"] == {"type": "number", "minimum": 0, "maximum": 500 * 16 * 0.05}
+    forecast = components["ForecastRequest.oscillator-0"]["properties"]
+    assert forecast["times"]["maxItems"] == 50
+    infer = components["InferRequest.oscillator-0"]["properties"]
+    # One alternative per batch size and order: [B, 2] with 't' [1] (both orders), and with
+    # 't' [B] for B > 1.
+    assert len(infer["inputs"]["anyOf"]) == 2 * 16 + 2 * 15
+    first = infer["inputs"]["anyOf"][0]["prefixItems"]
+    assert first[0]["properties"]["data"]["minItems"] == 2
+    assert first[1]["properties"]["shape"]["prefixItems"] == [{"const": 1}]
+
+
+def test_float32_values_are_bounded_where_the_cast_overflows(make_client):
+    # Rounding to nearest float32 (IEEE 754): below FLT_MAX + half an ulp = 2**128 - 2**103 a
+    # float64 rounds to FLT_MAX; from there on it becomes inf.
+    document = make_client().get("/openapi.json").json()
+    row = document["components"]["schemas"]["AdvanceRequest.oscillator-0"]["properties"][
+        "state"]["anyOf"][0]
+    assert row["items"]["exclusiveMaximum"] == 2.0**128 - 2.0**103
+    client = make_client()
+    below = float(np.nextafter(2.0**128 - 2.0**103, 0))
+    ok = client.post("/v1/models/oscillator/advance", json={"state": [below, 0.0], "t": 0})
+    assert ok.status_code == 200
+    refused = client.post("/v1/models/oscillator/advance",
+                          json={"state": [2.0**128 - 2.0**103, 0.0], "t": 0})
+    assert refused.status_code == 422
+
+
+def test_the_bounds_the_document_states_are_enforced(make_client):
+    client = make_client(max_abs_value=10.0, max_coarse_steps=500)
+    advance = "/v1/models/oscillator/advance"
+    assert client.post(advance, json={"state": [10.0, -10.0], "t": 400.0}).status_code == 200
+    late = client.post(advance, json={"state": [1.0, 0.0], "t": 400.01})
+    assert late.status_code == 422 and "up to 400.0" in late.json()["error"]
+    large = client.post(advance, json={"state": [1.0, -10.5], "t": 1.0})
+    assert large.status_code == 422 and "max_abs_value" in large.json()["error"]
+    forecast = client.post("/v1/models/oscillator/forecast",
+                           json={"state": [1.0, 0.0], "times": [1.0, 401.0]})
+    assert forecast.status_code == 422 and "401.0" in forecast.json()["error"]
+    infer = client.post("/v2/models/oscillator/infer", json={"inputs": [
+        {"name": "state", "shape": [1, 2], "datatype": "FP32", "data": [1, 0]},
+        {"name": "t", "shape": [1], "datatype": "FP64", "data": [500]}]})
+    assert infer.status_code == 422 and "up to 400.0" in infer.json()["error"]
+
+
+def test_the_document_is_rebuilt_once_the_models_are_loaded(models_dir):
+    app = create_app([models_dir])
+    before = app.openapi()["paths"]
+    assert "/v1/models/oscillator/advance" not in before
+    with TestClient(app) as client:
+        assert "/v1/models/oscillator/advance" in client.get("/openapi.json").json()["paths"]

@@ -12,7 +12,9 @@ import msgpack
 import numpy as np
 import pytest
 
-from .conftest import BASE_STEP, VALIDATED_HORIZON, exact_state
+from tests.systems import OSCILLATOR_BASE_STEP as BASE_STEP
+from tests.systems import OSCILLATOR_HORIZON as VALIDATED_HORIZON
+from tests.systems import exact_oscillator_state as exact_state
 
 ADVANCE = "/v1/models/oscillator/advance"
 FORECAST = "/v1/models/oscillator/forecast"

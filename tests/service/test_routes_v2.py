@@ -14,8 +14,7 @@ import numpy as np
 import pytest
 
 from stridecast import __version__
-
-from .conftest import exact_state
+from tests.systems import exact_oscillator_state as exact_state
 
 INFER = "/v2/models/oscillator/infer"
 

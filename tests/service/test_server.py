@@ -5,28 +5,22 @@ Expected numbers: the runtime called in this process on the same input (bitwise)
 
 from __future__ import annotations
 
-import signal
+import select
 import socket
 import subprocess
 import sys
-import time
 
 import httpx
 import msgpack
 import numpy as np
 import pytest
 
+from tests.servers import free_port, stop, wait_ready
+
 STARTUP_SECONDS = 30
-SHUTDOWN_SECONDS = 15
 SERVE = ("import sys; from stridecast.service import serve; "
          "serve(sys.argv[4:], host='127.0.0.1', port=int(sys.argv[1]), workers=int(sys.argv[2]), "
          "token_file=sys.argv[3], log_level='warning', max_body_bytes=4096)")
-
-
-def free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
 
 
 def start(models, token_file, *, workers: int = 1):
@@ -35,28 +29,8 @@ def start(models, token_file, *, workers: int = 1):
         [sys.executable, "-c", SERVE, str(port), str(workers), str(token_file), str(models)],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     base = f"http://127.0.0.1:{port}"
-    deadline = time.monotonic() + STARTUP_SECONDS
-    while time.monotonic() < deadline:
-        if process.poll() is not None:
-            pytest.fail(f"the server exited early: {process.stderr.read().decode()}")
-        try:
-            if httpx.get(f"{base}/readyz", timeout=1.0).status_code == 200:
-                return process, base
-        except httpx.TransportError:
-            pass
-        time.sleep(0.1)
-    stop(process)
-    pytest.fail("the server did not become ready in time")
-
-
-def stop(process) -> int:
-    process.send_signal(signal.SIGINT)
-    try:
-        return process.wait(timeout=SHUTDOWN_SECONDS)
-    except subprocess.TimeoutExpired:
-        process.kill()
-        process.wait(timeout=5)
-        pytest.fail("the server did not shut down within its bound")
+    wait_ready(process, base, seconds=STARTUP_SECONDS)
+    return process, base
 
 
 @pytest.fixture
@@ -109,6 +83,42 @@ def test_uvicorn_process_answers_and_shuts_down(models_dir, token_file, stepper)
     assert code == 0, process.stderr.read().decode()
 
 
+def test_413_reaches_a_client_still_trickling_a_chunked_body(models_dir, token_file):
+    # RFC 9112 §7.1 (chunked transfer coding) and RFC 9110 §15.5.14 (413: the server may close
+    # the connection to stop the client sending): the answer must reach a client that is still
+    # sending, not wait for a body that never ends.
+    process, base = start(models_dir, token_file)
+    port = int(base.rsplit(":", 1)[1])
+    piece, pieces = b" " * 256, 256  # 64 KiB of JSON whitespace against a 4 KiB limit
+    chunk = f"{len(piece):x}\r\n".encode() + piece + b"\r\n"
+    head = (b"POST /v1/models/oscillator/advance HTTP/1.1\r\nHost: 127.0.0.1\r\n"
+            b"Authorization: Bearer tok-123\r\nContent-Type: application/json\r\n"
+            b"Transfer-Encoding: chunked\r\n\r\n")
+    sent = 0
+    try:
+        with socket.create_connection(("127.0.0.1", port), timeout=30) as connection:
+            connection.sendall(head)
+            # One chunk at a time with a pause, until the answer is readable: a trickle.
+            while sent < pieces and not select.select([connection], [], [], 0.02)[0]:
+                connection.sendall(chunk)
+                sent += 1
+            answer = b""
+            while b"\r\n\r\n" not in answer:
+                data = connection.recv(65536)
+                if not data:
+                    break
+                answer += data
+    finally:
+        code = stop(process)
+    status_line, _, rest = answer.partition(b"\r\n")
+    assert status_line.split()[1] == b"413", answer
+    assert b"connection: close" in rest.lower()
+    # Answered after the limit was passed and long before the body's end (its last chunk and
+    # the terminating zero-size chunk were never sent).
+    assert 4096 // len(piece) <= sent < pieces
+    assert code == 0, process.stderr.read().decode()
+
+
 def test_uvicorn_with_two_workers(models_dir, token_file):
     process, base = start(models_dir / "oscillator", token_file, workers=2)
     try:
@@ -124,3 +134,31 @@ def test_uvicorn_with_two_workers(models_dir, token_file):
     finally:
         code = stop(process)
     assert code == 0, process.stderr.read().decode()
+
+
+def test_one_process_serves_the_models_it_checked_without_loading_them_again(
+        models_dir, monkeypatch):
+    # serve() loads every bundle once to check it before starting; with one process the app
+    # must serve that registry, not read and verify each bundle a second time.
+    from fastapi.testclient import TestClient
+
+    from stridecast.service import app as app_module
+    from stridecast.service import registry as registry_module
+    from stridecast.service import server
+
+    loads = []
+    real = registry_module.load_registry
+
+    def counting(*arguments, **options):
+        loads.append(1)
+        return real(*arguments, **options)
+
+    apps = []
+    monkeypatch.setattr(server, "load_registry", counting)
+    monkeypatch.setattr(app_module, "load_registry", counting)
+    monkeypatch.setattr(server.uvicorn, "run", lambda app, **options: apps.append(app))
+    server.serve([models_dir], port=free_port())
+    (app,) = apps
+    with TestClient(app) as client:
+        names = [model["name"] for model in client.get("/v1/models").json()["models"]]
+    assert names and loads == [1]

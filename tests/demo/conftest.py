@@ -1,0 +1,3 @@
+"""Every demo test keeps the caution's session marker in its own temporary cache folder."""
+
+from tests.builders import private_cache  # noqa: F401  (an autouse fixture)
