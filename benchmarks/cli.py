@@ -184,7 +184,17 @@ def document(results: dict[str, Any], *, plot_name: str = PLOT_NAME) -> str:
                      f"{label}: " + ", ".join(f"{name} {value:.2g}" for name, value in
                                               values.items())
                      for label, values in agreement.items()) + "."]
+    sections += [OTHER_REPORTS]
     return "\n\n".join(sections) + "\n"
+
+
+# Reports the suite does not regenerate: each has its own command (given on its page).
+OTHER_REPORTS = """## Other benchmark reports
+
+Measured by their own commands, each page giving its command, machine and load:
+[service-benchmark.md](service-benchmark.md) (HTTP and gRPC against onnxruntime in process),
+[field-benchmark.md](field-benchmark.md) (a reduced field bundle against SciPy on the full
+field), [published-systems.md](published-systems.md) (training and trust on published systems)."""
 
 
 def environment_section(passes: dict[str, Any]) -> str:
