@@ -12,13 +12,12 @@ is measured on the decoded full states.
 
 from __future__ import annotations
 
-import contextlib
 import logging
 import math
 import operator
 import sys
 import time
-from collections.abc import Iterator, Sequence
+from collections.abc import Sequence
 from dataclasses import asdict, dataclass
 from typing import Any
 
@@ -42,6 +41,7 @@ from .pod import (
     fit_pod,
     reconstruction_threshold,
 )
+from .threads import compute_threads
 from .trained import TrainedLevels
 from .windows import (
     Ragged,
@@ -139,9 +139,10 @@ def train_levels(
     max_windows_per_epoch : int or None
         Cap on the windows one epoch visits (a fresh random subset each epoch).
     threads : int or None
-        torch intra-op threads while training (restored afterwards). The default 1 makes
-        results independent of the machine's core count (reduction order) and is fastest for
-        small networks; None keeps torch's setting.
+        Threads of torch and of NumPy's BLAS while training, validating and fitting the POD
+        (both restored afterwards). The default 1 makes results independent of the machine's
+        core count (reduction order) and is fastest for small networks, above all on a busy
+        machine; None keeps both settings.
     state_names, state_units : sequence of str, optional
         Carried into the bundle. Names matching the first axis of a (T, d) array reveal data
         given as (d, T), which is refused with a hint to transpose.
@@ -181,35 +182,38 @@ def train_levels(
                                                            distinct=False)
     reduce = None if reduce is None else check_reduce(reduce, dim)
     check_length(data.lengths, dim, strides, settings.rollout, where="the trajectories")
-    split = split_trajectories(data, settings.validation_fraction, settings.seed)
-    check_length(split.train.lengths, dim, strides, settings.rollout,
-                 where="the training trajectories (after the split)")
-    if reduce is None:
-        mean, scale = normalisation(split.train)
-        basis = None
-    else:
-        mean, scale = pooled_normalisation(split.train, units)
-        # The normalised training states have mean zero: the POD is centred.
-        basis = fit_pod((np.asarray(split.train.values) - mean) / scale, reduce)
+    # One thread for torch and for NumPy's BLAS by default: the POD's SVD, decoding and the
+    # envelope are BLAS calls too, and on a busy machine a second BLAS thread mostly waits
+    # (an SVD of 22,000 x 256 snapshots: 12 s with 2 threads under load, 0.8 s with one).
+    with compute_threads(threads, error=TrainingError):
+        split = split_trajectories(data, settings.validation_fraction, settings.seed)
+        check_length(split.train.lengths, dim, strides, settings.rollout,
+                     where="the training trajectories (after the split)")
+        if reduce is None:
+            mean, scale = normalisation(split.train)
+            basis = None
+        else:
+            mean, scale = pooled_normalisation(split.train, units)
+            # The normalised training states have mean zero: the POD is centred.
+            basis = fit_pod((np.asarray(split.train.values) - mean) / scale, reduce)
 
-    def normalised(values: np.ndarray) -> torch.Tensor:
-        return torch.from_numpy(((values - mean) / scale).astype(np.float32))
+        def normalised(values: np.ndarray) -> torch.Tensor:
+            return torch.from_numpy(((values - mean) / scale).astype(np.float32))
 
-    def stepped(values: np.ndarray) -> torch.Tensor:
-        """The states the levels step: normalised, or latent for a reduced model."""
-        if basis is None:
-            return normalised(values)
-        return torch.from_numpy(basis.encode((values - mean) / scale).astype(np.float32))
+        def stepped(values: np.ndarray) -> torch.Tensor:
+            """The states the levels step: normalised, or latent for a reduced model."""
+            if basis is None:
+                return normalised(values)
+            return torch.from_numpy(basis.encode((values - mean) / scale).astype(np.float32))
 
-    train = split.train.map(stepped)
-    held_out = None if split.held_out is None else split.held_out.map(stepped)
-    # Validation compares decoded forecasts with the full held-out states.
-    held_out_full = held_out if basis is None or held_out is None \
-        else split.held_out.map(normalised)
+        train = split.train.map(stepped)
+        held_out = None if split.held_out is None else split.held_out.map(stepped)
+        # Validation compares decoded forecasts with the full held-out states.
+        held_out_full = held_out if basis is None or held_out is None \
+            else split.held_out.map(normalised)
 
-    levels, history = {}, {}
-    validation, curve, example = None, None, None
-    with _torch_threads(threads):
+        levels, history = {}, {}
+        validation, curve, example = None, None, None
         for stride in strides:
             levels[stride], history[stride] = _train_level(stride, train, held_out, settings,
                                                            progress=progress)
@@ -220,28 +224,28 @@ def train_levels(
             validation = {**checked.figures, "split": split.description}
             curve, example = checked.curve, checked.example
             levels = {stride: levels[stride] for stride in checked.strides}
-    # The envelope describes the states the levels step (latent for a reduced model).
-    samples, radius = data_envelope(
-        _arrays(train), None if held_out is None else _arrays(held_out))
-    if basis is None:
-        box = split.train.values
-        reduction = None
-    else:
-        box = train.values.numpy()
-        reduction = _reduction_figures(basis, split.train.values, split.held_out, mean, scale,
-                                       settings.tolerance)
-    return TrainedLevels(
-        levels=levels, mean=tuple(map(float, mean)), scale=tuple(map(float, scale)),
-        base_step=base_step, update="increment", history=history, validation=validation,
-        envelope_min=tuple(map(float, box.min(axis=0))),
-        envelope_max=tuple(map(float, box.max(axis=0))),
-        state_names=names, state_units=units,
-        settings={**asdict(settings), "hidden": list(settings.hidden),
-                  "strides": list(strides), "base_step": base_step, "threads": threads,
-                  "reduce": reduce},
-        forecast_example=example, validation_curve=curve, envelope_samples=samples,
-        envelope_radius=radius, basis=basis, reduction=reduction,
-    )
+        # The envelope describes the states the levels step (latent for a reduced model).
+        samples, radius = data_envelope(
+            _arrays(train), None if held_out is None else _arrays(held_out))
+        if basis is None:
+            box = split.train.values
+            reduction = None
+        else:
+            box = train.values.numpy()
+            reduction = _reduction_figures(basis, split.train.values, split.held_out, mean, scale,
+                                           settings.tolerance)
+        return TrainedLevels(
+            levels=levels, mean=tuple(map(float, mean)), scale=tuple(map(float, scale)),
+            base_step=base_step, update="increment", history=history, validation=validation,
+            envelope_min=tuple(map(float, box.min(axis=0))),
+            envelope_max=tuple(map(float, box.max(axis=0))),
+            state_names=names, state_units=units,
+            settings={**asdict(settings), "hidden": list(settings.hidden),
+                      "strides": list(strides), "base_step": base_step, "threads": threads,
+                      "reduce": reduce},
+            forecast_example=example, validation_curve=curve, envelope_samples=samples,
+            envelope_radius=radius, basis=basis, reduction=reduction,
+        )
 
 
 def _reduction_figures(basis: PODBasis, train: np.ndarray, held_out: Ragged | None,
@@ -421,19 +425,6 @@ def _evaluation_starts(held_out: Ragged | None, stride: int,
         logger.info("stride %d: held-out trajectories too short for a validation loss", stride)
         return None
     return torch.from_numpy(starts[spaced_subset(len(starts), EVALUATION_WINDOWS)])
-
-
-@contextlib.contextmanager
-def _torch_threads(threads: int | None) -> Iterator[None]:
-    if threads is None:
-        yield
-        return
-    previous = torch.get_num_threads()
-    torch.set_num_threads(_positive_int(threads, "threads"))
-    try:
-        yield
-    finally:
-        torch.set_num_threads(previous)
 
 
 def _positive_int(value: Any, where: str) -> int:

@@ -1,6 +1,6 @@
 """Helpers every demo scenario's stages share: the output check, dependencies, printing, timing.
 
-Light: torch is imported inside `torch_threads` only.
+Light: torch is imported inside `export_threads` only.
 """
 
 from __future__ import annotations
@@ -50,31 +50,10 @@ def timed(seconds: dict[str, float], name: str) -> Iterator[None]:
 
 
 @contextmanager
-def torch_threads(count: int) -> Iterator[None]:
-    """Run torch on `count` threads, restoring the previous setting afterwards.
+def export_threads() -> Iterator[None]:
+    """Export (and verification) with torch and NumPy's BLAS at one thread, as training runs
+    by default (`stridecast.export.threads.compute_threads`; imported here, when used)."""
+    from stridecast.export.threads import compute_threads
 
-    Networks this small gain nothing from intra-op threads, whose synchronisation costs more
-    than their arithmetic; on a busy 2-core machine it made training about 50 times slower.
-    """
-    import torch
-
-    previous = torch.get_num_threads()
-    torch.set_num_threads(count)
-    try:
-        yield
-    finally:
-        torch.set_num_threads(previous)
-
-
-@contextmanager
-def blas_threads(count: int) -> Iterator[None]:
-    """Hold NumPy's BLAS at `count` threads (threadpoolctl), restoring it afterwards.
-
-    The POD's SVD and the decoding of long latent runs are BLAS calls; on a shared 2-core
-    machine OpenBLAS's second thread mostly waits for the first (the SVD of the mooring
-    scenario's 22,000 × 256 snapshots took 12 s with 2 threads under load, 0.8 s with one).
-    """
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=count, user_api="blas"):
+    with compute_threads(1):
         yield

@@ -21,7 +21,7 @@ from stridecast.caution import CAUTION
 from stridecast.runtime import load
 
 from . import field_output, mooring
-from .common import blas_threads, check_dependencies, check_out, printer, timed, torch_threads
+from .common import check_dependencies, check_out, export_threads, printer, timed
 from .field_evaluation import evaluate
 from .field_plots import write_plots
 from .field_settings import (
@@ -74,10 +74,11 @@ def run_field_demo(out: Path, *, quick: bool = False, overwrite: bool = False,
         f"({trajectories.shape[1]} samples every {BASE_STEP:g} s) of the {trajectories.shape[2]}"
         f"-component field, SciPy DOP853 at rtol {GROUND_TRUTH_TOLERANCE['rtol']:g}, in "
         f"{seconds['data']:.1f} s.")
-    with timed(seconds, "training"), torch_threads(1), blas_threads(1):
+    # train_levels holds torch and BLAS at one thread itself (threads=1).
+    with timed(seconds, "training"):
         trained = train(trajectories, settings, progress=progress)
     say(field_output.format_training(trained, settings, seconds["training"]))
-    with timed(seconds, "export"), torch_threads(1), blas_threads(1):
+    with timed(seconds, "export"), export_threads():
         bundle = export(trained, out, settings, overwrite=overwrite)
     say(f"   Exported and verified {bundle} (encoder, {len(trained.levels)} latent levels, "
         f"decoder) in {seconds['export']:.1f} s.")

@@ -23,7 +23,7 @@ from stridecast.runtime import StridecastError, load
 
 from . import crane, scenarios
 from . import output as demo_output
-from .common import check_dependencies, check_out, printer, timed, torch_threads
+from .common import check_dependencies, check_out, export_threads, printer, timed
 from .evaluation import evaluate
 from .options import add_arguments
 from .plots import write_plots
@@ -100,12 +100,13 @@ def run_demo(out: Path, *, quick: bool = False, overwrite: bool = False, progres
     say(f"1. Ground truth: {len(trajectories)} trajectories of {settings.duration:g} s "
         f"({trajectories.shape[1]} samples every {BASE_STEP:g} s) from varied swings and "
         f"stretches, SciPy DOP853 at rtol {GROUND_TRUTH_TOLERANCE:g}, in {seconds['data']:.1f} s.")
-    with timed(seconds, "training"), torch_threads(1):
+    # train_levels holds torch and BLAS at one thread itself (threads=1).
+    with timed(seconds, "training"):
         trained = train(trajectories, settings, progress=progress)
     say(f"2. Trained {len(trained.levels)} levels, strides {list(trained.strides)} base steps "
         f"({', '.join(f'{s * BASE_STEP:g}' for s in trained.strides)} s), hidden layers "
         f"{list(settings.hidden)}, in {seconds['training']:.1f} s.")
-    with timed(seconds, "export"), torch_threads(1):
+    with timed(seconds, "export"), export_threads():
         bundle = export(trained, out, settings, overwrite=overwrite)
     say(f"   Exported and verified {bundle} in {seconds['export']:.1f} s.")
 
