@@ -152,7 +152,7 @@ def test_infer_msgpack(client, stepper):
      r"input 't' has shape \[3\]; expected \[1\] or \[2\]"),
     ([{"name": "state", "shape": [1, 2], "datatype": "FP32", "data": [1, 0]},
       {"name": "t", "shape": [1], "datatype": "FP64", "data": [-1]}],
-     r"`inputs\['t'\]` is -1.0; expected a finite number ≥ 0"),
+     r"`inputs\['t'\]` is -1.0; expected a finite time ≥ 0 \(in s\)\."),
     ([{"name": "t", "shape": [1], "datatype": "FP64", "data": [1]},
       {"name": "t", "shape": [1], "datatype": "FP64", "data": [1]}],
      r"`inputs` names 't' twice"),
