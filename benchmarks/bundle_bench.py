@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 
 from stridecast.runtime import Stepper, load
+from stridecast.runtime.describe import describe_stepper
 
 from . import environment
 from .competitors import OnnxRuntimeLoop, TorchEagerLoop, plan_steps
@@ -130,10 +131,12 @@ def run(bundle_path: os.PathLike[str] | str, *, quick: bool = False,
 
 
 def _describe_bundle(stepper: Stepper, path: os.PathLike[str] | str) -> dict[str, Any]:
-    return {"path": str(path), "name": stepper.manifest.name, "strides": list(stepper.strides),
-            "state_dim": stepper.state_dim, "base_step": stepper.base_step,
-            "time_unit": stepper.manifest.time_unit, "dtype": str(stepper.dtype),
-            "kernel_paths": {str(k): v for k, v in stepper.kernel_paths.items()}}
+    """The report's `bundle` entry, from the runtime's description of the stepper."""
+    described = describe_stepper(stepper)
+    return {"path": str(path), "name": described["name"], "strides": described["strides"],
+            "state_dim": described["state"]["dim"], "base_step": described["time"]["base_step"],
+            "time_unit": described["time"]["unit"], "dtype": described["dtype"],
+            "kernel_paths": described["kernel_paths"]}
 
 
 def _peers(stepper: Stepper, bundle_path, torch_modules) -> dict[str, Any]:

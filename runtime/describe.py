@@ -1,11 +1,12 @@
-"""A plain-data description of a bundle: what `stridecast inspect` and the service show."""
+"""Plain-data descriptions: of a bundle's files (`stridecast inspect`) and of a loaded stepper
+(the service's model documents, the benchmark reports)."""
 
 from __future__ import annotations
 
 import json
 import os
 from collections import Counter
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .bundle import (
     REPORT_NAME,
@@ -21,6 +22,42 @@ from .limits import DEFAULT_LIMITS, Limits
 from .manifest import Manifest
 from .onnx_reader import read_model
 from .reduction import map_form
+
+if TYPE_CHECKING:  # only for the annotation: describe is imported by light callers too
+    from .stepper import Stepper
+
+
+def describe_stepper(stepper: Stepper) -> dict[str, Any]:
+    """What a loaded stepper is, as JSON-ready data: the one description of a stepper.
+
+    Returns
+    -------
+    dict
+        ``name``, ``description``; ``state``: ``dim``, ``names``, ``units``; ``time``:
+        ``base_step``, ``unit``; ``strides`` (finest first, the levels this stepper runs: a
+        `with_levels` subset lists its own); ``update``; ``envelope`` (``min``, ``max`` per
+        component of the stepped space, or None); ``validated_horizon`` (None when unknown);
+        ``dtype`` (the arithmetic, e.g. "float32"); ``latent_dim`` (None without reduction);
+        ``kernel_paths`` (per stride, as a string key, "affine-chain" or "interpreter").
+    """
+    manifest = stepper.manifest
+    envelope = None
+    if manifest.envelope_min is not None and manifest.envelope_max is not None:
+        envelope = {"min": list(manifest.envelope_min), "max": list(manifest.envelope_max)}
+    return {
+        "name": manifest.name,
+        "description": manifest.description,
+        "state": {"dim": stepper.state_dim, "names": list(stepper.state_names),
+                  "units": list(stepper.state_units)},
+        "time": {"base_step": stepper.base_step, "unit": manifest.time_unit},
+        "strides": list(stepper.strides),
+        "update": manifest.update,
+        "envelope": envelope,
+        "validated_horizon": manifest.validated_horizon,
+        "dtype": str(stepper.dtype),
+        "latent_dim": stepper.latent_dim,
+        "kernel_paths": {str(stride): path for stride, path in stepper.kernel_paths.items()},
+    }
 
 
 def describe_bundle(path: str | os.PathLike[str], *, limits: Limits = DEFAULT_LIMITS

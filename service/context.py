@@ -91,9 +91,10 @@ def batch_rows(state: np.ndarray) -> int:
 def state_rules(stepper: Any, settings: Settings) -> StateRules:
     """What requests for `stepper` may hold under `settings` (validation and OpenAPI both)."""
     max_value = settings.max_abs_value if settings.max_abs_value is not None else math.inf
-    return StateRules(dim=stepper.state_dim, dtype=np.dtype(stepper.dtype),
+    return StateRules(names=tuple(stepper.state_names), dtype=np.dtype(stepper.dtype),
                       max_batch=settings.max_batch, max_value=max_value,
-                      max_time=max_time(stepper, settings.max_coarse_steps))
+                      max_time=max_time(stepper, settings.max_coarse_steps),
+                      time_unit=stepper.manifest.time_unit)
 
 
 def json_error(value: float) -> float | None:

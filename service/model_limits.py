@@ -11,9 +11,9 @@ from typing import Any
 
 import numpy as np
 
-# The runtime refuses times past 2**52 base steps (beyond it a float64 time no longer tells
-# neighbouring grid points apart).
-MAX_BASE_STEPS = 2**52
+# The runtime's bound on times (2**52 base steps), imported rather than restated.
+from stridecast.runtime.anchors import MAX_BASE_STEPS
+
 # Share of the runtime's per-query evaluation budget (`Limits.max_steps_per_query`) spent on the
 # coarsest level at the longest accepted time; the rest covers the finer levels of each of the
 # (at most four) interpolation anchors and of the other times of a forecast.

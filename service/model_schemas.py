@@ -14,9 +14,11 @@ from typing import Any
 
 import numpy as np
 
+from stridecast.runtime.validation import OFF_GRID_POLICIES
+
 from .model_limits import overflow_threshold
 from .protocol_v2 import STATE_TYPES, TIME_TYPES
-from .validation import OFF_GRID_POLICIES, StateRules
+from .validation import StateRules
 
 # Up to this batch limit the inference schema lists one alternative per batch size, tying the
 # data length to the shape; beyond it the document would grow past a few hundred kilobytes per

@@ -10,6 +10,8 @@ import anyio
 from fastapi import APIRouter, Depends, Request
 from starlette.responses import Response
 
+from stridecast.runtime.describe import describe_stepper
+
 from .auth import require_token
 from .codec import encode, encode_response, encoded_response, response_media
 from .compression import compress, response_coding
@@ -41,32 +43,27 @@ SettingsDep = Annotated[Settings, Depends(get_settings)]
 
 
 def model_summary(entry: ModelEntry) -> dict[str, Any]:
+    """An entry of `GET /v1/models` (`schemas.ModelSummary`), from the runtime's description."""
     summary: dict[str, Any] = {"name": entry.name, "ready": entry.ready, "source": entry.source,
                                "error": entry.error}
     if entry.ready:
-        stepper = entry.stepper
-        summary.update(state_dim=stepper.state_dim, base_step=stepper.base_step,
-                       time_unit=stepper.manifest.time_unit, strides=list(stepper.strides))
+        described = describe_stepper(entry.stepper)
+        summary.update(state_dim=described["state"]["dim"],
+                       base_step=described["time"]["base_step"],
+                       time_unit=described["time"]["unit"], strides=described["strides"])
     return summary
 
 
+# The fields of the runtime's description that `GET /v1/models/{name}` shows (ModelDetail).
+DETAIL_FIELDS = ("description", "state", "time", "strides", "update", "envelope",
+                 "validated_horizon", "dtype")
+
+
 def model_detail(name: str, stepper: Any) -> dict[str, Any]:
-    manifest = stepper.manifest
-    envelope = None
-    if manifest.envelope_min is not None:
-        envelope = {"min": list(manifest.envelope_min), "max": list(manifest.envelope_max)}
-    return {
-        "name": name,
-        "description": manifest.description,
-        "state": {"dim": stepper.state_dim, "names": list(stepper.state_names),
-                  "units": list(stepper.state_units)},
-        "time": {"base_step": stepper.base_step, "unit": manifest.time_unit},
-        "strides": list(stepper.strides),
-        "update": manifest.update,
-        "envelope": envelope,
-        "validated_horizon": manifest.validated_horizon,
-        "dtype": str(stepper.dtype),
-    }
+    """`GET /v1/models/{name}` (`schemas.ModelDetail`): the runtime's description of the
+    stepper, under the name it is served as."""
+    described = describe_stepper(stepper)
+    return {"name": name, **{field: described[field] for field in DETAIL_FIELDS}}
 
 
 @router.get("/models", responses=responses(ModelList),

@@ -1,7 +1,11 @@
 """Validation of decoded request documents into arrays and frozen query records.
 
-All request checks of the service live here. Every failure is an `ApiError` 422 whose message
-names the field, the value received and what was expected.
+What is particular to requests lives here: turning nested JSON lists and MessagePack typed
+arrays into arrays, object fields present and known, and the limits only the service sets
+(`max_abs_value`, each model's longest time, answer size). The rules for states, times and
+options are the runtime's (`stridecast.runtime.validation`), called with the field's name;
+their StateError, TimeError or OptionError becomes a 422 with the runtime's own message. Every
+failure is an `ApiError` 422 naming the field, the value received and what was expected.
 """
 
 from __future__ import annotations
@@ -13,10 +17,16 @@ from typing import Any
 
 import numpy as np
 
+from stridecast.runtime.errors import OptionError, StateError, TimeError
+from stridecast.runtime.validation import (
+    check_off_grid,
+    check_state,
+    check_time,
+    check_times,
+)
+
 from .codec import LITTLE_ENDIAN_DTYPES
 from .errors import ApiError
-
-OFF_GRID_POLICIES = ("interpolate", "nearest", "error")
 
 
 @dataclass(frozen=True)
@@ -41,16 +51,22 @@ class ForecastQuery:
 class StateRules:
     """What a request for one model may hold under the current settings.
 
-    `max_value` bounds the magnitude of every state component (inf: only what the model's
-    dtype can hold); `max_time` is the longest time accepted (see `model_limits.max_time`).
-    The OpenAPI document states the same bounds (`model_schemas`).
+    `names` are the model's state components (d of them) and `time_unit` its unit, for the
+    runtime's messages; `max_value` bounds the magnitude of every state component (inf: only
+    what the model's dtype can hold); `max_time` is the longest time accepted (see
+    `model_limits.max_time`). The OpenAPI document states the same bounds (`model_schemas`).
     """
 
-    dim: int
+    names: tuple[str, ...]
     dtype: np.dtype
     max_batch: int
     max_value: float = math.inf
     max_time: float = math.inf
+    time_unit: str = ""
+
+    @property
+    def dim(self) -> int:
+        return len(self.names)
 
 
 def invalid(message: str) -> ApiError:
@@ -89,7 +105,10 @@ def _kind(value: Any) -> str:
 
 
 def to_array(value: Any, where: str) -> np.ndarray:
-    """Turn nested lists of numbers, or a typed array map, into a finite float array.
+    """Turn nested lists of numbers, or a typed array map, into a float array.
+
+    Only decoding: whether the numbers are finite, and the array's shape, are for the checks
+    of what it holds (the runtime's `check_state`, `check_times`).
 
     Parameters
     ----------
@@ -100,16 +119,10 @@ def to_array(value: Any, where: str) -> np.ndarray:
         The field name, for messages.
     """
     if isinstance(value, dict):
-        array = _typed_array(value, where)
-    elif isinstance(value, list):
-        array = _nested_array(value, where)
-    else:
-        raise invalid(f"`{where}` must be an array of numbers; got {_kind(value)}.")
-    if not np.isfinite(array).all():
-        index = tuple(int(i) for i in np.argwhere(~np.isfinite(array))[0])
-        raise invalid(f"`{where}` holds {float(array[index])!r} at index {list(index)}; expected "
-                      "finite numbers.")
-    return array
+        return _typed_array(value, where)
+    if isinstance(value, list):
+        return _nested_array(value, where)
+    raise invalid(f"`{where}` must be an array of numbers; got {_kind(value)}.")
 
 
 def _typed_array(value: dict, where: str) -> np.ndarray:
@@ -153,73 +166,60 @@ def _nested_array(value: list, where: str) -> np.ndarray:
 
 
 def state_array(value: Any, rules: StateRules, where: str = "state") -> np.ndarray:
-    """A state `(d,)` or batch `(B, d)`, cast to the model's dtype; B ≤ `rules.max_batch`."""
-    return check_state(to_array(value, where), rules, where)
+    """A decoded state `(d,)` or batch `(B, d)`, checked and cast to the model's dtype."""
+    return state_value(to_array(value, where), rules, where)
 
 
-def check_state(array: np.ndarray, rules: StateRules, where: str = "state") -> np.ndarray:
-    """Check the shape of a finite state array and cast it to the model's dtype."""
-    dim = rules.dim
-    expected = f"({dim},) or (batch, {dim})"
-    if array.size == 0:
-        raise invalid(f"`{where}` is empty (shape {list(array.shape)}); expected {expected}.")
-    if array.ndim not in (1, 2) or array.shape[-1] != dim:
-        raise invalid(f"`{where}` has shape {list(array.shape)}; this model's state has {dim} "
-                      f"components, so expected {expected}.")
-    if array.ndim == 2 and array.shape[0] > rules.max_batch:
-        raise invalid(f"`{where}` holds a batch of {array.shape[0]} states; the limit is "
-                      f"{rules.max_batch}.")
-    if math.isfinite(rules.max_value) and array.size and np.abs(array).max() > rules.max_value:
+def state_value(array: np.ndarray, rules: StateRules, where: str = "state") -> np.ndarray:
+    """The runtime's state checks, then the service's `max_abs_value`; the shape is kept."""
+    try:
+        cast, single = check_state(array, names=rules.names, dtype=rules.dtype,
+                                   max_batch=rules.max_batch, where=where)
+    except StateError as error:
+        raise invalid(str(error)) from error
+    # On the values received (float64 from JSON), not the cast: the bound the schema states.
+    if math.isfinite(rules.max_value) and np.abs(array).max() > rules.max_value:
         index = tuple(int(i) for i in np.argwhere(np.abs(array) > rules.max_value)[0])
         raise invalid(f"`{where}` holds {float(array[index])!r} at index {list(index)}; the "
                       f"limit is {rules.max_value!r} in magnitude (`max_abs_value`).")
-    with np.errstate(over="ignore"):
-        cast = np.ascontiguousarray(array, dtype=rules.dtype)
-    if not np.isfinite(cast).all():
-        raise invalid(f"`{where}` holds values too large for {rules.dtype.name}.")
-    return cast
+    return cast[0] if single else cast
 
 
-def time_value(value: Any, where: str = "t", *, max_time: float = math.inf) -> float:
-    """A finite time in [0, `max_time`]."""
+def time_value(value: Any, rules: StateRules, where: str = "t") -> float:
+    """A time: a JSON number, then the runtime's time check, then the model's longest time."""
     if isinstance(value, bool) or not isinstance(value, int | float):
-        raise invalid(f"`{where}` is {_kind(value)}; expected a finite number ≥ 0.")
+        raise invalid(f"`{where}` is {_kind(value)}; expected a number.")
     try:
-        number = float(value)
-    except OverflowError as error:
-        raise invalid(f"`{where}` is an integer too large for a float.") from error
-    if not math.isfinite(number) or number < 0:
-        raise invalid(f"`{where}` is {number!r}; expected a finite number ≥ 0.")
-    if number > max_time:
+        number = check_time(value, unit=rules.time_unit, where=where)
+    except TimeError as error:
+        raise invalid(str(error)) from error
+    if number > rules.max_time:
         raise invalid(f"`{where}` is {number!r}; this model answers times up to "
-                      f"{max_time!r}.")
+                      f"{rules.max_time!r}.")
     return number
 
 
-def times_array(value: Any, *, max_points: int, max_time: float = math.inf,
+def times_array(value: Any, rules: StateRules, *, max_points: int,
                 where: str = "times") -> np.ndarray:
-    """A non-empty 1-D array of times in [0, `max_time`] with at most `max_points` entries."""
-    array = to_array(value, where)
-    if array.ndim != 1 or array.size == 0:
-        raise invalid(f"`{where}` has shape {list(array.shape)}; expected a non-empty list of "
-                      "times.")
-    if array.size > max_points:
-        raise invalid(f"`{where}` holds {array.size} times; the limit is {max_points} per "
-                      "request.")
-    negative = array[array < 0]
-    if negative.size:
-        raise invalid(f"`{where}` contains {float(negative[0])!r}; expected times ≥ 0.")
-    late = array[array > max_time]
+    """Decoded times: the runtime's check (1 to `max_points` finite times ≥ 0), then the
+    model's longest time."""
+    try:
+        array = check_times(to_array(value, where), max_points=max_points, where=where)
+    except TimeError as error:
+        raise invalid(str(error)) from error
+    late = array[array > rules.max_time]
     if late.size:
         raise invalid(f"`{where}` contains {float(late[0])!r}; this model answers times up to "
-                      f"{max_time!r}.")
-    return array.astype(np.float64)
+                      f"{rules.max_time!r}.")
+    return array
 
 
 def off_grid_value(value: Any, where: str = "off_grid") -> str:
-    if value not in OFF_GRID_POLICIES or not isinstance(value, str):
-        raise invalid(f"`{where}` is {_kind(value)}; expected one of {list(OFF_GRID_POLICIES)}.")
-    return value
+    """The runtime's off-grid check, as a 422."""
+    try:
+        return check_off_grid(value, where=where)
+    except OptionError as error:
+        raise invalid(str(error)) from error
 
 
 def parse_advance(document: Any, rules: StateRules) -> AdvanceQuery:
@@ -227,7 +227,7 @@ def parse_advance(document: Any, rules: StateRules) -> AdvanceQuery:
     body = fields(document, "the request body", required={"state", "t"}, optional={"off_grid"})
     return AdvanceQuery(
         state=state_array(body["state"], rules),
-        t=time_value(body["t"], max_time=rules.max_time),
+        t=time_value(body["t"], rules),
         off_grid=off_grid_value(body.get("off_grid", "interpolate")),
     )
 
@@ -241,7 +241,7 @@ def parse_forecast(document: Any, rules: StateRules, *, max_points: int, max_val
     """
     body = fields(document, "the request body", required={"state", "times"},
                   optional={"off_grid"})
-    times = times_array(body["times"], max_points=max_points, max_time=rules.max_time)
+    times = times_array(body["times"], rules, max_points=max_points)
     state = state_array(body["state"], rules)
     if times.size * state.size > max_values:
         raise invalid(f"the forecast would hold {times.size} times x {state.size} numbers = "

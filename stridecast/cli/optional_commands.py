@@ -72,6 +72,15 @@ def register(subparsers) -> None:
     serve.add_argument("--threads", "--blas-threads", dest="threads", type=int, default=None,
                        help="threads one request splits a large batch over, per worker "
                        "process (default: 1; BLAS runs single-threaded around large batches)")
+    serve.add_argument("--max-abs-value", type=float, default=None, metavar="X",
+                       help="largest magnitude of a state component a request may hold (422 "
+                       "beyond; the OpenAPI document states it) (default: none, i.e. whatever "
+                       "the model's dtype holds)")
+    serve.add_argument("--max-coarse-steps", type=int, default=None, metavar="N",
+                       help="evaluations of a model's coarsest level one answer may take; each "
+                       "model's longest accepted time is N x its largest stride x its base "
+                       "step (422 beyond) (default: none, i.e. a quarter of the runtime's "
+                       "per-query budget: 250,000)")
 
     bench = add_command(
         subparsers, "bench", "Benchmark a bundle against onnxruntime, torch and the "
@@ -121,13 +130,34 @@ def serve_command(arguments: argparse.Namespace) -> int:
         overrides["max_concurrency"] = arguments.compute_slots
     if arguments.threads is not None:
         overrides["threads"] = arguments.threads
+    for option in ("max_abs_value", "max_coarse_steps"):
+        if getattr(arguments, option) is not None:
+            overrides[option] = getattr(arguments, option)
     if arguments.grpc_port is not None:
         overrides.update(grpc_port=arguments.grpc_port, grpc_host=arguments.host)
     _log_to_stderr("stridecast.service")
-    serve(paths, host=arguments.host, port=arguments.port, workers=arguments.workers,
-          token_file=arguments.token_file, on_ready=lambda: print(CAUTION, file=sys.stderr),
-          **overrides)
+    from pydantic import ValidationError
+
+    try:
+        serve(paths, host=arguments.host, port=arguments.port, workers=arguments.workers,
+              token_file=arguments.token_file,
+              on_ready=lambda: print(CAUTION, file=sys.stderr), **overrides)
+    except ValidationError as error:
+        # The bounds live in Settings; say which option (or environment variable) broke one:
+        # a bad option is a usage error (2), a bad environment variable a failure (1).
+        fields = [str(problem["loc"][0]) if problem["loc"] else "settings"
+                  for problem in error.errors()]
+        for field, problem in zip(fields, error.errors(), strict=True):
+            name = (f"`{_FLAGS.get(field, '--' + field.replace('_', '-'))}`"
+                    if field in overrides else f"`STRIDECAST_{field.upper()}`")
+            print(f"stridecast serve: error: {name} is {problem.get('input')!r}; "
+                  f"{problem['msg'][0].lower()}{problem['msg'][1:]}.", file=sys.stderr)
+        return 2 if any(field in overrides for field in fields) else 1
     return 0
+
+
+# Settings fields whose serve option has another name.
+_FLAGS = {"max_concurrency": "--compute-slots"}
 
 
 def _log_to_stderr(name: str) -> None:

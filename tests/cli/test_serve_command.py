@@ -105,3 +105,46 @@ def test_a_missing_extra_names_the_install_command(monkeypatch, capsys):
         main(["serve", "--demo"])
     assert stop.value.code == 1
     assert 'pip install -e ".[service]"' in capsys.readouterr().err
+
+
+def test_max_abs_value_and_max_coarse_steps_reach_the_settings(tmp_path, monkeypatch, capsys):
+    apps = []
+    monkeypatch.setattr(server.uvicorn, "run", lambda app, **options: apps.append(app))
+    bundle = _bundle(tmp_path / "osc.bundle")
+    assert main(["serve", str(bundle), "--port", str(free_port()), "--max-abs-value", "1e3",
+                 "--max-coarse-steps", "500"]) == 0
+    settings = apps[0].state.settings
+    assert settings.max_abs_value == 1e3 and settings.max_coarse_steps == 500
+    # Without the options, the settings' own defaults (no bound) stay.
+    assert main(["serve", str(bundle), "--port", str(free_port())]) == 0
+    assert apps[1].state.settings.max_abs_value is None
+    assert apps[1].state.settings.max_coarse_steps is None
+
+
+def test_the_new_limits_show_their_defaults_in_help(capsys):
+    with pytest.raises(SystemExit):
+        main(["serve", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    assert "--max-abs-value X" in text and "default: none, i.e. whatever the model's" in text
+    # The default stated in the help: a quarter of the runtime's per-query evaluation budget
+    # (service/model_limits.max_time with coarse_steps None).
+    from stridecast.runtime.limits import DEFAULT_LIMITS
+    from stridecast.service.model_limits import COARSE_SHARE
+
+    quarter = DEFAULT_LIMITS.max_steps_per_query // COARSE_SHARE
+    assert "--max-coarse-steps N" in text and f"per-query budget: {quarter:,})" in text
+
+
+@pytest.mark.parametrize(("argv", "message"), [
+    (["--max-abs-value", "-1"], "`--max-abs-value` is -1.0; input should be greater than 0"),
+    (["--max-abs-value", "inf"], "`--max-abs-value` is inf;"),
+    (["--max-coarse-steps", "0"], "`--max-coarse-steps` is 0; input should be greater than or "
+                                  "equal to 1"),
+])
+def test_a_bad_limit_is_a_usage_error_naming_the_option(tmp_path, started, capsys, argv,
+                                                        message):
+    # The bounds are the Settings' (pydantic), reported as the option the user wrote.
+    bundle = _bundle(tmp_path / "osc.bundle")
+    assert main(["serve", str(bundle), "--port", str(free_port()), *argv]) == 2
+    assert message in capsys.readouterr().err
+    assert started == []

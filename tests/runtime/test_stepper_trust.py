@@ -61,7 +61,7 @@ def test_expected_error_interpolates_the_curve(oscillator, tmp_path):
     assert math.isinf(stepper.expected_error(1.75)) and math.isinf(stepper.expected_error(9.0))
     older = older_crane_bundle(tmp_path / "older.bundle")
     assert math.isnan(load(older).expected_error(1.0))  # no validation block
-    with pytest.raises(TimeError, match=r"`t` is -1.0; expected a finite time ≥ 0\."):
+    with pytest.raises(TimeError, match=r"`t` is -1.0; expected a finite time ≥ 0 \(in s\)\."):
         stepper.expected_error(-1.0)
 
 

@@ -12,12 +12,14 @@ import msgpack
 import numpy as np
 import pytest
 
+from stridecast.runtime import Limits, load
 from tests.http_cases import (
     ADVANCE,
     CASES,
     JSON_TYPE,
     LIMITS,
     MSGPACK_TYPE,
+    jsonb,
 )
 
 
@@ -96,3 +98,22 @@ def test_unknown_route_and_wrong_method_use_the_error_body(client):
     wrong = client.get(ADVANCE)
     assert wrong.status_code == 405
     assert wrong.json()["code"] == "method_not_allowed"
+
+
+@pytest.mark.parametrize(("body", "call"), [
+    ({"state": [1, 0, 3], "t": 1}, lambda stepper: stepper.advance([1.0, 0.0, 3.0], 1.0)),
+    ({"state": [[1, 0]] * 5, "t": 1}, lambda stepper: stepper.advance([[1.0, 0.0]] * 5, 1.0)),
+    ({"state": [1, 0], "t": -0.5}, lambda stepper: stepper.advance([1.0, 0.0], -0.5)),
+    ({"state": [1e300, 0], "t": 1}, lambda stepper: stepper.advance([1e300, 0.0], 1.0)),
+    ({"state": [1, 0], "t": 1, "off_grid": "cubic"},
+     lambda stepper: stepper.advance([1.0, 0.0], 1.0, off_grid="cubic")),
+], ids=["dimension", "batch", "time", "overflow", "off-grid"])
+def test_the_service_and_python_callers_get_one_sentence(limited, oscillator_path, body, call):
+    # One rule, one wording: the 422's message is the runtime's own error for the same input,
+    # from a stepper with the service's batch limit.
+    stepper = load(oscillator_path, limits=Limits(max_batch=LIMITS["max_batch"]))
+    with pytest.raises(ValueError) as refused:
+        call(stepper)
+    response = limited.post(ADVANCE, content=jsonb(body), headers={"content-type": JSON_TYPE})
+    assert response.status_code == 422
+    assert response.json()["error"] == str(refused.value)

@@ -221,7 +221,8 @@ def test_grpc_errors_carry_the_services_messages(served):
         bad.set_data_from_numpy(np.zeros((1, 3), np.float32))
         t = grpcclient.InferInput("t", [1], "FP64")
         t.set_data_from_numpy(np.array([1.0]))
-        with pytest.raises(InferenceServerException, match=r"has shape \[1, 3\]") as error:
+        refused = r"`inputs\['state'\]` has shape \(1, 3\); this bundle's state has 2"
+        with pytest.raises(InferenceServerException, match=refused) as error:
             client.infer(MODEL, [bad, t])
         assert error.value.status() == "StatusCode.INVALID_ARGUMENT"
     finally:

@@ -61,6 +61,23 @@ def test_describe_model_summarises_the_manifest(client):
     assert detail["dtype"] == "float32"
 
 
+def test_model_documents_are_the_runtime_description_in_the_documented_shape(client, stepper):
+    from stridecast.runtime.describe import describe_stepper
+    from stridecast.service.schemas import ModelDetail, ModelSummary
+
+    described = describe_stepper(stepper)
+    detail = client.get("/v1/models/oscillator").json()
+    # Exactly the fields the schema documents, each as the runtime describes the stepper.
+    assert set(detail) == set(ModelDetail.model_fields)
+    assert detail == {**{key: described[key] for key in detail}, "name": "oscillator"}
+    summary = next(entry for entry in client.get("/v1/models").json()["models"]
+                   if entry["name"] == "oscillator")
+    assert set(summary) == set(ModelSummary.model_fields)
+    assert (summary["state_dim"], summary["base_step"], summary["time_unit"],
+            summary["strides"]) == (described["state"]["dim"], described["time"]["base_step"],
+                                    described["time"]["unit"], described["strides"])
+
+
 def test_describe_failed_and_unknown_models_is_404(client):
     broken = client.get("/v1/models/broken")
     assert broken.status_code == 404

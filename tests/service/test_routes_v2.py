@@ -152,7 +152,7 @@ def test_infer_msgpack(client, stepper):
      r"input 't' has shape \[3\]; expected \[1\] or \[2\]"),
     ([{"name": "state", "shape": [1, 2], "datatype": "FP32", "data": [1, 0]},
       {"name": "t", "shape": [1], "datatype": "FP64", "data": [-1]}],
-     r"`inputs\['t'\]` is -1.0; expected a finite number ≥ 0"),
+     r"`inputs\['t'\]` is -1.0; expected a finite time ≥ 0 \(in s\)\."),
     ([{"name": "t", "shape": [1], "datatype": "FP64", "data": [1]},
       {"name": "t", "shape": [1], "datatype": "FP64", "data": [1]}],
      r"`inputs` names 't' twice"),
@@ -163,6 +163,25 @@ def test_infer_bad_inputs_are_422_with_an_error_object(client, inputs, pattern):
     # $inference_error_response = {"error": <error message string>}
     assert response.json()["error"]
     assert re.search(pattern, response.json()["error"])
+
+
+@pytest.mark.parametrize(("state", "t", "pattern"), [
+    ("[1e999, 0]", "[1]", r"^`inputs\['state'\]` holds inf at index \[0, 0\]; expected finite "
+                          r"numbers\.$"),
+    ("[1, 0]", "[-1e999]", r"^`inputs\['t'\]` is -inf; expected a finite time ≥ 0 \(in s\)\.$"),
+    ("[1, 0]", "[1]", None),
+])
+def test_infer_non_finite_values_get_the_runtime_sentence(client, state, t, pattern):
+    # The JSON decoder reads 1e999 as inf, as Python's json does (an overflowing literal, not
+    # the NaN/Infinity tokens it refuses); the runtime's state and time checks name the input.
+    body = ('{"inputs": [{"name": "state", "shape": [1, 2], "datatype": "FP64", "data": '
+            + state + '}, {"name": "t", "shape": [1], "datatype": "FP64", "data": ' + t + "}]}")
+    response = client.post(INFER, content=body, headers={"content-type": "application/json"})
+    if pattern is None:
+        assert response.status_code == 200
+    else:
+        assert response.status_code == 422
+        assert re.search(pattern, response.json()["error"]), response.json()["error"]
 
 
 def test_infer_unknown_output_is_422(client):
