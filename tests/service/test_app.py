@@ -96,7 +96,7 @@ def test_grpc_starts_and_stops_with_the_lifespan(models_dir, stepper):
     assert result.tobytes() == stepper.advance(state, 0.8).tobytes()
     after = grpcclient.InferenceServerClient(f"127.0.0.1:{port}")
     try:
-        with pytest.raises(InferenceServerException, match="UNAVAILABLE|DEADLINE"):
+        with pytest.raises(InferenceServerException, match=r"UNAVAILABLE|DEADLINE"):
             after.is_server_live(client_timeout=2)
     finally:
         after.close()
