@@ -1,5 +1,5 @@
-"""Loading trajectory files: every format read back equals what a reference writer wrote
-(NumPy, h5py, xarray), ragged data, metadata, base-step rounding, and the refusals."""
+"""Loading trajectory files (`export/data.py`): NumPy files read back equal what NumPy wrote,
+ragged data, metadata, and the refusals. HDF5, NetCDF and zarr: test_data_formats.py."""
 
 from __future__ import annotations
 
@@ -10,7 +10,6 @@ import pytest
 
 from stridecast.export import load_trajectories
 from stridecast.export.data import check_trajectories
-from stridecast.export.data_formats import base_step_from_times
 from stridecast.runtime import StateError
 
 RNG = np.random.default_rng(0)
@@ -73,79 +72,6 @@ def test_folder_of_npy_files_in_natural_order(tmp_path):
     assert (data.base_step, data.state_names, data.time_unit) == (0.5, ("q", "p"), "h")
 
 
-def test_hdf5_layouts(tmp_path):
-    h5py = pytest.importorskip("h5py")
-    with h5py.File(tmp_path / "one.h5", "w") as handle:
-        handle["trajectories"] = np.stack([RAGGED[0], RAGGED[0] + 1])
-        handle.attrs["base_step"] = np.float32(0.05)
-        handle.attrs["state_names"] = ["x", "y"]
-        handle.attrs["time_unit"] = "s"
-    data = load_trajectories(tmp_path / "one.h5")
-    assert_same(data.trajectories, [RAGGED[0], RAGGED[0] + 1])
-    assert (data.base_step, data.state_names, data.time_unit) == (0.05, ("x", "y"), "s")
-
-    with h5py.File(tmp_path / "group.hdf5", "w") as handle:
-        for index, array in enumerate(RAGGED):
-            handle[f"trajectories/run{index}"] = array.astype(np.float32)
-        handle["units"] = np.array([b"m", b"m/s"])
-    data = load_trajectories(tmp_path / "group.hdf5")
-    assert_same(data.trajectories, [array.astype(np.float32) for array in RAGGED])
-    assert data.units == ("m", "m/s")
-
-    with h5py.File(tmp_path / "root.h5", "w") as handle:
-        for index, array in enumerate(RAGGED):
-            handle[f"run{index}"] = array
-    assert_same(load_trajectories(tmp_path / "root.h5").trajectories, RAGGED)
-
-
-def test_netcdf_and_zarr_one_variable_per_component(tmp_path):
-    xarray = pytest.importorskip("xarray")
-    steps = 12
-    values = np.stack([RAGGED[1], RAGGED[1] * 2])  # (trajectory, time, state)
-    # float32 times 0, 0.1, ... as data logged in single precision would hold them.
-    time = (np.arange(steps) * 0.1).astype(np.float32)
-    dataset = xarray.Dataset(
-        {"height": (("run", "time"), values[..., 0], {"units": "m"}),
-         "speed": (("run", "time"), values[..., 1], {"units": "m/s"})},
-        coords={"time": ("time", time, {"units": "seconds since 2000-01-01"})})
-    dataset.to_netcdf(tmp_path / "runs.nc", engine="h5netcdf")
-    pytest.importorskip("zarr")
-    # Format 2: its consolidated metadata are part of the spec (format 3 warns about them).
-    dataset.to_zarr(tmp_path / "runs.zarr", zarr_format=2)
-    for name in ("runs.nc", "runs.zarr"):
-        data = load_trajectories(tmp_path / name)
-        assert_same(data.trajectories, list(values))
-        assert data.state_names == ("height", "speed") and data.units == ("m", "m/s")
-        assert data.base_step == 0.1 and data.time_unit == "seconds"
-
-
-def test_netcdf_trajectories_variable_and_cf_ragged(tmp_path):
-    xarray = pytest.importorskip("xarray")
-    pytest.importorskip("h5netcdf")
-    regular = np.stack([RAGGED[0], RAGGED[0] - 1])
-    xarray.Dataset({"trajectories": (("run", "step", "state"), regular)},
-                   coords={"state": ["u", "v"]}, attrs={"base_step": 0.2}
-                   ).to_netcdf(tmp_path / "regular.nc", engine="h5netcdf")
-    data = load_trajectories(tmp_path / "regular.nc")
-    assert_same(data.trajectories, list(regular))
-    assert data.state_names == ("u", "v") and data.base_step == 0.2
-
-    # CF conventions 9.3.3, contiguous ragged array: a count variable whose
-    # `sample_dimension` attribute names the dimension it cuts into trajectories.
-    flat = np.concatenate(RAGGED)
-    times = np.concatenate([np.arange(len(array)) * 0.25 for array in RAGGED])
-    xarray.Dataset(
-        {"row_size": ("trajectory", [len(array) for array in RAGGED],
-                      {"sample_dimension": "obs"}),
-         "time": ("obs", times, {"standard_name": "time", "units": "days"}),
-         "a": ("obs", flat[:, 0]), "b": ("obs", flat[:, 1])}
-    ).to_netcdf(tmp_path / "ragged.nc", engine="h5netcdf")
-    data = load_trajectories(tmp_path / "ragged.nc")
-    assert_same(data.trajectories, RAGGED)
-    assert data.state_names == ("a", "b") and data.base_step == 0.25
-    assert data.time_unit == "days"
-
-
 def test_list_input_is_ragged_and_regular_input_equals_its_list():
     ragged = check_trajectories(RAGGED)
     assert ragged.lengths.tolist() == [7, 12, 5]
@@ -153,28 +79,6 @@ def test_list_input_is_ragged_and_regular_input_equals_its_list():
     regular = np.stack([RAGGED[1], RAGGED[1] + 3])
     assert_same(check_trajectories(regular).to_list(), check_trajectories(list(regular))
                 .to_list())
-
-
-@pytest.mark.parametrize(("times", "expected"), [
-    # float32 grids: the step is the decimal they stand for (shortest round trip).
-    ([(np.arange(10_001) * 0.01).astype(np.float32)], 0.01),
-    ([np.arange(5) * 0.3 + 7.0, np.arange(9) * 0.3], 0.3),
-    ([np.arange(4) * 2], 2.0),
-    # The fewest digits within 1e-6 relative: 0.0123457 is 1.7e-6 away, 0.01234568 is 1e-7.
-    ([np.arange(50) * 0.0123456789], 0.01234568),
-])
-def test_base_step_from_times(times, expected):
-    assert base_step_from_times(times, "f") == expected
-
-
-@pytest.mark.parametrize(("times", "message"), [
-    ([np.array([0.0, 0.1, 0.3])], r"times of trajectory 0 in 'f' are not evenly spaced"),
-    ([np.arange(4) * 0.1, np.arange(4) * 0.2], r"have different time steps"),
-    ([np.array([0.0])], r"too short to give a base step"),
-])
-def test_base_step_from_times_refuses(times, message):
-    with pytest.raises(StateError, match=message):
-        base_step_from_times(times, "f")
 
 
 @pytest.mark.parametrize(("contents", "message"), [
@@ -236,20 +140,3 @@ def test_refuses_bad_folders(tmp_path):
     with pytest.raises(StateError, match=r"a\.npy' has shape \(3, 4, 2\); each file of a "
                                          r"folder is one trajectory \(T_i, d\)\."):
         load_trajectories(tmp_path)
-
-
-def test_missing_reader_names_the_extra(tmp_path, monkeypatch):
-    import builtins
-
-    real_import = builtins.__import__
-
-    def without_h5py(name, *args, **kwargs):
-        if name == "h5py":
-            raise ModuleNotFoundError("No module named 'h5py'", name="h5py")
-        return real_import(name, *args, **kwargs)
-
-    monkeypatch.setattr(builtins, "__import__", without_h5py)
-    (tmp_path / "x.h5").write_bytes(b"")
-    with pytest.raises(StateError, match=r"reading \.h5 files needs the package 'h5py'; "
-                                         r'install it with pip install "stridecast\[data\]"\.'):
-        load_trajectories(tmp_path / "x.h5")

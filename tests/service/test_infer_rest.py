@@ -146,27 +146,6 @@ def test_compressed_request_bodies(client, stepper, coding, compress):
     assert response.content[length:] == stepper.advance(STATE, 1.5).tobytes()
 
 
-def test_a_zip_bomb_is_refused_without_inflating_it(make_client):
-    limited = make_client(max_body_bytes=64 * 1024)
-    # 64 MiB of one byte compress to about 64 KiB at gzip's best level (ratio ~1000:1).
-    bomb = gzip.compress(b"0" * (64 * 1024 * 1024), compresslevel=9)
-    assert len(bomb) < 64 * 1024
-    response = limited.post(INFER, content=bomb, headers={"content-encoding": "gzip"})
-    assert response.status_code == 413
-    assert "decompressed body exceeds the limit of 65536 bytes" in response.json()["error"]
-
-
-@pytest.mark.parametrize(("body", "coding", "status", "pattern"), [
-    (b"not gzip", "gzip", 400, "not valid gzip data"),
-    (gzip.compress(b"{}")[:-6], "gzip", 400, "truncated"),
-    (b"{}", "br", 415, "Content-Encoding is 'br'"),
-])
-def test_bad_content_codings(client, body, coding, status, pattern):
-    response = client.post(INFER, content=body, headers={"content-encoding": coding})
-    assert response.status_code == status
-    assert pattern in response.json()["error"]
-
-
 @pytest.mark.parametrize(("accept", "coding"), [
     ("gzip", "gzip"), ("deflate", "deflate"), ("gzip;q=0.5, deflate", "deflate"),
     ("identity", None), ("*", "gzip"), ("gzip;q=0", None),
