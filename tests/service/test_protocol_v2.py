@@ -119,7 +119,8 @@ def test_build_query_shapes_the_tensors(rules):
     ([Tensor("x", "FP64", (1,), np.ones(1), "inputs[0]")], "`inputs\\[0\\].name` is 'x'"),
     ([Tensor("state", "FP64", (2, 2), np.ones(3), "inputs[0]")], "holds 3 values; shape"),
     ([Tensor("state", "FP64", (1, 1, 2), np.ones(2), "inputs[0]")], "expected 1 or 2"),
-    ([Tensor("t", "FP64", (1,), np.array([np.nan]), "inputs[1]")], "not finite"),
+    ([_tensors()[0], Tensor("t", "FP64", (1,), np.array([np.nan]), "inputs[1]")],
+     r"`inputs\['t'\]` is nan; expected a finite time"),
     (_tensors(state=STATE[0]), r"expected \[B, 2\]"),
     (_tensors(times=(1.0, 2.0)), r"input 't' has shape \[2\]; expected \[1\] or \[3\]"),
 ])
