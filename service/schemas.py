@@ -53,7 +53,7 @@ class ForecastRequest(_Strict):
 class FindingBody(BaseModel):
     """One reason not to trust an answer (`Finding.to_dict()` of the runtime)."""
 
-    kind: Literal["outside_box", "far_from_data", "beyond_horizon", "no_validation"]
+    kind: Literal["outside_box", "far_from_data", "off_subspace", "beyond_horizon", "no_validation"]
     message: str = Field(description="The runtime's sentence, shown as is.")
     states: list[int] = Field(description="Batch rows concerned (empty for time findings).")
     components: list[str]

@@ -5,7 +5,6 @@ Expected states come from SciPy (solve_ivp, DOP853) through `stridecast.demo.cra
 
 from __future__ import annotations
 
-import argparse
 import io
 import json
 import subprocess
@@ -17,43 +16,16 @@ import pytest
 from stridecast.cli import main as cli_main
 from stridecast.demo import common, crane
 from stridecast.demo import run as demo
-from stridecast.demo.evaluation import ground_truth, held_out_states, position_errors, round_up
-from stridecast.demo.settings import (
-    BASE_STEP,
-    EXAMPLE_MODES,
-    FULL,
-    QUICK,
-    SHIPPED_BUNDLE,
-    STRIDES,
-    TABLE_HORIZONS,
-)
+from stridecast.demo.evaluation import ground_truth, held_out_states, position_errors
+from stridecast.demo.settings import BASE_STEP, SHIPPED_BUNDLE, STRIDES, TABLE_HORIZONS
 from stridecast.runtime import BundleError, StridecastError, load
 
 HEAVY = ("torch", "onnx", "onnxruntime", "scipy", "matplotlib", "fastapi")
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # the PNG specification's file signature
 
 
-def _arguments(*argv: str) -> argparse.Namespace:
-    parser = argparse.ArgumentParser()
-    demo.add_arguments(parser)
-    return parser.parse_args(list(argv))
-
-
 def _report(bundle) -> dict:
     return json.loads((bundle / "report.json").read_text(encoding="utf-8"))
-
-
-# ----------------------------------------------------------------------------- the options
-def test_options_and_their_defaults():
-    arguments = _arguments()
-    assert arguments.out is None  # each scenario has its own default folder
-    assert arguments.scenario == "crane"
-    assert (arguments.quick, arguments.overwrite, arguments.no_progress) == (False,) * 3
-    assert arguments.plots_dir is None
-    arguments = _arguments("--out", "x.bundle", "--quick", "--overwrite", "--no-progress",
-                           "--plots-dir", "plots")
-    assert (str(arguments.out), str(arguments.plots_dir)) == ("x.bundle", "plots")
-    assert arguments.quick and arguments.overwrite and arguments.no_progress
 
 
 def test_an_existing_folder_is_refused_before_any_work(tmp_path):
@@ -90,29 +62,6 @@ def test_importing_the_demo_loads_no_heavy_module():
     output = subprocess.run([sys.executable, "-c", code], check=True, capture_output=True,
                             text=True).stdout
     assert not set(json.loads(output)) & set(HEAVY)
-
-
-def test_settings_fit_the_strides_and_horizons():
-    for settings in (FULL, QUICK):
-        # Training windows span rollout × largest stride; trajectories must be longer.
-        assert settings.duration > settings.rollout * max(STRIDES) * BASE_STEP
-    assert FULL.duration > max(TABLE_HORIZONS) and not FULL.quick and QUICK.quick
-    # Every table horizon lies on the base-step grid.
-    for horizon in TABLE_HORIZONS:
-        assert abs(horizon / BASE_STEP - round(horizon / BASE_STEP)) < 1e-9
-
-
-def test_held_out_states_start_with_the_example_state():
-    states = held_out_states(5)
-    assert states.shape == (5, 4)
-    np.testing.assert_array_equal(states[0], crane.state_from_modes(**EXAMPLE_MODES))
-    np.testing.assert_array_equal(states, held_out_states(5))  # a fixed seed
-
-
-@pytest.mark.parametrize(("value", "expected"), [(0.01234, 0.013), (1.5, 1.5), (987.0, 990.0),
-                                                 (0.0, 0.0)])
-def test_round_up_keeps_two_significant_digits(value, expected):
-    assert round_up(value) == pytest.approx(expected)
 
 
 # ---------------------------------------------------------------------- the shipped bundle
