@@ -10,6 +10,7 @@ import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from decimal import ROUND_CEILING, Decimal
 from typing import Any
 
 import numpy as np
@@ -175,8 +176,11 @@ def round_up(value: float, digits: int = 2) -> float:
     """`value` rounded up to `digits` significant digits (0 for values ≤ 0)."""
     if value <= 0:
         return 0.0
-    exponent = math.floor(math.log10(value)) - digits + 1
-    return math.ceil(value / 10.0**exponent) * 10.0**exponent
+    # In decimal: dividing by an inexact power of ten (0.14 / 0.01 = 14.000000000000002)
+    # would push a value that already has `digits` digits up by one in the last digit.
+    exact = Decimal(repr(float(value)))  # the shortest decimal the float stands for
+    step = Decimal(1).scaleb(exact.adjusted() - digits + 1)
+    return float(exact.quantize(step, rounding=ROUND_CEILING))
 
 
 def _check_figures(stepper: Stepper, states: np.ndarray, truth: np.ndarray) -> dict[str, Any]:

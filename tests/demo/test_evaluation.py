@@ -80,9 +80,7 @@ def test_round_up_keeps_two_significant_digits(value, expected):
     assert round_up(value) == pytest.approx(expected)
 
 
-@pytest.mark.xfail(strict=True, reason="round_up divides by an inexact 10**-k: 0.14 / 0.01 is "
-                                       "14.000000000000002, whose ceiling is 15")
-@pytest.mark.parametrize("value", [0.14, 0.28, 1.1e-6, 2e-5])
+@pytest.mark.parametrize("value", [0.14, 0.28, 0.56, 1.1e-6, 2e-5, 990.0])
 def test_round_up_leaves_a_two_digit_value_alone(value):
     # Rounding up to two significant digits is the identity on two-digit numbers (definition).
     assert round_up(value) == pytest.approx(value, rel=1e-12)
