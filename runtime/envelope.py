@@ -78,7 +78,7 @@ class Envelope:
         self.scale = np.asarray(scale, dtype=np.float64)
         self.radius = float(radius)
         self.max_work = int(max_work)
-        self.index = None if samples is None else SampleIndex(samples)
+        self.index = None if samples is None else SampleIndex(samples, radius=self.radius)
         margin = 0.0 if samples is None else self.radius * self.scale
         self.lower = None if lower is None else np.asarray(lower, dtype=np.float64) - margin
         self.upper = None if upper is None else np.asarray(upper, dtype=np.float64) + margin
