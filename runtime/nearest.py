@@ -147,11 +147,14 @@ class _Grid:
         self.strides = strides
         self.lookup = lookup  # (start, size) per key (dense), or per entry of `keys`
         self.keys = keys  # sorted keys of the listed cells; None when `lookup` is dense
+        # Queries per step: (queries, longest, d) candidates stay near `_GRID_CHUNK_VALUES`.
+        self.block = max(1, _GRID_CHUNK_VALUES // (int(lookup[1].max()) * near.shape[1]))
         self.near_t = np.ascontiguousarray(near.T)  # (d, pairs + longest): the lists, then
         # sentinels at +inf
         self.near_index = near_index  # (pairs + longest,) sample index of each entry
         self.empty = near.shape[0] - int(lookup[1].max())  # start of the sentinels
         self.steps = np.arange(int(lookup[1].max()))
+        self.queries = np.arange(self.block)  # row numbers of a block of queries
 
     @classmethod
     def build(cls, samples: np.ndarray, radius: float) -> _Grid | None:
@@ -213,8 +216,7 @@ class _Grid:
         sample within the radius is a candidate). Elsewhere distance and index are
         meaningless.
         """
-        total = queries.shape[0]
-        block = max(1, _GRID_CHUNK_VALUES // (self.steps.size * queries.shape[1]))
+        total, block = queries.shape[0], self.block
         if total <= block:
             return self._search_block(queries)
         parts = [self._search_block(queries[begin:begin + block])
@@ -252,7 +254,7 @@ class _Grid:
         squared = _squared_distances(np.take(self.near_t, position, axis=1),
                                      queries.T[:, :, None])
         best = squared.argmin(axis=1)
-        flat = best + np.arange(0, squared.size, squared.shape[1])
-        smallest = squared.ravel()[flat]
-        index = self.near_index[position.ravel()[flat]]
+        each = self.queries[:best.size]
+        smallest = squared[each, best]
+        index = self.near_index[position[each, best]]
         return np.sqrt(smallest), index, smallest <= self.radius_squared
