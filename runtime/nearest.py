@@ -234,6 +234,8 @@ class _Grid:
         else:
             kept = ((scaled >= 0) & (scaled < self.extents)).all(axis=1)
             keys = np.where(kept[:, None], scaled, 0.0).astype(np.int64) @ self.strides
+            # Such a query is measured at the origin against sentinels only (no inf − inf).
+            queries = np.where(kept[:, None], queries, 0.0)
         start, size = self.lookup
         if self.keys is None:
             start, size = start[keys], size[keys]
