@@ -1,12 +1,12 @@
 """Nearest-sample search over a few thousand points with NumPy alone, vectorised over queries.
 
 Two exact methods. Brute force in blocks: |q − s|² = |q|² − 2 q·s + |s|², with −2 sᵀ and |s|²
-prepared once. With a radius, first a fixed-radius grid (cells of side ≥ the radius): a
-sample within the radius of a query lies in the query's cell or one of its 3^d − 1
-neighbours, so those few candidates settle every query whose nearest sample is within the
-radius (the common case: visited states near the training data); only the others ("far")
-pay for brute force. A pruned tree of median-split leaves was tried and measured slower at
-the sizes a bundle keeps (`benchmarks/trust_bench.py`): NumPy pays per call.
+prepared once. With a radius, first a fixed-radius grid: cells of side ≥ the radius, each
+listing the samples within the radius of some point of it (all lie in its 3^d block), so a
+query's own cell list settles it whenever its nearest sample is within the radius (the common
+case: visited states near the training data); only the others ("far") pay for brute force.
+A pruned tree of median-split leaves was tried and measured slower at the sizes a bundle keeps
+(`benchmarks/trust_bench.py`): NumPy pays per call.
 """
 
 from __future__ import annotations
@@ -18,11 +18,15 @@ import numpy as np
 
 # Values per block of the query × sample matrix (8 MiB of float64), whatever the sample count.
 _CHUNK_VALUES = 1 << 20
-# The grid is built up to this dimension: 3^d neighbour cells per sample at build time, and
-# neighbourhoods that grow as 3^d (measured: see `GRID_MAX_DIM` in trust_bench's grid table).
+# The grid is built up to this dimension. Beyond, a cell's 3^d block (2,187 cells at d = 7)
+# holds about as many samples as brute force reads, and the N · 3^d pairs of the build
+# outgrow `_MAX_NEAR_VALUES` already at d = 5 beyond ~3,400 samples, d = 6 beyond ~950
+# (measured on random data, d = 2..8: brute force answered as fast from d = 5 on).
 GRID_MAX_DIM = 6
-# The grid is used only if its longest neighbourhood is below N / this: each query then
-# looks at fewer candidates than brute force by this factor (measured break-even ~2).
+# The grid is used only if its longest cell list is below N / this. A choice, not a tuned
+# value: every query of a step reads as many candidates as the longest list among them, and
+# per candidate the grid costs a few times what brute force costs per sample (a gather and
+# three-dimensional temporaries).
 _MIN_GAIN = 4
 # Bound of the grid's memory: the neighbourhoods' samples, N · 3^d rows of d float64 values
 # (32 MiB; the shipped crane bundle: 2,048 · 81 · 4, 5 MiB); and cells of the dense
@@ -37,12 +41,14 @@ _MAX_KEYS = 1 << 62
 _SIDE_MARGIN = 1.0 + 2e-6
 _LIST_MARGIN = 1.0 + 1e-6
 _MAX_CELL_INDEX = 1 << 29
-# Below this many query × sample pairs, brute force's few NumPy calls cost less than the
-# grid's dozen (measured on the shipped crane bundle, N = 2,048, d = 4: even at about 4
-# queries, the grid ~2× faster from ~20 queries on).
+# Below this many query × sample pairs, brute force: its few NumPy calls cost no more than
+# the grid's two dozen (measured on the shipped crane bundle, N = 2,048, d = 4, queries near
+# the data, load ~1 on 2 cores: equal from 1 to 5 queries, the grid 1.2× faster at 8, 1.9×
+# at 20, 1.8× at 40).
 _GRID_MIN_WORK = 4 * 2048
 # Float64 values of the (queries, L, d) block of candidates per step of the grid search.
 _GRID_CHUNK_VALUES = 1 << 20
+
 
 class SampleIndex:
     """An immutable search structure over `samples`, shape (N, d).
