@@ -77,8 +77,9 @@ def time_calls(steppers: dict[str, Any], state: np.ndarray, budget: Budget
 
 
 def nearest_costs(quick: bool) -> dict[str, dict[str, float]]:
-    """SampleIndex.nearest (blocked brute force) against scipy's cKDTree, for queries near
-    the data (samples plus 1 % noise; the common case)."""
+    """SampleIndex.nearest, brute force and with the fixed-radius grid (radius 0.5, as the
+    variants' bundle), against scipy's cKDTree, for queries near the data (samples plus 1 %
+    noise; the common case)."""
     from scipy.spatial import cKDTree
 
     rng = np.random.default_rng(1)
@@ -86,11 +87,13 @@ def nearest_costs(quick: bool) -> dict[str, dict[str, float]]:
     for count in SAMPLE_COUNTS:
         data = rng.standard_normal((count, 4))
         index = SampleIndex(data)
+        grid = SampleIndex(data, radius=0.5)
         tree = cKDTree(data)
         for rows in (1, 64, 4096):
             queries = data[rng.integers(0, count, rows)] + 0.01 * rng.standard_normal((rows, 4))
             samples = interleaved({
                 "stridecast": lambda q=queries, i=index: i.nearest(q),
+                "stridecast (grid)": lambda q=queries, i=grid: i.nearest(q),
                 "cKDTree (build + query)": lambda q=queries, d=data: cKDTree(d).query(q),
                 "cKDTree (query)": lambda q=queries, t=tree: t.query(q),
             }, Budget(seconds=0.2 if quick else 1.0))

@@ -78,7 +78,7 @@ class Envelope:
         self.scale = np.asarray(scale, dtype=np.float64)
         self.radius = float(radius)
         self.max_work = int(max_work)
-        self.index = None if samples is None else SampleIndex(samples)
+        self.index = None if samples is None else SampleIndex(samples, radius=self.radius)
         margin = 0.0 if samples is None else self.radius * self.scale
         self.lower = None if lower is None else np.asarray(lower, dtype=np.float64) - margin
         self.upper = None if upper is None else np.asarray(upper, dtype=np.float64) + margin
@@ -112,52 +112,56 @@ class Envelope:
         Assessment
         """
         visit_count, batch, dim = visits.shape
-        times = np.asarray(times, dtype=np.float64)
         box_excess = np.zeros((batch, dim))
         box_time = np.full(batch, np.inf)
-        # Without samples, the common case (every state inside) costs three array operations.
-        # With samples, a state outside the widened box is also far from every (training)
-        # sample, so the box is looked at only when some state is far.
-        if self.index is None and not self.inside_box(visits):
-            self._box(visits, times, box_excess, box_time)
-        ratio = np.full(batch, np.nan)
         far_time = np.full(batch, np.inf)
         offset = np.zeros((batch, dim))
-        checked = 0
-        if self.index is not None:
-            flat = visits.reshape(-1, dim)
-            total = flat.shape[0]
-            budget = max(1, self.max_work // self.index.samples.shape[0])
-            if total <= budget:
-                rows = None
-                normalised = (flat - self.mean) / self.scale
-            else:  # evenly spaced, with up to half the budget on the last visit (the answers)
-                last = min(batch, budget // 2)
-                rows = np.unique(np.concatenate((
-                    np.linspace(0, total - last - 1, budget - last).astype(np.int64),
-                    np.arange(total - last, total))))
-                normalised = (flat[rows] - self.mean) / self.scale
-            distance, index = self.index.nearest(normalised)
-            checked = distance.size
-            ratios = distance / self.radius
+        if self.index is None:
+            # Without samples, the common case (every state inside) costs three array
+            # operations.
+            if not self.inside_box(visits):
+                self._box(visits, np.asarray(times, dtype=np.float64), box_excess, box_time)
+            return Assessment(box_excess=box_excess, box_time=box_time,
+                              distance_ratio=np.full(batch, np.nan), far_time=far_time,
+                              worst_offset=offset, checked=0, visited=visit_count * batch)
+        flat = visits.reshape(-1, dim)
+        total = flat.shape[0]
+        budget = max(1, self.max_work // self.index.samples.shape[0])
+        if total <= budget:
+            rows = None
+            normalised = (flat - self.mean) / self.scale
+        else:  # evenly spaced, with up to half the budget on the last visit (the answers)
+            last = min(batch, budget // 2)
+            rows = np.unique(np.concatenate((
+                np.linspace(0, total - last - 1, budget - last).astype(np.int64),
+                np.arange(total - last, total))))
+            normalised = (flat[rows] - self.mean) / self.scale
+        distance, index = self.index.nearest(normalised)
+        ratios = distance / self.radius
+        if rows is None:
+            ratio = ratios.reshape(visit_count, batch).max(axis=0)
+        else:
+            ratio = np.full(batch, np.nan)
+            np.fmax.at(ratio, rows % batch, ratios)
+        far = ratios > 1.0
+        # The common case (every state near the data) ends here. With samples, a state
+        # outside the widened box is also far from every (training) sample, so the box is
+        # looked at only when some state is far.
+        if far.any():
+            times = np.asarray(times, dtype=np.float64)
+            if not self.inside_box(visits):
+                self._box(visits, times, box_excess, box_time)
             if rows is None:
-                ratio = ratios.reshape(visit_count, batch).max(axis=0)
                 rows = np.arange(total)
-            else:
-                np.fmax.at(ratio, rows % batch, ratios)
-            far = ratios > 1.0
-            if far.any():
-                if not self.inside_box(visits):
-                    self._box(visits, times, box_excess, box_time)
-                row_visit, row_batch = np.divmod(rows, batch)
-                np.minimum.at(far_time, row_batch[far], times[row_visit[far]])
-                # Offset from the nearest sample at each row's worst visit.
-                order = np.lexsort((ratios, row_batch))
-                last = np.flatnonzero(np.append(np.diff(row_batch[order]) != 0, True))
-                worst = order[last]
-                offset[row_batch[worst]] = normalised[worst] - self.index.samples[index[worst]]
+            row_visit, row_batch = np.divmod(rows, batch)
+            np.minimum.at(far_time, row_batch[far], times[row_visit[far]])
+            # Offset from the nearest sample at each row's worst visit.
+            order = np.lexsort((ratios, row_batch))
+            last = np.flatnonzero(np.append(np.diff(row_batch[order]) != 0, True))
+            worst = order[last]
+            offset[row_batch[worst]] = normalised[worst] - self.index.samples[index[worst]]
         return Assessment(box_excess=box_excess, box_time=box_time, distance_ratio=ratio,
-                          far_time=far_time, worst_offset=offset, checked=checked,
+                          far_time=far_time, worst_offset=offset, checked=distance.size,
                           visited=visit_count * batch)
 
     def _box(self, visits: np.ndarray, times: np.ndarray, box_excess: np.ndarray,

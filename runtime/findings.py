@@ -118,6 +118,10 @@ def envelope_findings(assessment: Assessment, *, names: Sequence[str],
     unit : str
         The time unit.
     """
+    # The common case, nothing outside and nothing far, in two array operations.
+    if not np.isfinite(assessment.box_time).any() and not np.isfinite(
+            assessment.far_time).any():
+        return ()
     findings = []
     batch = assessment.box_time.shape[0]
 
