@@ -44,8 +44,9 @@ _MAX_CELL_INDEX = 1 << 29
 # Below this many query × sample pairs, brute force: its few NumPy calls cost no more than
 # the grid's two dozen (measured on the shipped crane bundle, N = 2,048, d = 4, queries near
 # the data, load ~1 on 2 cores: equal from 1 to 5 queries, the grid 1.2× faster at 8, 1.9×
-# at 20, 1.8× at 40).
-_GRID_MIN_WORK = 4 * 2048
+# at 20, 1.8× at 40). So from 8 queries of 2,048 samples; a single state's `advance` visits
+# fewer, and never pays for building the grid (~31 ms and ~4 MB on that bundle).
+_GRID_MIN_WORK = 8 * 2048
 # Float64 values of the (queries, L, d) block of candidates per step of the grid search.
 _GRID_CHUNK_VALUES = 1 << 20
 
@@ -67,9 +68,13 @@ class SampleIndex:
         self._norms = np.einsum("nd,nd->n", self.samples, self.samples)
         self._minus_twice_t = np.ascontiguousarray(-2.0 * self.samples.T)
         self._samples_t = np.ascontiguousarray(self.samples.T)
-        self._grid = None
+        # Built on the first search large enough to use it (`_grid_for`): a process that only
+        # answers single states (a CLI call) never pays for it.
+        self._radius = None
         if radius is not None and 0 < self.samples.shape[1] <= GRID_MAX_DIM:
-            self._grid = _Grid.build(self.samples, float(radius))
+            self._radius = float(radius)
+        self._grid = None
+        self._grid_built = False
 
     def nearest(self, queries: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Distance to, and index of, the nearest sample of each query.
@@ -90,13 +95,25 @@ class SampleIndex:
         index : ndarray of int64, shape (M,)
         """
         queries = np.ascontiguousarray(queries, dtype=np.float64)
-        if self._grid is None or queries.shape[0] * self.samples.shape[0] < _GRID_MIN_WORK:
+        if self._radius is None or queries.shape[0] * self.samples.shape[0] < _GRID_MIN_WORK:
             return self._brute(queries)
-        distance, index, resolved = self._grid.search(queries)
+        grid = self._grid_for()
+        if grid is None:
+            return self._brute(queries)
+        distance, index, resolved = grid.search(queries)
         if not resolved.all():
             rest = np.flatnonzero(~resolved)
             distance[rest], index[rest] = self._brute(queries[rest])
         return distance, index
+
+    def _grid_for(self):
+        """The grid, built on first use (None where it does not pay). Threads racing here may
+        each build one; the grids are identical and the last assignment wins."""
+        if not self._grid_built:
+            self._grid = None if self._radius is None else _Grid.build(self.samples,
+                                                                        self._radius)
+            self._grid_built = True
+        return self._grid
 
     def _brute(self, queries: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         count = self.samples.shape[0]

@@ -55,7 +55,7 @@ def always_grid(monkeypatch):
 
 def grid_index(samples: np.ndarray, radius: float) -> SampleIndex:
     index = SampleIndex(samples, radius=radius)
-    assert index._grid is not None  # otherwise the test would only exercise brute force
+    assert index._grid_for() is not None  # otherwise the test would only exercise brute force
     return index
 
 
@@ -81,7 +81,7 @@ def test_grid_matches_ckdtree_in_each_dimension(dim, always_grid):
     samples = RNG.standard_normal((count, dim))
     radius = 0.3 * np.sqrt(dim)
     index = SampleIndex(samples, radius=radius)
-    assert (index._grid is not None) == (dim <= 6)
+    assert (index._grid_for() is not None) == (dim <= 6)
     queries = np.concatenate([
         samples[RNG.integers(0, count, 2000)] + 0.05 * RNG.standard_normal((2000, dim)),
         2.0 * RNG.standard_normal((500, dim)),  # around and beyond the data
@@ -151,12 +151,12 @@ def test_queries_that_are_not_finite_go_to_brute_force(always_grid):
 
 def test_grid_is_not_built_where_it_cannot_pay():
     samples = RNG.standard_normal((100, 2))
-    assert SampleIndex(samples, radius=100.0)._grid is None  # every list holds every sample
-    assert SampleIndex(samples, radius=np.inf)._grid is None
-    assert SampleIndex(RNG.standard_normal((100, 7)), radius=0.5)._grid is None  # d > 6
+    assert SampleIndex(samples, radius=100.0)._grid_for() is None  # every list holds every sample
+    assert SampleIndex(samples, radius=np.inf)._grid_for() is None
+    assert SampleIndex(RNG.standard_normal((100, 7)), radius=0.5)._grid_for() is None  # d > 6
     with_nan = samples.copy()
     with_nan[3, 1] = np.nan
-    assert SampleIndex(with_nan, radius=0.5)._grid is None
+    assert SampleIndex(with_nan, radius=0.5)._grid_for() is None
 
 
 def test_sparse_cell_table_answers_like_the_dense_one(always_grid, monkeypatch):
@@ -164,7 +164,7 @@ def test_sparse_cell_table_answers_like_the_dense_one(always_grid, monkeypatch):
     monkeypatch.setattr(nearest_module, "_DENSE_CELLS", 0)
     samples = RNG.standard_normal((1500, 3))
     index = grid_index(samples, 0.4)
-    assert index._grid.keys is not None
+    assert index._grid_for().keys is not None
     queries = np.concatenate([
         samples[RNG.integers(0, 1500, 800)] + 0.05 * RNG.standard_normal((800, 3)),
         3.0 * RNG.standard_normal((200, 3)), [[np.nan, 0.0, 0.0], [1e30, 0.0, 0.0]]])
@@ -205,3 +205,17 @@ def test_a_sample_just_within_the_radius_of_a_cell_corner_is_a_candidate(always_
     distance, nearest = index.nearest(corner[None])
     assert nearest[0] == 2
     np.testing.assert_allclose(distance, [0.99 * radius], rtol=1e-12)
+
+
+def test_the_grid_is_built_only_by_a_search_large_enough_to_use_it():
+    # A single state's advance (a CLI call) must not pay for the grid; a batch builds it once.
+    samples = RNG.standard_normal((2048, 4))
+    index = SampleIndex(samples, radius=0.5)
+    assert not index._grid_built
+    index.nearest(RNG.standard_normal((5, 4)) * 0.1)
+    assert not index._grid_built
+    queries = RNG.standard_normal((64, 4)) * 0.1
+    distance, _ = index.nearest(queries)
+    assert index._grid_built and index._grid is not None
+    # Exact either way: cKDTree (SciPy) as the outside reference.
+    np.testing.assert_allclose(distance, cKDTree(samples).query(queries)[0], rtol=1e-12)
