@@ -7,6 +7,7 @@ Each check names the argument, the value received and what was expected; the res
 from __future__ import annotations
 
 import math
+import operator
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -65,6 +66,17 @@ def level_pairs(levels: Mapping[Any, Any] | Iterable[tuple[Any, Any]]) -> list[t
         seen.add(stride)
         pairs.append((stride, item[1]))
     return sorted(pairs, key=lambda pair: pair[0])
+
+
+def positive_int(value: Any, where: str, *, error: type[Exception] = BundleError) -> int:
+    """`value` as a positive int (bools refused), else `error` naming `where`."""
+    try:
+        number = None if isinstance(value, bool) else operator.index(value)
+    except TypeError:
+        number = None
+    if number is None or number <= 0:
+        raise error(f"`{where}` is {value!r}; expected a positive integer.")
+    return number
 
 
 def check_base_step(value: Any) -> float:

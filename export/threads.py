@@ -9,11 +9,11 @@ thread also makes results independent of the machine's core count (reduction ord
 from __future__ import annotations
 
 import contextlib
-import operator
 from collections.abc import Iterator
-from typing import Any
 
 import torch
+
+from .arguments import positive_int
 
 
 @contextlib.contextmanager
@@ -31,7 +31,7 @@ def compute_threads(threads: int | None, *, error: type[Exception] = ValueError
     if threads is None:
         yield
         return
-    count = _positive_int(threads, error)
+    count = positive_int(threads, "threads", error=error)
     from threadpoolctl import threadpool_limits
 
     previous = torch.get_num_threads()
@@ -41,13 +41,3 @@ def compute_threads(threads: int | None, *, error: type[Exception] = ValueError
             yield
     finally:
         torch.set_num_threads(previous)
-
-
-def _positive_int(value: Any, error: type[Exception]) -> int:
-    try:
-        number = None if isinstance(value, bool) else operator.index(value)
-    except TypeError:
-        number = None
-    if number is None or number <= 0:
-        raise error(f"`threads` is {value!r}; expected a positive integer.")
-    return number

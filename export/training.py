@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import logging
 import math
-import operator
 import sys
 import time
 from collections.abc import Sequence
@@ -28,7 +27,7 @@ from tqdm.auto import tqdm
 
 from stridecast.runtime.validation import check_strides
 
-from .arguments import check_base_step, check_strings
+from .arguments import check_base_step, check_strings, positive_int
 from .data import check_length, check_trajectories
 from .envelope import RADIUS_MARGIN, RADIUS_QUANTILE, data_envelope
 from .errors import TrainingError
@@ -428,15 +427,7 @@ def _evaluation_starts(held_out: Ragged | None, stride: int,
 
 
 def _positive_int(value: Any, where: str) -> int:
-    if isinstance(value, bool):
-        raise TrainingError(f"`{where}` is {value!r}; expected a positive integer.")
-    try:
-        number = operator.index(value)
-    except TypeError as error:
-        raise TrainingError(f"`{where}` is {value!r}; expected a positive integer.") from error
-    if number <= 0:
-        raise TrainingError(f"`{where}` is {value!r}; expected a positive integer.")
-    return number
+    return positive_int(value, where, error=TrainingError)
 
 
 def _flag(value: Any, where: str) -> bool:
